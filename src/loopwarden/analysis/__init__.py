@@ -1,0 +1,129 @@
+"""Loop analysis: pure functions from a loop to typed results.
+
+:func:`analyze` runs every part for every plant variant of a design.  A part that cannot be
+computed is recorded in ``LoopAnalysis.errors`` (and becomes an ``error`` finding) instead
+of stopping the review.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from typing import TypeVar
+
+from ..design.model import Design, PlantVariant
+from ..errors import AnalysisError
+from .results import Curves, LoopAnalysis, TimeSeries
+
+__all__ = ["analyze", "analyze_variant"]
+
+T = TypeVar("T")
+
+DEFAULT_SETTLING_BAND = 0.02
+
+
+def _attempt(errors: dict[str, str], part: str, fn: Callable[[], T]) -> T | None:
+    try:
+        return fn()
+    except (AnalysisError, ArithmeticError, ValueError, RuntimeError) as exc:
+        errors[part] = f"{type(exc).__name__}: {exc}"
+        return None
+
+
+def analyze_variant(design: Design, variant: PlantVariant, *,
+                    min_phase_margin_deg: float | None = None,
+                    settling_band: float | None = None) -> LoopAnalysis:
+    """Analyse the design's loop around one plant variant.
+
+    Parameters
+    ----------
+    min_phase_margin_deg : float, optional
+        The rule set's minimum phase margin; the integral-action alternative is re-tuned
+        to at least this or the current design's margin, whichever is higher.
+    settling_band : float, optional
+        Settling band as a fraction of the final value (default: the design's
+        ``requirements.settling_band`` or 0.02).
+    """
+    from . import (
+        boost_band,
+        integral_alternative,
+        internal,
+        margins,
+        sensitivity,
+        slow_pairs,
+        stability,
+        time_response,
+        tracking,
+    )
+
+    band = settling_band or design.requirements.settling_band or DEFAULT_SETTLING_BAND
+    loop = design.loop(variant)
+    errors: dict[str, str] = {}
+
+    blocks = [(st.name, st.model) for st in design.controller]
+    blocks.append(("plant" if variant.name == "nominal" else f"plant ({variant.name})",
+                   variant.model))
+    if design.sensor is not None:
+        blocks.append(("sensor", design.sensor))
+
+    stab = stability.closed_loop_stability(loop)
+    intern = internal.internal_stability(blocks)
+    marg = margins.compute_margins(loop)
+    sens = sensitivity.compute_sensitivity(loop)
+    track = tracking.compute_tracking(loop)
+
+    step_result = None
+    if stab.closed_loop_stable:
+        step_result = _attempt(errors, "step", lambda: time_response.step_response(loop, band))
+    else:
+        errors["step"] = "closed loop is unstable: no settled step response"
+    step = step_result.metrics if step_result else None
+
+    tail = None
+    if step_result is not None and not loop.has_delay:
+        tail = _attempt(errors, "slow_tail",
+                        lambda: slow_pairs.slow_tail(loop, step_result, band))
+    elif loop.has_delay:
+        errors["slow_tail"] = ("the loop has a transport delay: closed-loop poles and "
+                               "residues are not computed for delay loops")
+
+    boosts = boost_band.find_boosts(loop, design.controller, marg,
+                                    design.requirements.reference_band_rad_s)
+    alternatives: tuple = ()
+    if boosts:
+        alt = _attempt(errors, "integral_alternative",
+                       lambda: integral_alternative.integral_alternatives(
+                           loop, design.controller, boosts, marg,
+                           min_phase_margin_deg=min_phase_margin_deg, settling_band=band))
+        alternatives = alt or ()
+
+    grid = margins.plot_grid(loop)
+    curves = Curves(
+        frequency_rad_s=grid,
+        open_loop=loop.open_loop(grid),
+        step=step_result.step if step_result else TimeSeries(time_s=_empty(), value=_empty()),
+        ramp_error=(step_result.ramp_error if step_result
+                    else TimeSeries(time_s=_empty(), value=_empty())),
+        improvement={b.stage: boost_band.improvement(loop, design.controller, b.stage, grid)
+                     for b in boosts},
+    )
+    return LoopAnalysis(
+        variant=variant.name, stability=stab, internal=intern, margins=marg,
+        sensitivity=sens, tracking=track, step=step, slow_tail=tail, boosts=boosts,
+        integral_alternatives=alternatives, curves=curves, errors=errors,
+    )
+
+
+def _empty():  # type: ignore[no-untyped-def]
+    import numpy as np
+
+    return np.zeros(0)
+
+
+def analyze(design: Design, *, min_phase_margin_deg: float | None = None,
+            settling_band: float | None = None) -> tuple[LoopAnalysis, ...]:
+    """Analyse every plant variant of ``design``, nominal first."""
+    return tuple(
+        analyze_variant(design, v, min_phase_margin_deg=min_phase_margin_deg,
+                        settling_band=settling_band)
+        for v in design.variants
+    )

@@ -1,0 +1,232 @@
+"""Typed, frozen results of the loop analysis.
+
+Units are in the field names.  ``math.inf`` means "infinite" (e.g. no phase crossover, so
+an infinite gain margin); ``None`` means "not applicable".  NaN never appears in a result:
+a quantity that could not be computed raises :class:`loopwarden.errors.AnalysisError`
+and the rule that needs it reports an ``error`` finding.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+
+# --------------------------------------------------------------------------- stability
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Stability:
+    """Closed-loop stability of one loop.
+
+    ``method`` is ``"poles"`` (rational loop: eigenvalues of the closed-loop state matrix)
+    or ``"nyquist"`` (loop with transport delay: encirclement count).
+    """
+
+    closed_loop_stable: bool
+    method: str
+    closed_loop_poles: tuple[complex, ...]        # empty for the Nyquist method
+    open_loop_rhp_poles: int                       # P, open-loop poles with Re > 0
+    open_loop_imag_axis_poles: int                 # poles on the imaginary axis (indented)
+    rhp_closed_loop_poles: int                     # Z = N + P
+    clockwise_encirclements: int | None            # N (Nyquist method only)
+    marginal: bool = False                         # a closed-loop pole on the boundary
+    note: str = ""
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Cancellation:
+    """An unstable or imaginary-axis pole of one block cancelled by a zero of another."""
+
+    pole: complex
+    zero: complex
+    pole_block: str                                # "plant", "sensor", "controller[2] lead"
+    zero_block: str
+    distance: float                                # |pole − zero|, rad/s
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class InternalStability:
+    internally_stable: bool
+    cancellations: tuple[Cancellation, ...]
+    note: str = ""
+
+
+# --------------------------------------------------------------------------- margins
+@dataclass(frozen=True, slots=True, kw_only=True)
+class GainCrossing:
+    """A frequency where |L(jω)| = 1."""
+
+    frequency_rad_s: float
+    phase_margin_deg: float                        # 180° + ∠L, wrapped to (−180, 180]
+    delay_margin_s: float                          # extra delay that reaches −1 here
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class PhaseCrossing:
+    """A frequency where ∠L(jω) = −180° (mod 360°), ω = 0 and ω = ∞ included."""
+
+    frequency_rad_s: float                         # may be 0.0 or math.inf
+    magnitude: float                               # |L| there
+    gain_margin_db: float                          # −20·log10|L|; > 0 upper, < 0 lower
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Margins:
+    gain_margin_db: float                          # smallest upper margin; inf if none
+    gain_margin_lower_db: float | None             # gain-reduction margin (≤ 0 dB) or None
+    phase_margin_deg: float                        # smallest over all crossings; inf if none
+    gain_crossover_rad_s: float | None             # where phase_margin_deg is measured
+    phase_crossover_rad_s: float | None            # where gain_margin_db is measured
+    delay_margin_s: float                          # min over crossings; inf if none
+    gain_crossings: tuple[GainCrossing, ...]
+    phase_crossings: tuple[PhaseCrossing, ...]
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Sensitivity:
+    peak_sensitivity: float                        # Ms = max |S(jω)|, ω ∈ [0, ∞]
+    peak_sensitivity_rad_s: float                  # where (0.0 or math.inf allowed)
+    peak_complementary: float                      # Mt = max |T(jω)|
+    peak_complementary_rad_s: float
+    disk_margin: float                             # balanced α = 1 / max |S − 1/2|
+    disk_gain_low: float                           # guaranteed gain range (factor)
+    disk_gain_high: float                          # math.inf when α ≥ 2
+    disk_phase_deg: float                          # guaranteed ± phase
+
+
+# --------------------------------------------------------------------------- tracking
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Tracking:
+    """Error constants of the loop L (error e = r − H·y)."""
+
+    system_type: int                               # net poles of L at s = 0
+    kp: float                                      # position constant; inf for type ≥ 1
+    kv: float                                      # velocity constant (1/s)
+    ka: float                                      # acceleration constant (1/s²)
+    step_error: float                              # 1/(1 + Kp)
+    ramp_error: float                              # 1/Kv (per unit ramp slope); inf type 0
+    parabola_error: float                          # 1/Ka
+
+
+# --------------------------------------------------------------------------- time response
+@dataclass(frozen=True, slots=True, kw_only=True)
+class StepMetrics:
+    """Closed-loop reference step response y(t), r = 1(t)."""
+
+    final_value: float
+    overshoot_pct: float                           # 0 when no overshoot
+    peak_time_s: float | None
+    rise_time_s: float | None                      # 10–90 %, interpolated; None if never
+    settling_time_s: float                         # last exit from the band; inf if never
+    settling_band: float                           # fraction of |final value|, e.g. 0.02
+    horizon_s: float                               # simulated length
+    ramp_error_final: float                        # e(t_end) for r = t (per unit slope)
+    exact_delay: bool                              # True: delay simulated exactly
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class TimeSeries:
+    """Sampled signal for plots (renderers draw it; they never recompute it)."""
+
+    time_s: NDArray[np.float64]
+    value: NDArray[np.float64]
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class StepResult:
+    """What :func:`loopwarden.analysis.time_response.step_response` returns."""
+
+    metrics: StepMetrics
+    step: TimeSeries                               # y(t) for r = 1(t)
+    ramp_error: TimeSeries                         # e(t) = t − y(t) for r = t
+
+
+# --------------------------------------------------------------------------- boost
+@dataclass(frozen=True, slots=True, kw_only=True)
+class SlowPair:
+    """A slow closed-loop pole nearly cancelled by a closed-loop zero."""
+
+    pole: complex
+    zero: complex
+    residue: float                                 # step-response residue of the pole
+    time_constant_s: float                         # 1/|Re pole|
+    tail_time_s: float                             # time for the tail to enter the band
+    ramp_residue: float                            # residue of the ramp-error response
+    ramp_tail_time_s: float
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class SlowTail:
+    pairs: tuple[SlowPair, ...]
+    settling_time_s: float                         # with the tail (as simulated)
+    settling_time_without_tail_s: float            # tail terms removed from the response
+    criteria: str                                  # how "slow" and "close" were decided
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class StageCrossoverCost:
+    crossover_rad_s: float
+    phase_cost_deg: float                          # phase the stage adds there (≤ 0 for lag)
+    zero_ratio: float                              # stage zero / crossover frequency
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Boost:
+    """A low-frequency boost stage (its low-frequency gain exceeds its high-frequency gain)."""
+
+    stage: int                                     # controller stage index (1-based)
+    stage_name: str
+    zero_rad_s: float | None
+    pole_rad_s: float | None
+    dc_boost: float                                # |stage(0)| / |stage(∞)|
+    band_2x_rad_s: float | None                    # improvement ≥ 2 for ω below this
+    band_3db_rad_s: float | None                   # improvement ≥ √2 for ω below this
+    improvement_at_reference_band: float | None    # factor at requirements.reference_band
+    costs: tuple[StageCrossoverCost, ...]
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class IntegralAlternative:
+    """The loop with one boost stage's pole moved to the origin, re-tuned by one gain."""
+
+    stage: int
+    gain_factor: float                             # overall gain multiplier applied
+    closed_loop_stable: bool
+    margins: Margins
+    sensitivity: Sensitivity
+    tracking: Tracking
+    step: StepMetrics
+    slow_pairs: tuple[SlowPair, ...]
+    snippet_toml: str                              # ready to paste into a design file
+
+
+# --------------------------------------------------------------------------- curves
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Curves:
+    """Data for plots, computed once by the analysis."""
+
+    frequency_rad_s: NDArray[np.float64]
+    open_loop: NDArray[np.complex128]              # L(jω)
+    step: TimeSeries
+    ramp_error: TimeSeries
+    improvement: dict[int, NDArray[np.float64]]    # per boost stage, on frequency_rad_s
+
+
+# --------------------------------------------------------------------------- aggregate
+@dataclass(frozen=True, slots=True, kw_only=True)
+class LoopAnalysis:
+    """Everything the rules need about one plant variant."""
+
+    variant: str
+    stability: Stability
+    internal: InternalStability
+    margins: Margins
+    sensitivity: Sensitivity
+    tracking: Tracking
+    step: StepMetrics | None                       # None: could not simulate (see errors)
+    slow_tail: SlowTail | None                     # None: no model to compute it from
+    boosts: tuple[Boost, ...]
+    integral_alternatives: tuple[IntegralAlternative, ...]
+    curves: Curves | None
+    errors: dict[str, str]                         # part name → why it could not be computed

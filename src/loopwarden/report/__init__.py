@@ -1,0 +1,1 @@
+"""loopwarden report."""

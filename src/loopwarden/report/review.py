@@ -1,0 +1,41 @@
+"""The Review: one immutable object handed to every renderer."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from ..analysis.results import LoopAnalysis
+from ..design.model import Design
+from ..ruleset.model import Finding, RuleSet, Status
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class RunInfo:
+    """Injected run facts, so outputs are reproducible."""
+
+    tool_version: str
+    date: str                              # ISO date (YYYY-MM-DD) of the review
+    signer: str | None = None              # subject of the signing certificate, if signing
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Baseline:
+    design: Design
+    analyses: tuple[LoopAnalysis, ...]
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Review:
+    design: Design
+    ruleset: RuleSet
+    analyses: tuple[LoopAnalysis, ...]     # nominal first
+    findings: tuple[Finding, ...]          # sorted once: by variant order, then rule order
+    run: RunInfo
+    baseline: Baseline | None = None
+
+    @property
+    def verdict(self) -> str:
+        return "fail" if any(f.status.blocks for f in self.findings) else "pass"
+
+    def count(self, status: Status) -> int:
+        return sum(1 for f in self.findings if f.status is status)
