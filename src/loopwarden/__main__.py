@@ -1,0 +1,3 @@
+from .cli import main_entry
+
+main_entry()

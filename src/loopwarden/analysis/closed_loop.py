@@ -1,0 +1,148 @@
+"""State-space realisations of the closed loop.
+
+Each block (every controller stage, the plant, the sensor) is realised separately and the
+blocks are connected, so the realisation keeps every mode — including modes that cancel
+in the loop transfer function.  Its eigenvalues are therefore the poles of the whole
+interconnection, which is what internal stability is about.
+
+Signals: reference r, error e = r − ym, controller output u, plant output y, measured
+ym = H·y.  The transport delay sits at the plant input.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+from ..errors import AnalysisError
+from ..lti import Loop, Zpk, _series
+
+Matrix = NDArray[np.float64]
+
+
+@dataclass(frozen=True, slots=True)
+class StateSpace:
+    """``x' = A x + B u``, ``y = C x + D u`` (inputs and outputs as documented per use)."""
+
+    a: Matrix
+    b: Matrix
+    c: Matrix
+    d: Matrix
+
+    @property
+    def order(self) -> int:
+        return int(self.a.shape[0])
+
+
+def _realise_chain(blocks: tuple[Zpk, ...]) -> StateSpace:
+    A = np.zeros((0, 0))
+    B = np.zeros((0, 1))
+    C = np.zeros((1, 0))
+    D = np.array([[1.0]])
+    for blk in blocks:
+        if not blk.is_proper:
+            raise AnalysisError("an improper block cannot be realised in state space")
+        a, b, c, d = blk.to_ss()
+        A, B, C, D = _series(A, B, C, D, a, b, c, d)
+    return StateSpace(A, B, C, D)
+
+
+def _controller_blocks(loop: Loop) -> tuple[Zpk, ...]:
+    return loop.stages if loop.stages else (loop.controller,)
+
+
+def delay_split(loop: Loop) -> StateSpace:
+    """The loop cut at the delayed plant input.
+
+    Inputs ``[r, w]`` where ``w(t) = u(t − delay)`` is the plant input; outputs ``[y, u]``.
+    Closing ``w = u`` with no delay gives the delay-free closed loop.  State order:
+    controller, plant, sensor.
+    """
+    ctrl = _realise_chain(_controller_blocks(loop))
+    plant = _realise_chain((loop.plant,))
+    sensor = _realise_chain((loop.sensor,))
+    nc, npl, nh = ctrl.order, plant.order, sensor.order
+    n = nc + npl + nh
+    ic, ip, ih = slice(0, nc), slice(nc, nc + npl), slice(nc + npl, n)
+
+    # y = Cp xp + Dp w ; ym = Ch xh + Dh y ; e = r − ym ; u = Cc xc + Dc e
+    # Express y, ym, e, u as  M_x x + M_r r + M_w w.
+    y_x = np.zeros((1, n))
+    y_x[:, ip] = plant.c
+    y_w = plant.d
+    ym_x = sensor.d @ y_x
+    ym_x[:, ih] += sensor.c
+    ym_w = sensor.d @ y_w
+    e_x, e_r, e_w = -ym_x, np.ones((1, 1)), -ym_w
+    u_x = ctrl.d @ e_x
+    u_x[:, ic] += ctrl.c
+    u_r, u_w = ctrl.d @ e_r, ctrl.d @ e_w
+
+    A = np.zeros((n, n))
+    Bm = np.zeros((n, 2))
+    A[ic, :] += ctrl.b @ e_x
+    A[ic, ic] += ctrl.a
+    Bm[ic, 0:1] += ctrl.b @ e_r
+    Bm[ic, 1:2] += ctrl.b @ e_w
+    A[ip, ip] += plant.a
+    Bm[ip, 1:2] += plant.b
+    A[ih, :] += sensor.b @ y_x
+    A[ih, ih] += sensor.a
+    Bm[ih, 1:2] += sensor.b @ y_w
+    Cm = np.vstack([y_x, u_x])
+    Dm = np.array([[0.0, y_w[0, 0]], [u_r[0, 0], u_w[0, 0]]])
+    return StateSpace(A, Bm, Cm, Dm)
+
+
+def closed_loop(loop: Loop) -> StateSpace:
+    """Delay-free closed loop from r to ``[y, u]`` (the delay is ignored).
+
+    Raises
+    ------
+    AnalysisError
+        When the loop is not well posed (``1 + L(∞) = 0``).
+    """
+    sp = delay_split(loop)
+    # Close w = u: u = Cu x + Dur r + Duw u  →  u = (Cu x + Dur r) / (1 − Duw)
+    duw = sp.d[1, 1]
+    if abs(1.0 - duw) < 1e-12:
+        raise AnalysisError("the loop is not well posed: 1 + L(∞) = 0")
+    cu = sp.c[1:2, :] / (1.0 - duw)
+    dur = sp.d[1, 0] / (1.0 - duw)
+    bw = sp.b[:, 1:2]
+    A = sp.a + bw @ cu
+    B = sp.b[:, 0:1] + bw * dur
+    C = np.vstack([sp.c[0:1, :] + sp.d[0, 1] * cu, cu])
+    D = np.array([[sp.d[0, 1] * dur], [dur]])
+    return StateSpace(A, B, C, D)
+
+
+def closed_loop_poles(loop: Loop) -> NDArray[np.complex128]:
+    """Eigenvalues of the delay-free closed-loop interconnection (every mode kept)."""
+    from scipy import linalg
+
+    ss = closed_loop(loop)
+    if ss.order == 0:
+        return np.zeros(0, dtype=complex)
+    return np.sort_complex(linalg.eigvals(ss.a))
+
+
+def reference_to_output(loop: Loop) -> Zpk:
+    """``T_ref(s) = C·P / (1 + C·P·H)`` without the delay, in zpk form.
+
+    Poles are the closed-loop poles of the interconnection; zeros are those of C·P plus the
+    poles of H (which become zeros of the reference response).  Uncancelled: a mode that the
+    loop cancels appears as a pole–zero pair here.
+    """
+    poles = closed_loop_poles(loop)
+    fwd = loop.forward
+    zeros = np.concatenate([fwd.zeros, loop.sensor.poles])
+    # The gain follows from the high-frequency behaviour: match at a point off every root.
+    probe_mag = 1.0 + 2.0 * float(np.max(np.abs(np.concatenate([poles, zeros, [1.0]]))))
+    s0 = 0.31 * probe_mag + 1j * probe_mag
+    l0 = loop.rational(s0)
+    t0 = fwd(s0) / (1.0 + l0)
+    monic = np.prod(s0 - zeros) / np.prod(s0 - poles)
+    return Zpk(zeros, poles, float((t0 / monic).real))

@@ -1,0 +1,1 @@
+"""Subcommands: one module each, registered in loopwarden.cli.COMMANDS."""
