@@ -1,0 +1,364 @@
+"""Design files: TOML text → a validated, frozen :class:`~loopwarden.design.model.Design`.
+
+The format is described in DESIGN.md §3; this module is its strict reader.  Unknown tables
+and keys, wrong types, non-finite numbers (``inf``/``nan`` are valid TOML), wrong signs and
+improper blocks are errors naming the file, the place (``controller[2].pole``), what was
+expected and a hint.  Every error is a :class:`~loopwarden.errors.DesignError` (exit 2).
+
+Units
+-----
+``[design] frequency_unit`` is ``"rad/s"`` (default) or ``"hz"``.  With ``"hz"`` every
+frequency in the file is multiplied by 2π on reading, so the model holds rad/s only:
+
+* lead and lag ``zero`` and ``pole``; notch and lowpass ``freq``;
+* the roots of every ``zpk`` form (plant, plant variants, sensor and zpk stages) — the zpk
+  ``gain`` still multiplies the monic factors ``(s − z)`` of the converted roots;
+* the frequency requirements ``reference_band``, ``crossover_min`` and ``crossover_max``.
+
+``tf`` and ``ss`` coefficients are always in the Laplace variable s in rad/s and are never
+converted.  Times (``ti``, ``td``, ``delay``, ``settling_time``, ``rise_time``,
+``delay_margin``) are seconds.  ``[limits]`` values are taken as the rule set states its
+checks (rad/s for frequencies) and are not converted.
+
+Roots: a real root is a number; a complex pair is written once as ``[re, im]`` with
+``im > 0`` and means ``re ± j·im``.  Polynomials are in descending powers of s.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+import re
+import tomllib
+from pathlib import Path
+from types import MappingProxyType
+from typing import Any
+
+from ..errors import DesignError, did_you_mean
+from .forms import FORMS, Table, read_form
+from .model import Design, PlantVariant, Requirements, Stage, Waiver
+from .stages import read_stage
+
+__all__ = ["load_design", "parse_design"]
+
+_TOP = ("design", "plant", "controller", "sensor", "requirements", "limits", "waivers")
+_LATER = {
+    "sampling": "sampled (discrete-time) designs are not supported in this version; "
+                "describe the loop in continuous time",
+}
+_FRD_HINT = ("measured frequency-response (frd) plants are not supported in this version; "
+             "give a tf, zpk or ss model")
+
+#: [requirements] keys → (kind, lower bound, exclusive?, upper bound, exclusive?).
+#: kind "frequency" values are converted from Hz when the file says so.
+_REQUIREMENTS: dict[str, tuple[str, float, bool, float | None, bool]] = {
+    "reference_band": ("frequency", 0.0, True, None, False),
+    "settling_time": ("s", 0.0, True, None, False),
+    "settling_band": ("fraction", 0.0, True, 0.5, True),
+    "overshoot": ("%", 0.0, False, None, False),
+    "rise_time": ("s", 0.0, True, None, False),
+    "phase_margin": ("deg", 0.0, True, 180.0, False),
+    "gain_margin": ("dB", 0.0, True, None, False),
+    "delay_margin": ("s", 0.0, True, None, False),
+    # |S| → 1 at high frequency for a strictly proper loop, so Ms below 1 cannot be met.
+    "peak_sensitivity": ("", 1.0, False, None, False),
+    "peak_complementary": ("", 0.0, True, None, False),
+    "crossover_min": ("frequency", 0.0, True, None, False),
+    "crossover_max": ("frequency", 0.0, True, None, False),
+    "step_error": ("", 0.0, False, None, False),
+    "ramp_error": ("", 0.0, False, None, False),
+}
+_LIMIT_KEYS = ("min", "max", "warn_min", "warn_max")
+
+
+def load_design(path: str | Path) -> Design:
+    """Read and validate a design file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The TOML design file.
+
+    Returns
+    -------
+    Design
+        The validated model; ``sha256`` is the hash of the file's raw bytes and ``text`` the
+        file exactly as read.  All frequencies in it are rad/s (see the module docstring for
+        the ``frequency_unit = "hz"`` conversion).
+
+    Raises
+    ------
+    DesignError
+        When the file is missing, unreadable, not UTF-8, not valid TOML or not a valid
+        design; the error names the file and the offending table and key.
+    """
+    name = str(path)
+    try:
+        raw = Path(path).read_bytes()
+    except FileNotFoundError:
+        raise DesignError("file not found", file=name,
+                          hint="check the path of the design file") from None
+    except IsADirectoryError:
+        raise DesignError("is a directory, not a design file", file=name) from None
+    except OSError as exc:
+        raise DesignError(f"cannot read the file: {exc.strerror or exc}", file=name) from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise DesignError(f"not UTF-8 text (byte {exc.start + 1})", file=name,
+                          hint="save the design file as UTF-8") from None
+    return _parse(text, name, hashlib.sha256(raw).hexdigest())
+
+
+def parse_design(text: str, path: str) -> Design:
+    """Validate design-file ``text``; ``path`` is used in messages and kept as ``Design.path``.
+
+    ``sha256`` is the hash of ``text`` encoded as UTF-8 (the raw bytes of a UTF-8 file).
+    """
+    return _parse(text, path, hashlib.sha256(text.encode("utf-8")).hexdigest())
+
+
+# ---------------------------------------------------------------------- top level
+def _parse(text: str, path: str, sha256: str) -> Design:
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise _syntax_error(exc, path) from None
+    top = Table(data, "", path)
+    for key, hint in _LATER.items():
+        if key in data:
+            raise top.error(key, f"[{key}] is not supported in this version", hint)
+    top.check_keys(_TOP)
+    for key in ("design", "plant", "controller"):
+        if key not in data:
+            raise DesignError(f"missing the [{key}] table" if key != "controller" else
+                              "missing the controller: no [[controller]] stage",
+                              file=path, where=key, hint=_MISSING_HINT[key])
+
+    head = _table(top, "design")
+    head.check_keys(("name", "revision", "description", "frequency_unit"), required=("name",))
+    unit = head.string("frequency_unit", default="rad/s").lower()
+    if unit not in ("rad/s", "hz"):
+        raise head.error("frequency_unit", f"unknown frequency unit {unit!r}",
+                         'allowed values: "rad/s", "hz"')
+    hz = unit == "hz"
+    top = Table(data, "", path, hz)
+
+    variants = _plant(_table(top, "plant"))
+    controller = _controller(top)
+    sensor, sensor_delay = _sensor(top) if "sensor" in data else (None, 0.0)
+    requirements = _requirements(_table(top, "requirements")) if "requirements" in data \
+        else Requirements()
+    limits = _limits(_table(top, "limits")) if "limits" in data else MappingProxyType({})
+    waivers = _waivers(top, tuple(v.name for v in variants)) if "waivers" in data else ()
+
+    return Design(
+        name=head.string("name"),
+        path=path,
+        sha256=sha256,
+        text=text,
+        revision=_optional_text(head, "revision"),
+        description=_optional_text(head, "description"),
+        frequency_unit=unit,
+        variants=variants,
+        controller=controller,
+        sensor=sensor,
+        sensor_delay_s=sensor_delay,
+        requirements=requirements,
+        rule_limits=limits,
+        waivers=waivers,
+    )
+
+
+_MISSING_HINT = {
+    "design": 'start the file with [design] and name = "..."',
+    "plant": "add a [plant] table with one of tf, zpk or ss",
+    "controller": 'add at least one [[controller]] table, e.g. type = "gain" and k = 1.0',
+}
+
+
+def _syntax_error(exc: tomllib.TOMLDecodeError, path: str) -> DesignError:
+    msg = str(exc)
+    m = re.search(r"\(at line (\d+), column (\d+)\)", msg)
+    if m:
+        what = msg[:m.start()].strip()
+        where = f"line {m.group(1)}, column {m.group(2)}"
+    else:
+        m_end = re.search(r"\(at end of document\)", msg)
+        what = msg[:m_end.start()].strip() if m_end else msg
+        where = "end of file" if m_end else None
+    return DesignError(f"TOML syntax error: {what}", file=path, where=where,
+                       hint="see https://toml.io for the syntax")
+
+
+def _table(parent: Table, key: str) -> Table:
+    value = parent.data[key]
+    if not isinstance(value, dict):
+        raise parent.error(key, f"expected a table [{parent.at(key)}], got "
+                           f"{'an array of tables' if isinstance(value, list) else 'a value'}")
+    return parent.sub(key, value)
+
+
+def _optional_text(t: Table, key: str) -> str | None:
+    if not t.has(key):
+        return None
+    value = t.data[key]
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        # revision = 3 is a common way to write a revision; keep it as written.
+        return str(value)
+    return t.string(key, nonempty=False)
+
+
+def _array_of_tables(parent: Table, key: str) -> list[Table]:
+    value = parent.data[key]
+    if not isinstance(value, list) or not all(isinstance(v, dict) for v in value):
+        raise parent.error(key, f"expected an array of tables [[{parent.at(key)}]]",
+                           f"write each entry as its own [[{parent.at(key)}]] table")
+    return [Table(v, f"{parent.at(key)}[{i + 1}]", parent.file, parent.hz)
+            for i, v in enumerate(value)]
+
+
+# ---------------------------------------------------------------------- plant and sensor
+def _delay(t: Table, default: float = 0.0) -> float:
+    return t.number("delay", minimum=0.0, unit="s", default=default)
+
+
+def _check_proper(t: Table, model: Any) -> None:
+    if not model.is_proper:
+        raise t.error(None, f"improper: {model.zeros.size} zeros but {model.poles.size} poles",
+                      "a physical block must be proper")
+
+
+def _plant(t: Table) -> tuple[PlantVariant, ...]:
+    t.check_keys((*FORMS, "delay", "variants"), hints={"frd": _FRD_HINT})
+    model, form = read_form(t, "plant")
+    _check_proper(t, model)
+    delay = _delay(t)
+    out = [PlantVariant(name="nominal", model=model, delay_s=delay, form=form, where="plant")]
+    if "variants" not in t.data:
+        return tuple(out)
+    seen: dict[str, str] = {}
+    for vt in _array_of_tables(t, "variants"):
+        vt.check_keys(("name", *FORMS, "delay"), required=("name",),
+                      hints={"frd": _FRD_HINT})
+        name = vt.string("name")
+        if name.strip().lower() == "nominal":
+            raise vt.error("name", "'nominal' is reserved for the [plant] itself",
+                           "give the variant a descriptive name, e.g. \"heavy load\"")
+        if name in seen:
+            raise vt.error("name", f"duplicate variant name {name!r} (also {seen[name]})",
+                           "variant names must be unique")
+        seen[name] = vt.where
+        vmodel, vform = read_form(vt, f"plant ({name})")
+        _check_proper(vt, vmodel)
+        out.append(PlantVariant(name=name, model=vmodel, delay_s=_delay(vt, delay),
+                                form=vform, where=vt.where))
+    return tuple(out)
+
+
+def _sensor(top: Table) -> tuple[Any, float]:
+    t = _table(top, "sensor")
+    t.check_keys((*FORMS, "delay"), hints={"frd": _FRD_HINT})
+    model, _ = read_form(t, "sensor")
+    _check_proper(t, model)
+    if model.origin_poles != 0 or model.low_frequency_coefficient() == 0:
+        what = ("infinite DC gain (a pole at s = 0)" if model.origin_poles > 0
+                else "zero DC gain (a zero at s = 0)")
+        raise t.error(None, f"the sensor has {what}",
+                      "a sensor must pass the measured value at DC with a finite, nonzero gain")
+    return model, _delay(t)
+
+
+# ---------------------------------------------------------------------- controller
+def _controller(top: Table) -> tuple[Stage, ...]:
+    tables = _array_of_tables(top, "controller")
+    if not tables:
+        raise top.error("controller", "the controller has no stages",
+                        'add at least one [[controller]] table, e.g. type = "gain"')
+    return tuple(read_stage(st, i + 1) for i, st in enumerate(tables))
+
+
+# ---------------------------------------------------------------------- requirements
+def _requirements(t: Table) -> Requirements:
+    t.check_keys(tuple(_REQUIREMENTS))
+    values: dict[str, float] = {}
+    for key in t.data:
+        kind, low, low_open, high, high_open = _REQUIREMENTS[key]
+        if kind == "frequency":
+            values[key] = t.frequency(key)
+            continue
+        values[key] = t.number(key, above=low if low_open else None,
+                               minimum=None if low_open else low,
+                               below=high if high is not None and high_open else None,
+                               maximum=high if high is not None and not high_open else None,
+                               unit=kind if kind not in ("fraction",) else "")
+    if ("crossover_min" in values and "crossover_max" in values
+            and not values["crossover_min"] < values["crossover_max"]):
+        raise t.error("crossover_max", "expected crossover_max above crossover_min")
+    return Requirements(
+        reference_band_rad_s=values.get("reference_band"),
+        settling_time_s=values.get("settling_time"),
+        settling_band=values.get("settling_band"),
+        values=MappingProxyType(dict(sorted(values.items()))),
+    )
+
+
+# ---------------------------------------------------------------------- limits and waivers
+def _limits(t: Table) -> MappingProxyType[str, MappingProxyType[str, float]]:
+    out: dict[str, MappingProxyType[str, float]] = {}
+    for rule_id, value in t.data.items():
+        where = f'{t.where}."{rule_id}"'
+        lt = Table(value if isinstance(value, dict) else {}, where, t.file, t.hz)
+        if not isinstance(value, dict):
+            raise lt.error(None, "expected a table of limits (min, max, warn_min, warn_max)",
+                           f'write [limits."{rule_id}"] and then min = ... on the next line')
+        nested = [k for k, v in value.items() if isinstance(v, dict)]
+        if nested:
+            raise lt.error(None, f"unknown key '{nested[0]}' (a table, not a limit)",
+                           f'quote a dotted rule id: [limits."{rule_id}.{nested[0]}"]')
+        lt.check_keys(_LIMIT_KEYS)
+        if not value:
+            raise lt.error(None, "the table sets no limit",
+                           "set at least one of min, max, warn_min, warn_max")
+        lim = {k: lt.number(k) for k in _LIMIT_KEYS if k in value}
+        _check_limit_order(lt, lim)
+        out[rule_id] = MappingProxyType(lim)
+    return MappingProxyType(out)
+
+
+def _check_limit_order(t: Table, lim: dict[str, float]) -> None:
+    # A rule fails below min and warns below warn_min, so the warning band must lie inside
+    # the passing range; equal fail limits would let nothing pass.
+    orders = (("min", "max", True), ("warn_min", "warn_max", True),
+              ("min", "warn_min", False), ("warn_max", "max", False))
+    for lo, hi, strict in orders:
+        if lo in lim and hi in lim and (lim[lo] >= lim[hi] if strict else lim[lo] > lim[hi]):
+            rel = "below" if strict else "at most"
+            raise t.error(hi, f"expected {lo} {rel} {hi}, got {lo} = {lim[lo]:g} and "
+                          f"{hi} = {lim[hi]:g}")
+
+
+def _waivers(top: Table, variant_names: tuple[str, ...]) -> tuple[Waiver, ...]:
+    out = []
+    for wt in _array_of_tables(top, "waivers"):
+        wt.check_keys(("rule", "variant", "reason", "approved_by", "expires"),
+                      required=("rule", "reason", "approved_by", "expires"))
+        variant = wt.string("variant") if wt.has("variant") else None
+        if variant is not None and variant not in variant_names:
+            raise wt.error("variant", f"no plant variant named {variant!r}",
+                           did_you_mean(variant, variant_names)
+                           or "variants: " + ", ".join(repr(v) for v in variant_names))
+        out.append(Waiver(rule=wt.string("rule"), reason=wt.string("reason"),
+                          approved_by=wt.string("approved_by"),
+                          expires=_date(wt, "expires"), variant=variant))
+    return tuple(out)
+
+
+def _date(t: Table, key: str) -> dt.date:
+    value = t.data[key]
+    hint = "write a bare TOML date without quotes, e.g. expires = 2027-03-31"
+    if isinstance(value, str):
+        raise t.error(key, f"expected a date, got a string ({value!r})", hint)
+    if isinstance(value, dt.datetime) or not isinstance(value, dt.date):
+        raise t.error(key, "expected a date (no time of day)", hint)
+    return value

@@ -1,0 +1,227 @@
+"""The controller stage catalog: one ``[[controller]]`` table → one :class:`Stage`.
+
+Each stage type names its keys and builds its zero-pole-gain model directly from its
+parameters (roots and gain in closed form), so the model is exactly the formula below.
+Frequencies are rad/s after reading (``freq``, ``zero``, ``pole`` are converted from Hz
+when the design says ``frequency_unit = "hz"``); ``ti``, ``td`` are seconds.
+
+========== ======================================= ==============================================
+type       keys                                    transfer function
+========== ======================================= ==============================================
+gain       k (≠ 0)                                 k
+lead       zero < pole, normalize = "dc" | "hf"    dc: (p/z)(s+z)/(s+p), hf: (s+z)/(s+p)
+lag        pole < zero, normalize = "hf" | "dc"    hf: (s+z)/(s+p), dc: (p/z)(s+z)/(s+p)
+pi         kp (≠ 0), ti > 0                        kp (1 + 1/(ti s))
+pid        kp, ti > 0, td ≥ 0, n > 0 (10)          kp (1 + 1/(ti s) + td s/((td/n) s + 1))
+integrator k (≠ 0)                                 k/s
+notch      freq, depth_db > 0, zeta > 0 (0.5)      (s²+2ζ_z ω s+ω²)/(s²+2ζ ω s+ω²)
+lowpass    freq, order = 1 | 2, zeta (0.7071)      ω/(s+ω) or ω²/(s²+2ζ ω s+ω²)
+tf         num, den                                as given (descending powers of s)
+zpk        zeros, poles, gain                      as given (roots converted from Hz)
+========== ======================================= ==============================================
+
+For the notch ζ_z = ζ·10^(−depth_db/20), so |N(jω)| = 10^(−depth_db/20) at ω.
+Every stage must be proper; the lead, lag, notch and lowpass have unity gain at DC or at high
+frequency as stated, so their gain is set by ``gain`` / ``pi`` / ``pid`` stages.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+from types import MappingProxyType
+
+import numpy as np
+
+from ..lti import Zpk
+from .forms import Table, read_direct_form, read_roots
+from .model import Stage
+
+Params = dict[str, float | str]
+Builder = Callable[[Table, str], tuple[Params, Zpk]]
+
+
+@dataclass(frozen=True, slots=True)
+class StageType:
+    """One entry of the catalog: its keys (besides ``type``) and how to build it."""
+
+    keys: tuple[str, ...]
+    required: tuple[str, ...]
+    build: Builder
+    formula: str
+
+
+def _zpk(zeros: list[complex], poles: list[complex], gain: float, label: str) -> Zpk:
+    return Zpk(np.array(zeros, dtype=complex), np.array(poles, dtype=complex), gain, label)
+
+
+def _second_order_roots(zeta: float, w: float) -> list[complex]:
+    """Roots of s² + 2ζωs + ω² (ζ > 0, ω > 0), in closed form."""
+    if zeta < 1.0:
+        im = w * math.sqrt(1.0 - zeta * zeta)
+        return [complex(-zeta * w, im), complex(-zeta * w, -im)]
+    # Overdamped: the product form avoids cancellation in the smaller root.
+    big = -w * (zeta + math.sqrt(zeta * zeta - 1.0))
+    return [complex(big), complex(w * w / big)]
+
+
+# ---------------------------------------------------------------------- builders
+def _gain(t: Table, label: str) -> tuple[Params, Zpk]:
+    k = t.number("k", nonzero=True)
+    return {"k": k}, Zpk.constant(k, label)
+
+
+def _zero_pole(t: Table, kind: str) -> tuple[float, float]:
+    """Zero and pole of a lead or lag, with its sign rule checked."""
+    z = t.frequency("zero")
+    if kind == "lag" and t.number("pole", unit=t.unit) == 0:
+        raise t.error("pole", "a lag's pole must be above 0",
+                      "use type = 'pi' or 'integrator' for a pole at the origin")
+    p = t.frequency("pole")
+    if kind == "lead" and not z < p:
+        raise t.error("pole", f"a lead needs zero < pole, got zero {_show(t, z)} and pole "
+                      f"{_show(t, p)}", "with the pole below the zero this is a lag: "
+                      "use type = 'lag'")
+    if kind == "lag" and not p < z:
+        raise t.error("pole", f"a lag needs pole < zero, got pole {_show(t, p)} above zero "
+                      f"{_show(t, z)}", "with the pole above the zero this is a lead: "
+                      "use type = 'lead'")
+    return z, p
+
+
+def _show(t: Table, w_rad_s: float) -> str:
+    """A frequency as the user wrote it (in the file's unit)."""
+    return f"{w_rad_s / (2 * math.pi):g} Hz" if t.hz else f"{w_rad_s:g} rad/s"
+
+
+def _lead_lag(kind: str, default_norm: str) -> Builder:
+    def build(t: Table, label: str) -> tuple[Params, Zpk]:
+        z, p = _zero_pole(t, kind)
+        norm = t.choice("normalize", ("dc", "hf"), default=default_norm)
+        gain = p / z if norm == "dc" else 1.0
+        return ({"zero": z, "pole": p, "normalize": norm},
+                _zpk([-z], [-p], gain, label))
+    return build
+
+
+def _pi(t: Table, label: str) -> tuple[Params, Zpk]:
+    kp = t.number("kp", nonzero=True)
+    ti = t.number("ti", above=0.0, unit="s")
+    # kp (1 + 1/(ti s)) = kp (s + 1/ti) / s
+    return {"kp": kp, "ti": ti}, _zpk([-1.0 / ti], [0.0], kp, label)
+
+
+def _pid(t: Table, label: str) -> tuple[Params, Zpk]:
+    kp = t.number("kp", nonzero=True)
+    ti = t.number("ti", above=0.0, unit="s")
+    td = t.number("td", minimum=0.0, unit="s")
+    n = t.number("n", above=0.0, default=10.0)
+    params: Params = {"kp": kp, "ti": ti, "td": td, "n": n}
+    if td == 0.0:
+        return params, _zpk([-1.0 / ti], [0.0], kp, label)
+    tf = td / n
+    # Over the common denominator ti·s·(tf·s + 1) the numerator is
+    # ti(tf + td) s² + (ti + tf) s + 1; the leading ratio gives the gain kp(tf + td)/tf.
+    a, b, c = ti * (tf + td), ti + tf, 1.0
+    disc = b * b - 4.0 * a * c
+    if disc >= 0:
+        big = -(b + math.sqrt(disc)) / (2.0 * a)
+        zeros = [complex(big), complex(c / (a * big))]
+    else:
+        im = math.sqrt(-disc) / (2.0 * a)
+        zeros = [complex(-b / (2.0 * a), im), complex(-b / (2.0 * a), -im)]
+    return params, _zpk(zeros, [0.0, -1.0 / tf], kp * (tf + td) / tf, label)
+
+
+def _integrator(t: Table, label: str) -> tuple[Params, Zpk]:
+    k = t.number("k", nonzero=True)
+    return {"k": k}, _zpk([], [0.0], k, label)
+
+
+def _notch(t: Table, label: str) -> tuple[Params, Zpk]:
+    w = t.frequency("freq")
+    depth = t.number("depth_db", above=0.0, unit="dB")
+    zeta = t.number("zeta", above=0.0, default=0.5)
+    zeta_z = zeta * 10.0 ** (-depth / 20.0)
+    return ({"freq": w, "depth_db": depth, "zeta": zeta},
+            _zpk(_second_order_roots(zeta_z, w), _second_order_roots(zeta, w), 1.0, label))
+
+
+def _lowpass(t: Table, label: str) -> tuple[Params, Zpk]:
+    w = t.frequency("freq")
+    order = t.integer("order", choices=(1, 2), default=1)
+    if order == 1:
+        if t.has("zeta"):
+            raise t.error("zeta", "zeta applies only to a second-order lowpass",
+                          "set order = 2 or remove zeta")
+        return {"freq": w, "order": 1.0}, _zpk([], [-w], w, label)
+    zeta = t.number("zeta", above=0.0, default=0.7071)
+    return ({"freq": w, "order": 2.0, "zeta": zeta},
+            _zpk([], _second_order_roots(zeta, w), w * w, label))
+
+
+def _roots_text(roots: list[complex]) -> str:
+    """Roots in the file's notation (a pair once as [re, im]), rad/s."""
+    parts = [f"{r.real:g}" if r.imag == 0 else f"[{r.real:g}, {r.imag:g}]"
+             for r in roots if r.imag >= 0]
+    return "[" + ", ".join(parts) + "]"
+
+
+def _tf_stage(t: Table, label: str) -> tuple[Params, Zpk]:
+    model = read_direct_form(t, "tf", label)
+    return ({"num": str([float(v) for v in t.data["num"]]),
+             "den": str([float(v) for v in t.data["den"]])}, model)
+
+
+def _zpk_stage(t: Table, label: str) -> tuple[Params, Zpk]:
+    model = read_direct_form(t, "zpk", label)
+    zeros = read_roots(t, "zeros") if t.has("zeros") else []
+    return ({"zeros": _roots_text(zeros), "poles": _roots_text(read_roots(t, "poles")),
+             "gain": model.gain}, model)
+
+
+#: The catalog, in the order the documentation lists it.
+STAGE_TYPES: Mapping[str, StageType] = MappingProxyType({
+    "gain": StageType(("k",), ("k",), _gain, "k"),
+    "lead": StageType(("zero", "pole", "normalize"), ("zero", "pole"), _lead_lag("lead", "dc"),
+                      "dc: (p/z)(s+z)/(s+p); hf: (s+z)/(s+p)"),
+    "lag": StageType(("zero", "pole", "normalize"), ("zero", "pole"), _lead_lag("lag", "hf"),
+                     "hf: (s+z)/(s+p); dc: (p/z)(s+z)/(s+p)"),
+    "pi": StageType(("kp", "ti"), ("kp", "ti"), _pi, "kp (1 + 1/(ti s))"),
+    "pid": StageType(("kp", "ti", "td", "n"), ("kp", "ti", "td"), _pid,
+                     "kp (1 + 1/(ti s) + td s/((td/n) s + 1))"),
+    "integrator": StageType(("k",), ("k",), _integrator, "k/s"),
+    "notch": StageType(("freq", "depth_db", "zeta"), ("freq", "depth_db"), _notch,
+                       "(s²+2ζ_z ω s+ω²)/(s²+2ζ ω s+ω²)"),
+    "lowpass": StageType(("freq", "order", "zeta"), ("freq",), _lowpass,
+                         "ω/(s+ω) or ω²/(s²+2ζ ω s+ω²)"),
+    "tf": StageType(("num", "den"), ("num", "den"), _tf_stage, "num(s)/den(s)"),
+    "zpk": StageType(("zeros", "poles", "gain"), ("poles", "gain"), _zpk_stage,
+                     "gain·Π(s−z)/Π(s−p)"),
+})
+
+_FORM_KEY_HINT = {
+    "tf": "in a stage of type 'tf' write num = [...] and den = [...] directly in the table",
+    "zpk": "in a stage of type 'zpk' write zeros, poles and gain directly in the table",
+    "ss": "controller stages take tf or zpk forms only; convert the state space to zpk",
+}
+
+
+def read_stage(t: Table, index: int) -> Stage:
+    """Validate one ``[[controller]]`` table (``index`` is 1-based) into a :class:`Stage`."""
+    if "type" not in t.data:
+        raise t.error("type", "missing required key 'type'",
+                      "stage types: " + ", ".join(STAGE_TYPES))
+    kind = t.choice("type", tuple(STAGE_TYPES))
+    spec = STAGE_TYPES[kind]
+    body = Table({k: v for k, v in t.data.items() if k != "type"}, t.where, t.file, t.hz)
+    body.check_keys(spec.keys, spec.required, hints=_FORM_KEY_HINT)
+    label = f"{t.where} {kind}"
+    params, model = spec.build(body, label)
+    return Stage(index=index, type=kind, params=MappingProxyType(params), model=model)
+
+
+def stage_types() -> tuple[str, ...]:
+    """Names of the stage types, in catalog order."""
+    return tuple(STAGE_TYPES)
