@@ -58,6 +58,10 @@ def _kind(value: Any) -> str:
     return f"a {type(value).__name__} ({value})"
 
 
+def _count(n: int, one: str, many: str | None = None) -> str:
+    return f"{n} {one if n == 1 else (many or one + 's')}"
+
+
 @dataclass(frozen=True)
 class Table:
     """A TOML table being validated: its data, its place in the file and the file's unit.
@@ -119,7 +123,8 @@ class Table:
                 raise self.error(key, f"'{key}' is not allowed here", hints[key])
             hint = did_you_mean(key, allowed) or (
                 "allowed keys: " + ", ".join(allowed) if allowed else "this table takes no keys")
-            raise self.error(key, f"unknown key '{key}'", hint)
+            noun = "table" if isinstance(self.data[key], dict) else "key"
+            raise self.error(key, f"unknown {noun} '{key}'", hint)
         for key in required:
             if key not in self.data:
                 raise self.error(key, f"missing required key '{key}'")
@@ -278,8 +283,8 @@ def read_matrix(t: Table, key: str) -> np.ndarray:
         rows.append([check_number(v, t.file, f"{arr.at(i)}[{j + 1}]")
                      for j, v in enumerate(row)])
         if len(rows[-1]) != len(rows[0]):
-            raise DesignError(f"row {i + 1} has {len(rows[-1])} entries but row 1 has "
-                              f"{len(rows[0])}", file=t.file, where=arr.at(i))
+            raise DesignError(f"row {i + 1} has {_count(len(rows[-1]), 'entry', 'entries')} "
+                              f"but row 1 has {len(rows[0])}", file=t.file, where=arr.at(i))
     if not rows[0]:
         raise t.error(key, "expected a matrix with at least one column, got empty rows")
     return np.array(rows, dtype=float)
@@ -302,8 +307,9 @@ def _zpk(t: Table) -> Zpk:
     poles = read_roots(t, "poles")
     gain = t.number("gain", nonzero=True)
     if len(zeros) > len(poles):
-        raise t.error(None, f"improper: {len(zeros)} zeros but only {len(poles)} poles "
-                      "(a complex pair counts twice)", "a physical block must be proper")
+        raise t.error(None, f"improper: {_count(len(zeros), 'zero')} but only "
+                      f"{_count(len(poles), 'pole')}, a complex pair counting twice",
+                      "a physical block must be proper")
     return Zpk(np.array(zeros, dtype=complex), np.array(poles, dtype=complex), gain)
 
 

@@ -43,8 +43,7 @@ __all__ = ["load_design", "parse_design"]
 
 _TOP = ("design", "plant", "controller", "sensor", "requirements", "limits", "waivers")
 _LATER = {
-    "sampling": "sampled (discrete-time) designs are not supported in this version; "
-                "describe the loop in continuous time",
+    "sampling": "describe the loop in continuous time; sampled designs come later",
 }
 _FRD_HINT = ("measured frequency-response (frd) plants are not supported in this version; "
              "give a tf, zpk or ss model")
@@ -225,7 +224,8 @@ def _delay(t: Table, default: float = 0.0) -> float:
 
 def _check_proper(t: Table, model: Any) -> None:
     if not model.is_proper:
-        raise t.error(None, f"improper: {model.zeros.size} zeros but {model.poles.size} poles",
+        raise t.error(None, f"improper: more zeros ({model.zeros.size}) than poles "
+                      f"({model.poles.size})",
                       "a physical block must be proper")
 
 

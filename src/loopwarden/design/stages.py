@@ -16,8 +16,8 @@ pid        kp, ti > 0, td ≥ 0, n > 0 (10)          kp (1 + 1/(ti s) + td s/((t
 integrator k (≠ 0)                                 k/s
 notch      freq, depth_db > 0, zeta > 0 (0.5)      (s²+2ζ_z ω s+ω²)/(s²+2ζ ω s+ω²)
 lowpass    freq, order = 1 | 2, zeta (0.7071)      ω/(s+ω) or ω²/(s²+2ζ ω s+ω²)
-tf         num, den                                as given (descending powers of s)
-zpk        zeros, poles, gain                      as given (roots converted from Hz)
+tf         num, den  (or tf = {num, den})          as given (descending powers of s)
+zpk        zeros, poles, gain  (or zpk = {...})    as given (roots converted from Hz)
 ========== ======================================= ==============================================
 
 For the notch ζ_z = ζ·10^(−depth_db/20), so |N(jω)| = 10^(−depth_db/20) at ω.
@@ -35,7 +35,7 @@ from types import MappingProxyType
 import numpy as np
 
 from ..lti import Zpk
-from .forms import Table, read_direct_form, read_roots
+from .forms import Table, read_direct_form, read_form, read_roots
 from .model import Stage
 
 Params = dict[str, float | str]
@@ -168,16 +168,32 @@ def _roots_text(roots: list[complex]) -> str:
     return "[" + ", ".join(parts) + "]"
 
 
+def _form_stage(t: Table, form: str, label: str) -> Zpk:
+    """A tf / zpk stage, written either with its keys directly in the stage table or, as for
+    the plant, as ``tf = { num = ..., den = ... }`` / ``zpk = { ... }``."""
+    if not t.has(form):
+        return read_direct_form(t, form, label)
+    others = [k for k in t.data if k != form]
+    if others:
+        raise t.error(others[0], f"'{others[0]}' given beside '{form} = {{...}}'",
+                      f"write the {form} either inline as {form} = {{...}} or as keys of "
+                      "the stage, not both")
+    model, _ = read_form(t, label)
+    return model
+
+
 def _tf_stage(t: Table, label: str) -> tuple[Params, Zpk]:
-    model = read_direct_form(t, "tf", label)
-    return ({"num": str([float(v) for v in t.data["num"]]),
-             "den": str([float(v) for v in t.data["den"]])}, model)
+    model = _form_stage(t, "tf", label)
+    body = t.data.get("tf", t.data)
+    return ({"num": str([float(v) for v in body["num"]]),
+             "den": str([float(v) for v in body["den"]])}, model)
 
 
 def _zpk_stage(t: Table, label: str) -> tuple[Params, Zpk]:
-    model = read_direct_form(t, "zpk", label)
-    zeros = read_roots(t, "zeros") if t.has("zeros") else []
-    return ({"zeros": _roots_text(zeros), "poles": _roots_text(read_roots(t, "poles")),
+    model = _form_stage(t, "zpk", label)
+    body = t.table("zpk") if t.has("zpk") else t
+    zeros = read_roots(body, "zeros") if body.has("zeros") else []
+    return ({"zeros": _roots_text(zeros), "poles": _roots_text(read_roots(body, "poles")),
              "gain": model.gain}, model)
 
 
@@ -196,14 +212,14 @@ STAGE_TYPES: Mapping[str, StageType] = MappingProxyType({
                        "(s²+2ζ_z ω s+ω²)/(s²+2ζ ω s+ω²)"),
     "lowpass": StageType(("freq", "order", "zeta"), ("freq",), _lowpass,
                          "ω/(s+ω) or ω²/(s²+2ζ ω s+ω²)"),
-    "tf": StageType(("num", "den"), ("num", "den"), _tf_stage, "num(s)/den(s)"),
-    "zpk": StageType(("zeros", "poles", "gain"), ("poles", "gain"), _zpk_stage,
+    "tf": StageType(("num", "den", "tf"), (), _tf_stage, "num(s)/den(s)"),
+    "zpk": StageType(("zeros", "poles", "gain", "zpk"), (), _zpk_stage,
                      "gain·Π(s−z)/Π(s−p)"),
 })
 
 _FORM_KEY_HINT = {
-    "tf": "in a stage of type 'tf' write num = [...] and den = [...] directly in the table",
-    "zpk": "in a stage of type 'zpk' write zeros, poles and gain directly in the table",
+    "tf": "a transfer function stage is type = 'tf' with num and den",
+    "zpk": "a zero-pole-gain stage is type = 'zpk' with zeros, poles and gain",
     "ss": "controller stages take tf or zpk forms only; convert the state space to zpk",
 }
 
