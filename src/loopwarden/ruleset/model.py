@@ -40,6 +40,17 @@ class Rule:
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
+class RuleSetFile:
+    """One rule-set file as read (the set itself or a set it extends)."""
+
+    id: str
+    version: str
+    path: str
+    sha256: str                            # of the file bytes
+    text: str
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
 class RuleSet:
     id: str
     version: str
@@ -49,6 +60,7 @@ class RuleSet:
     text: str                              # the file exactly as read (for embedding)
     rules: tuple[Rule, ...]
     extends: tuple[str, ...] = ()          # ids of the sets it extends, nearest first
+    files: tuple[RuleSetFile, ...] = ()    # every file read: this one first, then parents
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

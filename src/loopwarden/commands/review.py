@@ -1,0 +1,131 @@
+"""``loopwarden review``: review one design against a rule set and write the outputs.
+
+Everything is computed and rendered in memory first; only then are the files written, each
+atomically.  Bad input (design, rule set, arguments, output folders) leaves nothing
+written.  Exit status: 0 nothing fails, 1 a finding fails (or errors), 2 bad input,
+3 internal error.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+HELP = "review one design against a rule set"
+
+EPILOG = """\
+outputs: --json (evidence, schema loopwarden-review/1), --junit (CI), --markdown (summary),
+--out (PDF review, optionally signed with --sign). A compact findings table goes to
+stdout unless --quiet.
+
+date: --date, else SOURCE_DATE_EPOCH, else today (UTC); waiver expiry is judged on it.
+
+exit status: 0 nothing fails (waived counts as not failing), 1 a finding fails or could
+not be computed, 2 bad input (nothing written), 3 internal error.
+"""
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.formatter_class = argparse.RawDescriptionHelpFormatter
+    parser.epilog = EPILOG
+    parser.add_argument("design", metavar="DESIGN", help="design file (TOML)")
+    parser.add_argument("--rules", metavar="SET", default=None,
+                        help="shipped rule set name (general, motion-servo, "
+                             "process-control) or a rule-set file; default general")
+    parser.add_argument("--baseline", metavar="OLD", default=None,
+                        help="previous design file to compare against (regression rules)")
+    parser.add_argument("--out", metavar="PDF", help="write the PDF review here")
+    parser.add_argument("--json", metavar="FILE", help="write the JSON evidence here")
+    parser.add_argument("--junit", metavar="FILE", help="write JUnit XML here")
+    parser.add_argument("--markdown", metavar="FILE", help="write a Markdown summary here")
+    parser.add_argument("--sign", metavar="KEY.p12", help="sign the PDF with this PKCS#12 key")
+    parser.add_argument("--passphrase-file", metavar="FILE",
+                        help="file holding the key's passphrase (first line)")
+    parser.add_argument("--date", metavar="YYYY-MM-DD",
+                        help="review date (default SOURCE_DATE_EPOCH or today, UTC)")
+    parser.add_argument("--quiet", "-q", action="store_true",
+                        help="print nothing; only the exit status tells")
+
+
+def _embedded(review: object, evidence: bytes) -> dict[str, bytes]:
+    """Files embedded in the PDF: the evidence JSON and every input file as read."""
+    from ..report.review import Review
+
+    assert isinstance(review, Review)
+    files = {"review.json": evidence,
+             f"design/{Path(review.design.path).name}": review.design.text.encode("utf-8")}
+    for f in review.ruleset.files:
+        files[f"rules/{Path(f.path).name}"] = f.text.encode("utf-8")
+    if review.baseline is not None:
+        b = review.baseline.design
+        files[f"baseline/{Path(b.path).name}"] = b.text.encode("utf-8")
+    return files
+
+
+def run(args: argparse.Namespace) -> int:
+    from ..design.loader import load_design
+    from ..errors import UsageError
+    from ..report import renderer
+    from ..report.atomic import check_outputs, write_outputs
+    from ..review_run import review_date, run_review
+    from ..ruleset.loader import load_ruleset
+
+    date = review_date(args.date)
+    if args.sign and not args.out:
+        raise UsageError("--sign needs --out (the PDF to sign)")
+    if args.passphrase_file and not args.sign:
+        raise UsageError("--passphrase-file is only used with --sign")
+    outputs = [(opt, Path(p)) for opt, p in (("--out", args.out), ("--json", args.json),
+                                             ("--junit", args.junit),
+                                             ("--markdown", args.markdown)) if p]
+    inputs = [Path(p) for p in (args.design, args.baseline, args.sign, args.passphrase_file)
+              if p]
+    check_outputs(outputs, inputs=inputs)       # fail fast, before any analysis
+
+    design = load_design(args.design)
+    ruleset = load_ruleset(args.rules)
+    inputs += [Path(f.path) for f in ruleset.files]
+    check_outputs(outputs, inputs=inputs)
+    passphrase = None
+    if args.sign:
+        from ..signing.keys import read_passphrase
+
+        passphrase = read_passphrase(args)
+
+    review = run_review(design, ruleset, baseline=args.baseline, today=date)
+    evidence = renderer("json").render(review)
+    files: dict[Path, bytes] = {}
+    if args.json:
+        files[Path(args.json)] = evidence
+    if args.junit:
+        files[Path(args.junit)] = renderer("junit").render(review)
+    if args.markdown:
+        files[Path(args.markdown)] = renderer("markdown").render(review)
+    if args.out:
+        files[Path(args.out)] = _pdf(review, evidence, args, passphrase)
+    write_outputs(files, inputs=inputs)
+
+    if not args.quiet:
+        sys.stdout.write(renderer("terminal").render(review).decode("utf-8"))
+        for path in files:
+            print(f"wrote {path}")
+    return 0 if review.verdict == "pass" else 1
+
+
+def _pdf(review: object, evidence: bytes, args: argparse.Namespace,
+         passphrase: bytes | None) -> bytes:
+    from ..errors import UsageError
+
+    try:
+        from ..report.pdf import render_pdf
+    except ModuleNotFoundError as exc:
+        if exc.name != "loopwarden.report.pdf":
+            raise
+        raise UsageError("PDF output is not available in this build") from exc
+    pdf: bytes = render_pdf(review, embedded=_embedded(review, evidence))
+    if args.sign:
+        from ..signing.sign import sign_pdf
+
+        pdf = sign_pdf(pdf, args.sign, passphrase)
+    return pdf

@@ -1,0 +1,160 @@
+"""JSON evidence (``schema = "loopwarden-review/1"``; keys as DESIGN.md §5, and more).
+
+Conventions: frequencies in rad/s whatever the design's unit; infinities as the strings
+``"inf"``/``"-inf"``; not-applicable as ``null``; complex numbers as ``{"re": …, "im": …}``;
+keys sorted and no clock read here, so the same review gives byte-identical output.
+Plot data (``LoopAnalysis.curves``) is not part of the JSON.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime as dt
+import enum
+import json
+import math
+from collections.abc import Mapping
+from pathlib import PurePath
+from typing import Any
+
+import numpy as np
+
+from ..analysis.results import IntegralAlternative, LoopAnalysis
+from ..design.model import Design
+from ..ruleset.model import Finding, RuleSet, Status
+from . import CAUTIONS
+from .review import Review
+
+__all__ = ["SCHEMA", "SUFFIX", "plain", "render", "to_dict"]
+
+SCHEMA = "loopwarden-review/1"
+SUFFIX = ".json"
+_SKIP_FIELDS = {"curves"}
+
+
+def plain(x: Any) -> Any:
+    """Convert result objects to JSON-ready values (see the module conventions)."""
+    if x is None or isinstance(x, bool | str):
+        return x
+    if isinstance(x, np.generic):
+        return plain(x.item())
+    if isinstance(x, int):
+        return x
+    if isinstance(x, float):
+        if math.isnan(x):
+            raise ValueError("NaN reached the JSON renderer")
+        if math.isinf(x):
+            return "inf" if x > 0 else "-inf"
+        return x
+    if isinstance(x, complex):
+        return {"re": plain(x.real), "im": plain(x.imag)}
+    if isinstance(x, enum.Enum):
+        return plain(x.value)
+    if isinstance(x, dt.date):
+        return x.isoformat()
+    if dataclasses.is_dataclass(x) and not isinstance(x, type):
+        return {f.name: plain(getattr(x, f.name)) for f in dataclasses.fields(x)
+                if f.name not in _SKIP_FIELDS and not isinstance(getattr(x, f.name), np.ndarray)}
+    if isinstance(x, Mapping):
+        return {str(k): plain(v) for k, v in x.items()}
+    if isinstance(x, list | tuple):
+        return [plain(v) for v in x]
+    raise TypeError(f"cannot put {type(x).__name__} into the JSON evidence")
+
+
+def _alternative(alt: IntegralAlternative) -> dict[str, Any]:
+    out = plain(alt)
+    # The flat keys of DESIGN.md §5 beside the full sub-objects.
+    out.update(phase_margin_deg=plain(alt.margins.phase_margin_deg),
+               gain_margin_db=plain(alt.margins.gain_margin_db),
+               system_type=alt.tracking.system_type,
+               settling_time_s=plain(alt.step.settling_time_s))
+    return out
+
+
+def _variant(a: LoopAnalysis, design: Design) -> dict[str, Any]:
+    model = next((v for v in design.variants if v.name == a.variant), None)
+    alternatives = [_alternative(alt) for alt in a.integral_alternatives]
+    return {
+        "name": a.variant,
+        "plant_delay_s": plain(model.delay_s) if model else None,
+        "closed_loop_stable": a.stability.closed_loop_stable,
+        "stability": plain(a.stability),
+        "internal_stability": plain(a.internal),
+        "margins": {**plain(a.margins), **plain(a.sensitivity)},
+        "tracking": plain(a.tracking),
+        "step": plain(a.step),
+        "slow_tail": plain(a.slow_tail),
+        "slow_pairs": None if a.slow_tail is None else plain(a.slow_tail.pairs),
+        "boost": plain(a.boosts),
+        "integral_alternative": alternatives[0] if alternatives else None,
+        "integral_alternatives": alternatives,
+        "errors": dict(sorted(a.errors.items())),
+    }
+
+
+def _design(d: Design) -> dict[str, Any]:
+    return {
+        "name": d.name, "revision": d.revision, "description": d.description,
+        "file": PurePath(d.path).name, "sha256": d.sha256,
+        "frequency_unit": d.frequency_unit,
+        "variants": [v.name for v in d.variants],
+        "controller": [{"index": s.index, "type": s.type, "params": plain(s.params)}
+                       for s in d.controller],
+        "requirements": plain(d.requirements.values),
+        "limits": plain(d.rule_limits),
+        "waivers": plain(d.waivers),
+    }
+
+
+def _ruleset(rs: RuleSet) -> dict[str, Any]:
+    return {
+        "id": rs.id, "version": rs.version, "title": rs.title, "sha256": rs.sha256,
+        "file": PurePath(rs.path).name, "extends": list(rs.extends),
+        "files": [{"id": f.id, "version": f.version, "file": PurePath(f.path).name,
+                   "sha256": f.sha256} for f in rs.files],
+        "rules": [{"id": r.id, "check": r.check, "severity": r.severity,
+                   "limits": plain(r.limits), "options": plain(r.options),
+                   "origin": r.origin, "rationale": r.rationale, "source": r.source}
+                  for r in rs.rules],
+    }
+
+
+def _finding(f: Finding) -> dict[str, Any]:
+    return {
+        "rule": f.rule, "check": f.check, "status": f.status.value, "variant": f.variant,
+        "measured": plain(f.measured), "limit": plain(f.limit), "unit": f.unit,
+        "message": f.message, "limit_source": f.limit_source or None,
+        "rationale": f.rationale, "source": f.source, "waiver": f.waiver,
+        "details": plain(f.details),
+    }
+
+
+def to_dict(review: Review) -> dict[str, Any]:
+    """The evidence as plain JSON values."""
+    out: dict[str, Any] = {
+        "schema": SCHEMA,
+        "verdict": review.verdict,
+        "date": review.run.date,
+        "signer": review.run.signer,
+        "tool": {"name": "loopwarden", "version": review.run.tool_version},
+        "design": _design(review.design),
+        "ruleset": _ruleset(review.ruleset),
+        "variants": [_variant(a, review.design) for a in review.analyses],
+        "findings": [_finding(f) for f in review.findings],
+        "counts": {s.value: review.count(s) for s in Status},
+        "cautions": CAUTIONS,
+        "baseline": None,
+    }
+    if review.baseline is not None:
+        out["baseline"] = {"design": _design(review.baseline.design),
+                           "variants": [_variant(a, review.baseline.design)
+                                        for a in review.baseline.analyses]}
+    return out
+
+
+def render(review: Review) -> bytes:
+    """UTF-8 JSON, keys sorted, two-space indent, trailing newline."""
+    text = json.dumps(to_dict(review), sort_keys=True, indent=2, ensure_ascii=False,
+                      allow_nan=False)
+    return (text + "\n").encode("utf-8")

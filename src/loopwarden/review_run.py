@@ -1,0 +1,87 @@
+"""One review: analyse a design, evaluate a rule set, build the immutable Review.
+
+This is what ``loopwarden.review(...)`` and ``loopwarden review`` call.  The date and the
+tool version are injected so that the same inputs give the same outputs.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import os
+from pathlib import Path
+
+from .analysis import analyze
+from .design.model import Design
+from .errors import UsageError
+from .report.review import Baseline, Review, RunInfo
+from .ruleset.evaluate import analysis_settings, evaluate, resolve_limits
+from .ruleset.loader import load_ruleset
+from .ruleset.model import RuleSet
+
+__all__ = ["review_date", "run_review"]
+
+
+def review_date(text: str | None = None) -> dt.date:
+    """The review date: ``text`` (YYYY-MM-DD), else ``SOURCE_DATE_EPOCH``, else today (UTC)."""
+    if text is not None:
+        try:
+            return dt.date.fromisoformat(text)
+        except ValueError as exc:
+            raise UsageError(f"--date {text!r} is not a date", hint="write YYYY-MM-DD") from exc
+    epoch = os.environ.get("SOURCE_DATE_EPOCH")
+    if epoch:
+        try:
+            return dt.datetime.fromtimestamp(int(epoch), tz=dt.UTC).date()
+        except (ValueError, OverflowError, OSError) as exc:
+            raise UsageError(f"SOURCE_DATE_EPOCH={epoch!r} is not a Unix time in seconds"
+                             ) from exc
+    return dt.datetime.now(tz=dt.UTC).date()
+
+
+def run_review(design: Design, ruleset: str | os.PathLike[str] | RuleSet | None = None, *,
+               baseline: Design | str | os.PathLike[str] | None = None,
+               today: dt.date | str | None = None,
+               tool_version: str | None = None) -> Review:
+    """Analyse ``design`` and evaluate ``ruleset`` (a name, a path or a RuleSet).
+
+    Parameters
+    ----------
+    design : Design
+        The candidate design.
+    ruleset : str, path or RuleSet, optional
+        Shipped set name or rule-set file; default ``general``.
+    baseline : Design or path, optional
+        A previous design to compare against (``regression`` rules).
+    today : date or ISO string, optional
+        The review date (waiver expiry is judged against it); default as
+        :func:`review_date`.
+    tool_version : str, optional
+        Recorded in the outputs; default the installed loopwarden version.
+
+    Raises
+    ------
+    RuleSetError, DesignError
+        Bad rule set, or design limits that loosen a rule / name an unknown rule.
+    """
+    from . import __version__
+
+    rs = ruleset if isinstance(ruleset, RuleSet) else load_ruleset(ruleset)
+    date = today if isinstance(today, dt.date) else review_date(today)
+    limits = resolve_limits(design, rs)         # before the analysis: bad limits fail fast
+    min_pm, band = analysis_settings(design, rs, limits)
+    analyses = analyze(design, min_phase_margin_deg=min_pm, settling_band=band)
+
+    base = None
+    if baseline is not None:
+        if not isinstance(baseline, Design):
+            from .design.loader import load_design
+
+            baseline = load_design(Path(baseline))
+        base = Baseline(design=baseline, analyses=analyze(
+            baseline, min_phase_margin_deg=min_pm, settling_band=band))
+
+    findings = evaluate(design, rs, analyses, today=date, limits=limits,
+                        baseline=base.analyses if base is not None else None)
+    return Review(design=design, ruleset=rs, analyses=analyses, findings=findings,
+                  run=RunInfo(tool_version=tool_version or __version__, date=date.isoformat()),
+                  baseline=base)

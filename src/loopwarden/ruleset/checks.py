@@ -1,0 +1,590 @@
+"""The check catalog: what each check measures on one analysed loop.
+
+A check is a small function ``(analysis, rule, design, *, baseline) -> Measurement``
+registered in :data:`CHECKS` under its name (the names are part of the JSON contract).
+It only *measures*; comparing against limits, severities and waivers is
+:mod:`loopwarden.ruleset.evaluate`'s job.  A check that does not apply raises
+:class:`NotApplicable` with the reason; one that cannot be computed raises
+:class:`loopwarden.errors.AnalysisError` — neither is ever turned into a silent pass.
+
+``rule.limits`` seen by a check are the *effective* limits (rule set, tightened by the
+design); a few checks use them to pick the worst of several candidates.
+
+Limit keys: ``min``/``warn_min`` are lower bounds, ``max``/``warn_max`` upper bounds; a
+suffix names a second quantity of the same check (``max_lower``: the gain-reduction margin,
+``max_ratio``: the slow-tail settling ratio).  ``Measurement.compare`` maps each limit key
+to the number compared with it, so a check may compare different quantities against
+different keys (boost_band: the 3 dB band against ``min``, the 2× band against
+``warn_min``).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from types import MappingProxyType
+
+from ..analysis.regression import FigureChange
+from ..analysis.regression import compare as compare_figures
+from ..analysis.results import Boost, LoopAnalysis, StepMetrics
+from ..design.model import Design
+from ..errors import AnalysisError
+from .model import Rule
+
+Details = Mapping[str, float | str | None]
+
+
+class NotApplicable(Exception):  # noqa: N818 - a verdict, not a failure
+    """The check does not apply to this loop; the finding is ``n/a`` with this reason."""
+
+    def __init__(self, reason: str) -> None:
+        super().__init__(reason)
+        self.reason = reason
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Measurement:
+    """What a check measured on one variant.
+
+    ``value`` is shown as "measured" (in ``unit``, or the check's unit); ``compare`` maps
+    limit keys to the quantity compared with them; ``ok`` is set instead by predicate
+    checks (stability), which have no numeric limits.
+    """
+
+    value: float | str
+    text: str                                       # "phase margin 41.6° at 0.454 rad/s"
+    compare: Mapping[str, float] = field(default_factory=lambda: MappingProxyType({}))
+    ok: bool | None = None
+    unit: str | None = None
+    details: Details = field(default_factory=lambda: MappingProxyType({}))
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Option:
+    """A check-specific rule key (``band = 0.02``, ``which = "kv"``)."""
+
+    kind: type                                      # float, str or bool
+    help: str
+    choices: tuple[str, ...] = ()
+    low: float | None = None                        # open bounds for floats
+    high: float | None = None
+    required: bool = False
+
+
+CheckFunction = Callable[..., Measurement]
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Check:
+    name: str
+    unit: str
+    summary: str
+    limit_keys: tuple[str, ...]
+    function: CheckFunction
+    options: Mapping[str, Option] = field(default_factory=lambda: MappingProxyType({}))
+    waivable: bool = True
+    predicate: bool = False                         # pass/fail without numeric limits
+    needs_stable: bool = False                      # only meaningful for a stable loop
+
+    def __call__(self, analysis: LoopAnalysis, rule: Rule, design: Design, *,
+                 baseline: LoopAnalysis | None = None) -> Measurement:
+        return self.function(analysis, rule, design, baseline=baseline)
+
+    def unit_for(self, options: Mapping[str, float | str | bool]) -> str:
+        """The unit of the measured value under a rule's options."""
+        if self.name == "error_constant":
+            return ERROR_CONSTANT_UNITS[str(options.get("which", "kv"))]
+        if self.name == "delay_margin" and options.get("relative"):
+            return "x"
+        return self.unit
+
+    def limit_unit(self, key: str, options: Mapping[str, float | str | bool]) -> str:
+        """The unit of one limit key (``*_ratio`` keys compare a dimensionless factor)."""
+        return "x" if key.endswith("_ratio") else self.unit_for(options)
+
+
+#: check name → Check. Explicit and greppable; filled by the @_check decorator below.
+CHECKS: dict[str, Check] = {}
+
+LOWER = ("min", "warn_min")
+UPPER = ("max", "warn_max")
+BAND = Option(kind=float, low=0.0, high=0.5,
+              help="settling band as a fraction of the final value (default 0.02)")
+
+
+def _check(name: str, *, unit: str, summary: str, limits: tuple[str, ...] = (),
+           options: Mapping[str, Option] | None = None, waivable: bool = True,
+           predicate: bool = False, needs_stable: bool = False
+           ) -> Callable[[CheckFunction], CheckFunction]:
+    def register(fn: CheckFunction) -> CheckFunction:
+        CHECKS[name] = Check(name=name, unit=unit, summary=summary, limit_keys=limits,
+                             function=fn, options=MappingProxyType(dict(options or {})),
+                             waivable=waivable, predicate=predicate,
+                             needs_stable=needs_stable)
+        return fn
+    return register
+
+
+def is_lower_bound(key: str) -> bool:
+    """True for ``min``-type limit keys (the measured value must not be below them)."""
+    return key.removeprefix("warn_").startswith("min")
+
+
+def is_warn_key(key: str) -> bool:
+    return key.startswith("warn_")
+
+
+# --------------------------------------------------------------------------- formatting
+def fmt(value: float | str | None, unit: str = "") -> str:
+    """Format a measured value for messages and tables (4 significant digits)."""
+    if value is None:
+        return "n/a"
+    if isinstance(value, str):
+        return value
+    if isinstance(value, bool):
+        return str(value).lower()
+    if math.isinf(value):
+        text = "inf" if value > 0 else "-inf"
+    elif isinstance(value, int) or float(value).is_integer() and abs(value) < 1e6:
+        text = str(int(value))
+    else:
+        text = f"{value:.4g}"
+    if unit in ("", "x", "%"):
+        return text + unit
+    return f"{text}°" if unit == "deg" else f"{text} {unit}"
+
+
+def _deg(x: float) -> str:
+    return fmt(x, "deg")
+
+
+def _freq(x: float | None) -> str:
+    return fmt(x, "rad/s")
+
+
+def _db(x: float) -> float:
+    return 20.0 * math.log10(x) if x > 0 else -math.inf
+
+
+# --------------------------------------------------------------------------- stability
+@_check("closed_loop_stability", unit="", predicate=True, waivable=False,
+        summary="every closed-loop pole in the open left half-plane (Nyquist count for "
+                "delay loops)")
+def closed_loop_stability(a: LoopAnalysis, rule: Rule, design: Design, *,
+                          baseline: LoopAnalysis | None = None) -> Measurement:
+    st = a.stability
+    how = ("closed-loop poles" if st.method == "poles"
+           else f"Nyquist count, {st.open_loop_rhp_poles} open-loop RHP poles")
+    if st.closed_loop_stable:
+        value, text = "stable", f"closed loop stable ({how})"
+    elif st.marginal:
+        value, text = "marginal", f"closed-loop pole on the stability boundary ({how})"
+    else:
+        value = "unstable"
+        text = f"closed loop unstable: {st.rhp_closed_loop_poles} right-half-plane pole(s) ({how})"
+    if st.note:
+        text += f"; {st.note}"
+    return Measurement(value=value, text=text, ok=st.closed_loop_stable, details={
+        "method": st.method, "rhp_closed_loop_poles": float(st.rhp_closed_loop_poles),
+        "open_loop_rhp_poles": float(st.open_loop_rhp_poles)})
+
+
+@_check("internal_stability", unit="", predicate=True, waivable=False,
+        summary="no unstable or imaginary-axis pole of one block cancelled by a zero of "
+                "another")
+def internal_stability(a: LoopAnalysis, rule: Rule, design: Design, *,
+                       baseline: LoopAnalysis | None = None) -> Measurement:
+    it = a.internal
+    if it.internally_stable:
+        text = "no unstable pole-zero cancellation between blocks"
+    else:
+        parts = [f"pole {_root(c.pole)} of {c.pole_block} cancelled by zero {_root(c.zero)} "
+                 f"of {c.zero_block}" for c in it.cancellations]
+        text = "internally unstable: " + ("; ".join(parts) or it.note)
+    return Measurement(value="stable" if it.internally_stable else "unstable", text=text,
+                       ok=it.internally_stable,
+                       details={"cancellations": float(len(it.cancellations))})
+
+
+def _root(z: complex) -> str:
+    if abs(z.imag) < 1e-12:
+        return fmt(z.real)
+    return f"{z.real:.4g}{'+' if z.imag >= 0 else '-'}{abs(z.imag):.4g}j"
+
+
+# --------------------------------------------------------------------------- margins
+@_check("gain_margin", needs_stable=True, unit="dB", limits=(*LOWER, "max_lower", "warn_max_lower"),
+        summary="smallest gain increase to instability; gain-reduction margin of a "
+                "conditionally stable loop (max_lower)")
+def gain_margin(a: LoopAnalysis, rule: Rule, design: Design, *,
+                baseline: LoopAnalysis | None = None) -> Measurement:
+    m = a.margins
+    gm = m.gain_margin_db
+    text = (f"gain margin {fmt(gm, 'dB')} at {_freq(m.phase_crossover_rad_s)}"
+            if math.isfinite(gm) else "gain margin infinite (no phase crossover above 0 dB)")
+    compare = {"min": gm, "warn_min": gm}
+    if m.gain_margin_lower_db is not None:
+        compare |= {"max_lower": m.gain_margin_lower_db,
+                    "warn_max_lower": m.gain_margin_lower_db}
+        text += f"; gain-reduction margin {fmt(m.gain_margin_lower_db, 'dB')}"
+    return Measurement(value=gm, text=text, compare=compare, details={
+        "gain_margin_lower_db": m.gain_margin_lower_db,
+        "phase_crossover_rad_s": m.phase_crossover_rad_s,
+        "phase_crossings": float(len(m.phase_crossings))})
+
+
+@_check("phase_margin", needs_stable=True, unit="deg", limits=LOWER,
+        summary="smallest phase margin over all gain crossovers")
+def phase_margin(a: LoopAnalysis, rule: Rule, design: Design, *,
+                 baseline: LoopAnalysis | None = None) -> Measurement:
+    m = a.margins
+    n = len(m.gain_crossings)
+    if n == 0:
+        text = "no gain crossover: phase margin infinite"
+    else:
+        text = f"phase margin {_deg(m.phase_margin_deg)} at {_freq(m.gain_crossover_rad_s)}"
+        if n > 1:
+            text += f" (smallest of {n} gain crossovers)"
+    return Measurement(value=m.phase_margin_deg, text=text,
+                       compare={"min": m.phase_margin_deg, "warn_min": m.phase_margin_deg},
+                       details={"gain_crossover_rad_s": m.gain_crossover_rad_s,
+                                "gain_crossings": float(n)})
+
+
+def _loop_delay_s(a: LoopAnalysis, design: Design) -> float:
+    variant = next((v for v in design.variants if v.name == a.variant), None)
+    if variant is None:
+        raise AnalysisError(f"the design has no plant variant named {a.variant!r}")
+    return variant.delay_s + design.sensor_delay_s
+
+
+@_check("delay_margin", needs_stable=True, unit="s", limits=LOWER,
+        options={"relative": Option(kind=bool, help="compare delay margin / loop delay "
+                                                     "(the factor by which the dead time may "
+                                                     "grow) instead of seconds")},
+        summary="smallest extra transport delay to instability over all crossovers")
+def delay_margin(a: LoopAnalysis, rule: Rule, design: Design, *,
+                 baseline: LoopAnalysis | None = None) -> Measurement:
+    dm = a.margins.delay_margin_s
+    details: dict[str, float | str | None] = {"delay_margin_s": dm}
+    text = f"delay margin {fmt(dm, 's')}"
+    value = dm
+    if rule.options.get("relative"):
+        delay = _loop_delay_s(a, design)
+        if delay <= 0.0:
+            raise NotApplicable("the loop has no transport delay to compare the delay "
+                                "margin with")
+        value = dm / delay
+        details["loop_delay_s"] = delay
+        text += f" = {fmt(value, 'x')} the loop's dead time of {fmt(delay, 's')}"
+    return Measurement(value=value, text=text, compare={"min": value, "warn_min": value},
+                       details=details)
+
+
+@_check("peak_sensitivity", needs_stable=True, unit="", limits=UPPER,
+        summary="Ms = max |S(jω)|, the inverse of the smallest distance from L to −1")
+def peak_sensitivity(a: LoopAnalysis, rule: Rule, design: Design, *,
+                     baseline: LoopAnalysis | None = None) -> Measurement:
+    s = a.sensitivity
+    ms = s.peak_sensitivity
+    text = f"Ms {fmt(ms)} ({fmt(_db(ms), 'dB')}) at {_freq(s.peak_sensitivity_rad_s)}"
+    details: dict[str, float | str | None] = {"frequency_rad_s": s.peak_sensitivity_rad_s}
+    if ms > 1.0 and math.isfinite(ms):
+        # Modulus-margin bounds (Åström & Murray): what Ms alone guarantees.
+        details["guaranteed_gain_margin"] = ms / (ms - 1.0)
+        details["guaranteed_phase_margin_deg"] = math.degrees(2.0 * math.asin(0.5 / ms))
+    return Measurement(value=ms, text=text, compare={"max": ms, "warn_max": ms},
+                       details=details)
+
+
+@_check("peak_complementary", needs_stable=True, unit="", limits=UPPER,
+        summary="Mt = max |T(jω)|, the resonance peak of the closed loop")
+def peak_complementary(a: LoopAnalysis, rule: Rule, design: Design, *,
+                       baseline: LoopAnalysis | None = None) -> Measurement:
+    s = a.sensitivity
+    mt = s.peak_complementary
+    text = f"Mt {fmt(mt)} ({fmt(_db(mt), 'dB')}) at {_freq(s.peak_complementary_rad_s)}"
+    return Measurement(value=mt, text=text, compare={"max": mt, "warn_max": mt},
+                       details={"frequency_rad_s": s.peak_complementary_rad_s})
+
+
+@_check("disk_margin", needs_stable=True, unit="", limits=LOWER,
+        summary="balanced disk margin α and the simultaneous gain/phase variation it "
+                "guarantees")
+def disk_margin(a: LoopAnalysis, rule: Rule, design: Design, *,
+                baseline: LoopAnalysis | None = None) -> Measurement:
+    s = a.sensitivity
+    text = (f"disk margin α {fmt(s.disk_margin)}: gain ×{fmt(s.disk_gain_low)} to "
+            f"×{fmt(s.disk_gain_high)} or phase ±{_deg(s.disk_phase_deg)}")
+    return Measurement(value=s.disk_margin, text=text,
+                       compare={"min": s.disk_margin, "warn_min": s.disk_margin},
+                       details={"disk_gain_low": s.disk_gain_low,
+                                "disk_gain_high": s.disk_gain_high,
+                                "disk_phase_deg": s.disk_phase_deg})
+
+
+# --------------------------------------------------------------------------- tracking
+@_check("system_type", unit="", limits=(*LOWER, *UPPER),
+        summary="number of poles of the loop at s = 0")
+def system_type(a: LoopAnalysis, rule: Rule, design: Design, *,
+                baseline: LoopAnalysis | None = None) -> Measurement:
+    t = float(a.tracking.system_type)
+    return Measurement(value=t, text=f"system type {int(t)}",
+                       compare={k: t for k in (*LOWER, *UPPER)})
+
+
+ERROR_CONSTANT_UNITS = {"kp": "", "kv": "1/s", "ka": "1/s^2", "step_error": "",
+                        "ramp_error": "s", "parabola_error": "s^2"}
+_ERROR_LABEL = {"kp": "Kp", "kv": "Kv", "ka": "Ka", "step_error": "steady-state step error",
+                "ramp_error": "steady-state ramp error per unit slope",
+                "parabola_error": "steady-state parabola error per unit acceleration"}
+
+
+@_check("error_constant", unit="", limits=(*LOWER, *UPPER),
+        options={"which": Option(kind=str, required=True, choices=tuple(ERROR_CONSTANT_UNITS),
+                                 help="which constant or steady-state error to compare")},
+        summary="Kp, Kv or Ka, or the steady-state step/ramp/parabola error (option which)")
+def error_constant(a: LoopAnalysis, rule: Rule, design: Design, *,
+                   baseline: LoopAnalysis | None = None) -> Measurement:
+    which = str(rule.options["which"])
+    value = float(getattr(a.tracking, which))
+    unit = ERROR_CONSTANT_UNITS[which]
+    text = f"{_ERROR_LABEL[which]} {fmt(value, unit)} (type {a.tracking.system_type})"
+    return Measurement(value=value, text=text, unit=unit,
+                       compare={k: value for k in (*LOWER, *UPPER)})
+
+
+@_check("crossover_band", unit="rad/s", limits=(*LOWER, *UPPER),
+        summary="gain crossover frequency within limits (lowest crossing against min, "
+                "highest against max)")
+def crossover_band(a: LoopAnalysis, rule: Rule, design: Design, *,
+                   baseline: LoopAnalysis | None = None) -> Measurement:
+    ws = sorted(c.frequency_rad_s for c in a.margins.gain_crossings)
+    if not ws:
+        low_gain = a.curves is None or a.curves.open_loop.size == 0 \
+            or abs(a.curves.open_loop[0]) < 1.0
+        w = 0.0 if low_gain else math.inf
+        return Measurement(value=w, text="no gain crossover (|L| " +
+                           ("< 1" if low_gain else "> 1") + " at all frequencies)",
+                           compare={k: w for k in (*LOWER, *UPPER)})
+    lo, hi = ws[0], ws[-1]
+    text = (f"gain crossover at {_freq(lo)}" if len(ws) == 1
+            else f"{len(ws)} gain crossovers from {_freq(lo)} to {_freq(hi)}")
+    return Measurement(value=hi if "max" in rule.limits or "warn_max" in rule.limits else lo,
+                       text=text,
+                       compare={"min": lo, "warn_min": lo, "max": hi, "warn_max": hi},
+                       details={"lowest_rad_s": lo, "highest_rad_s": hi})
+
+
+# --------------------------------------------------------------------------- time response
+def _step(a: LoopAnalysis) -> StepMetrics:
+    if a.step is not None:
+        return a.step
+    if not a.stability.closed_loop_stable:
+        raise NotApplicable("the closed loop is unstable (see closed_loop_stability): no "
+                            "settled step response")
+    raise AnalysisError(a.errors.get("step", "the step response was not computed"))
+
+
+def _band_note(step: StepMetrics) -> str:
+    return f"±{fmt(step.settling_band * 100.0)} % band"
+
+
+@_check("step_overshoot", unit="%", limits=UPPER,
+        summary="overshoot of the closed-loop reference step, % of the final value")
+def step_overshoot(a: LoopAnalysis, rule: Rule, design: Design, *,
+                   baseline: LoopAnalysis | None = None) -> Measurement:
+    st = _step(a)
+    text = f"step overshoot {fmt(st.overshoot_pct, '%')}"
+    if st.peak_time_s is not None and st.overshoot_pct > 0:
+        text += f" at {fmt(st.peak_time_s, 's')}"
+    return Measurement(value=st.overshoot_pct, text=text,
+                       compare={"max": st.overshoot_pct, "warn_max": st.overshoot_pct})
+
+
+@_check("step_settling", unit="s", limits=UPPER, options={"band": BAND},
+        summary="settling time of the closed-loop reference step (last exit from the band)")
+def step_settling(a: LoopAnalysis, rule: Rule, design: Design, *,
+                  baseline: LoopAnalysis | None = None) -> Measurement:
+    st = _step(a)
+    t = st.settling_time_s
+    text = (f"step settles into the {_band_note(st)} after {fmt(t, 's')}" if math.isfinite(t)
+            else f"step does not settle into the {_band_note(st)} within "
+                 f"{fmt(st.horizon_s, 's')}")
+    return Measurement(value=t, text=text, compare={"max": t, "warn_max": t},
+                       details={"settling_band": st.settling_band, "horizon_s": st.horizon_s})
+
+
+@_check("step_rise", unit="s", limits=UPPER,
+        summary="10-90 % rise time of the closed-loop reference step")
+def step_rise(a: LoopAnalysis, rule: Rule, design: Design, *,
+              baseline: LoopAnalysis | None = None) -> Measurement:
+    st = _step(a)
+    t = math.inf if st.rise_time_s is None else st.rise_time_s
+    text = (f"10-90 % rise time {fmt(t, 's')}" if math.isfinite(t)
+            else "the step never reaches 90 % of its final value")
+    return Measurement(value=t, text=text, compare={"max": t, "warn_max": t})
+
+
+@_check("slow_pair_tail", unit="s", limits=(*UPPER, "max_ratio", "warn_max_ratio"),
+        options={"band": BAND},
+        summary="time the tail of a slow closed-loop pole nearly cancelled by a zero needs "
+                "to enter the settling band (max_ratio: settling with / without the tail)")
+def slow_pair_tail(a: LoopAnalysis, rule: Rule, design: Design, *,
+                   baseline: LoopAnalysis | None = None) -> Measurement:
+    st = _step(a)
+    tail = a.slow_tail
+    if tail is None:
+        reason = a.errors.get("slow_tail", "the slow-pair analysis was not computed")
+        if _loop_delay_s(a, design) > 0.0:
+            raise NotApplicable(reason)
+        raise AnalysisError(reason)
+    ratio = 1.0
+    if tail.settling_time_without_tail_s > 0.0:
+        ratio = tail.settling_time_s / tail.settling_time_without_tail_s
+    details: dict[str, float | str | None] = {
+        "settling_time_s": tail.settling_time_s,
+        "settling_time_without_tail_s": tail.settling_time_without_tail_s,
+        "settling_ratio": ratio, "pairs": float(len(tail.pairs)), "criteria": tail.criteria}
+    if not tail.pairs:
+        return Measurement(value=0.0, text="no slow closed-loop pole-zero pair",
+                           compare={"max": 0.0, "warn_max": 0.0, "max_ratio": ratio,
+                                    "warn_max_ratio": ratio}, details=details)
+    worst = max(tail.pairs, key=lambda p: p.tail_time_s)
+    details |= {"pole_re": worst.pole.real, "zero_re": worst.zero.real,
+                "residue": worst.residue, "time_constant_s": worst.time_constant_s}
+    text = (f"slow pole {_root(worst.pole)} beside zero {_root(worst.zero)}: residue "
+            f"{fmt(worst.residue)}, its tail enters the {_band_note(st)} after "
+            f"{fmt(worst.tail_time_s, 's')} (settling {fmt(tail.settling_time_s, 's')}, "
+            f"{fmt(tail.settling_time_without_tail_s, 's')} without the tail)")
+    t = worst.tail_time_s
+    return Measurement(value=t, text=text, details=details,
+                       compare={"max": t, "warn_max": t, "max_ratio": ratio,
+                                "warn_max_ratio": ratio})
+
+
+# --------------------------------------------------------------------------- boost stages
+def _boosts(a: LoopAnalysis) -> tuple[Boost, ...]:
+    if not a.boosts:
+        raise NotApplicable("no low-frequency boost (lag) stage in the controller")
+    return a.boosts
+
+
+@_check("boost_band", unit="rad/s", limits=LOWER,
+        summary="band of reference frequencies where a boost stage cuts the tracking error "
+                "by >= 3 dB (min) and >= 2x (warn_min), against requirements.reference_band")
+def boost_band(a: LoopAnalysis, rule: Rule, design: Design, *,
+               baseline: LoopAnalysis | None = None) -> Measurement:
+    boosts = _boosts(a)
+
+    def band(x: float | None) -> float:
+        return 0.0 if x is None else x
+
+    worst = min(boosts, key=lambda b: (band(b.band_3db_rad_s), band(b.band_2x_rad_s)))
+    b2, b3 = band(worst.band_2x_rad_s), band(worst.band_3db_rad_s)
+    text = (f"{worst.stage_name} (boost {fmt(worst.dc_boost, 'x')}) cuts the tracking error "
+            f"by >= 2x below {_freq(b2)} and by >= 3 dB below {_freq(b3)}")
+    if worst.improvement_at_reference_band is not None:
+        text += (f"; {fmt(worst.improvement_at_reference_band, 'x')} at the reference band")
+    return Measurement(value=b2, text=text, compare={"min": b3, "warn_min": b2}, details={
+        "stage": float(worst.stage), "band_3db_rad_s": b3, "band_2x_rad_s": b2,
+        "improvement_at_reference_band": worst.improvement_at_reference_band})
+
+
+@_check("lag_phase_budget", unit="deg", limits=UPPER,
+        summary="phase a boost (lag) stage costs at the gain crossover, and where its zero "
+                "sits relative to crossover")
+def lag_phase_budget(a: LoopAnalysis, rule: Rule, design: Design, *,
+                     baseline: LoopAnalysis | None = None) -> Measurement:
+    candidates = [(b, c) for b in _boosts(a) for c in b.costs]
+    if not candidates:
+        raise NotApplicable("no gain crossover at which to price the lag's phase")
+    b, c = min(candidates, key=lambda bc: bc[1].phase_cost_deg)
+    cost = max(0.0, -c.phase_cost_deg)
+    text = (f"{b.stage_name} costs {_deg(cost)} of phase at the crossover "
+            f"{_freq(c.crossover_rad_s)}; its zero sits at {fmt(c.zero_ratio, 'x')} crossover")
+    return Measurement(value=cost, text=text, compare={"max": cost, "warn_max": cost},
+                       details={"stage": float(b.stage), "crossover_rad_s": c.crossover_rad_s,
+                                "zero_ratio": c.zero_ratio})
+
+
+@_check("integral_alternative", unit="x", limits=UPPER,
+        summary="the loop with the lag pole moved to the origin (integral action), re-tuned "
+                "to keep the phase margin; measured: how many times faster it settles")
+def integral_alternative(a: LoopAnalysis, rule: Rule, design: Design, *,
+                         baseline: LoopAnalysis | None = None) -> Measurement:
+    _boosts(a)
+    current = _step(a)
+    if not a.integral_alternatives:
+        raise AnalysisError(a.errors.get("integral_alternative",
+                                         "the integral-action alternative was not computed"))
+    stable = [alt for alt in a.integral_alternatives if alt.closed_loop_stable]
+    if not stable:
+        return Measurement(value=0.0, compare={"max": 0.0, "warn_max": 0.0},
+                           text="no stable integral-action alternative with a one-gain "
+                                "re-tune: keep the boost stage")
+
+    def speedup(t_alt: float) -> float:
+        t_now = current.settling_time_s
+        if math.isinf(t_alt):
+            return 1.0 if math.isinf(t_now) else 0.0
+        return math.inf if t_alt == 0.0 else t_now / t_alt
+
+    alt = max(stable, key=lambda x: speedup(x.step.settling_time_s))
+    ratio = speedup(alt.step.settling_time_s)
+    stage = next((s.name for s in design.controller if s.index == alt.stage),
+                 f"controller[{alt.stage}]")
+    text = (f"integral action instead of {stage} (gain x{fmt(alt.gain_factor)}): phase margin "
+            f"{_deg(alt.margins.phase_margin_deg)}, gain margin "
+            f"{fmt(alt.margins.gain_margin_db, 'dB')}, type {alt.tracking.system_type}, "
+            f"settling {fmt(alt.step.settling_time_s, 's')} against "
+            f"{fmt(current.settling_time_s, 's')} now")
+    return Measurement(value=ratio, text=text, compare={"max": ratio, "warn_max": ratio},
+                       details={"stage": float(alt.stage), "gain_factor": alt.gain_factor,
+                                "phase_margin_deg": alt.margins.phase_margin_deg,
+                                "gain_margin_db": alt.margins.gain_margin_db,
+                                "system_type": float(alt.tracking.system_type),
+                                "settling_time_s": alt.step.settling_time_s})
+
+
+# --------------------------------------------------------------------------- regression
+#: Floors for the relative change, in the figure's unit, so that a baseline near zero
+#: (0 % overshoot, 0 s tail) does not turn a trivial change into an infinite one.
+_RELATIVE_FLOOR = {"%": 1.0, "deg": 1.0, "dB": 1.0}
+
+
+def worsening_pct(change: FigureChange) -> float:
+    """How much worse a figure got, % of |baseline| (floored); 0 when not worse."""
+    if not change.worsening or change.baseline is None:
+        return 0.0
+    if math.isinf(change.worsening):
+        return math.inf                     # e.g. an infinite margin became finite
+    floor = _RELATIVE_FLOOR.get(change.unit, 1e-12)
+    return 100.0 * change.worsening / max(abs(change.baseline), floor)
+
+
+@_check("regression", unit="%", limits=UPPER,
+        summary="candidate against a baseline design: the largest worsening of margins, "
+                "peaks, tracking and step figures, % of the baseline value")
+def regression(a: LoopAnalysis, rule: Rule, design: Design, *,
+               baseline: LoopAnalysis | None = None) -> Measurement:
+    if baseline is None:
+        raise NotApplicable("no baseline given")
+    details: dict[str, float | str | None] = {}
+    worst: tuple[float, FigureChange | None] = (0.0, None)
+    for change in compare_figures(baseline, a):
+        pct = worsening_pct(change)
+        details[f"{change.figure}.baseline"] = change.baseline
+        details[f"{change.figure}.candidate"] = change.candidate
+        details[f"{change.figure}.worse_pct"] = pct
+        if pct > worst[0]:
+            worst = (pct, change)
+    pct, ch = worst
+    if ch is None:
+        text = "no figure worse than in the baseline"
+    else:
+        text = (f"{ch.figure} {fmt(ch.candidate, ch.unit)} against {fmt(ch.baseline, ch.unit)} "
+                f"in the baseline ({fmt(pct, '%')} worse)")
+    return Measurement(value=pct, text=text, compare={"max": pct, "warn_max": pct},
+                       details=details)

@@ -1,0 +1,386 @@
+"""Evaluation: rules × analysed variants → findings, complete at birth.
+
+Limits
+    Each rule's limits come from the rule set and may be *tightened or supplied* by the
+    design: ``[requirements]`` values map onto checks (:data:`REQUIREMENT_TARGETS`) and
+    ``[limits."rule.id"]`` tables override single keys.  The stricter value wins and every
+    finding records where its limit came from.  A ``[limits]`` entry looser than the rule
+    set is a :class:`DesignError`: loosening a rule takes a waiver, which is visible.
+
+Severity (what a breach becomes)
+    ``fail`` (default): breaching ``min``/``max`` fails, breaching ``warn_*`` warns.
+    ``warn``: breaching any limit warns; the rule never fails the review.
+    ``info``: breaching ``min``/``max`` warns; ``warn_*`` levels are only noted in the
+    message (status pass).
+    A check that cannot be computed is ``error`` whatever the severity; one that does not
+    apply, or has no limit at all, is ``n/a`` with the reason.
+
+Waivers
+    An unexpired waiver (valid through its expiry date) turns ``fail`` into ``waived``; an
+    expired one changes nothing and the message says so; a waiver matching no finding
+    becomes a ``warn`` finding; stability checks refuse waivers.  The review date is an
+    argument, never read from the clock here.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime as dt
+import math
+from collections.abc import Callable, Iterable, Mapping, Sequence
+from dataclasses import dataclass
+from types import MappingProxyType
+
+from ..analysis.results import LoopAnalysis
+from ..design.model import Design, Waiver
+from ..errors import AnalysisError, DesignError, did_you_mean
+from .checks import CHECKS, Measurement, NotApplicable, fmt, is_lower_bound, is_warn_key
+from .model import Finding, Rule, RuleSet, Status
+
+__all__ = ["REQUIREMENT_TARGETS", "Limit", "analysis_settings", "evaluate", "resolve_limits"]
+
+
+@dataclass(frozen=True, slots=True)
+class Limit:
+    value: float
+    source: str                          # "rule set general 1.0", "design [requirements].x"
+
+
+@dataclass(frozen=True, slots=True)
+class Target:
+    """Where a design requirement value lands: a check, limit keys, a conversion."""
+
+    check: str
+    keys: tuple[str, ...]
+    when: Callable[[Rule], bool] = lambda rule: True
+    convert: Callable[[float], float] = lambda x: x
+
+
+def _which(*names: str) -> Callable[[Rule], bool]:
+    return lambda rule: rule.options.get("which") in names
+
+
+def _inverse(e: float) -> float:
+    return math.inf if e == 0.0 else 1.0 / e
+
+
+#: design ``[requirements]`` key → the rule limits it tightens or supplies.
+REQUIREMENT_TARGETS: dict[str, tuple[Target, ...]] = {
+    "settling_time": (Target("step_settling", ("max",)), Target("slow_pair_tail", ("max",))),
+    "rise_time": (Target("step_rise", ("max",)),),
+    "overshoot": (Target("step_overshoot", ("max",)),),
+    "phase_margin": (Target("phase_margin", ("min",)),),
+    "gain_margin": (Target("gain_margin", ("min",)),),
+    "delay_margin": (Target("delay_margin", ("min",),
+                            when=lambda rule: not rule.options.get("relative")),),
+    "peak_sensitivity": (Target("peak_sensitivity", ("max",)),),
+    "peak_complementary": (Target("peak_complementary", ("max",)),),
+    "disk_margin": (Target("disk_margin", ("min",)),),
+    "crossover_min": (Target("crossover_band", ("min",)),),
+    "crossover_max": (Target("crossover_band", ("max",)),),
+    # The boost must help by 3 dB across the reference band (fail) and by 2x (warn).
+    "reference_band": (Target("boost_band", ("min", "warn_min")),),
+    "system_type": (Target("system_type", ("min",)),),
+    "step_error": (Target("error_constant", ("max",), when=_which("step_error")),
+                   Target("error_constant", ("min",), when=_which("kp"),
+                          convert=lambda e: math.inf if e == 0.0 else 1.0 / e - 1.0)),
+    "ramp_error": (Target("error_constant", ("max",), when=_which("ramp_error")),
+                   Target("error_constant", ("min",), when=_which("kv"), convert=_inverse)),
+    "parabola_error": (Target("error_constant", ("max",), when=_which("parabola_error")),
+                       Target("error_constant", ("min",), when=_which("ka"),
+                              convert=_inverse)),
+}
+#: requirement keys the analysis itself uses (not limits).
+ANALYSIS_REQUIREMENTS = ("settling_band",)
+
+
+def requirement_values(design: Design) -> dict[str, float]:
+    """The design's requirement values by key, frequencies in rad/s."""
+    req = design.requirements
+    values = {k: float(v) for k, v in req.values.items()}
+    if req.reference_band_rad_s is not None:
+        values["reference_band"] = req.reference_band_rad_s
+    if req.settling_time_s is not None:
+        values["settling_time"] = req.settling_time_s
+    if req.settling_band is not None:
+        values["settling_band"] = req.settling_band
+    return dict(sorted(values.items()))
+
+
+def _stricter(key: str, a: float, b: float) -> bool:
+    """True when ``b`` is stricter than ``a`` for limit ``key``."""
+    return b > a if is_lower_bound(key) else b < a
+
+
+def resolve_limits(design: Design, ruleset: RuleSet) -> dict[str, dict[str, Limit]]:
+    """Effective limits per rule id: rule set, tightened by the design.
+
+    Raises
+    ------
+    DesignError
+        A ``[limits]`` table for an unknown rule id or key, or one that loosens a limit.
+    """
+    rules = {r.id: r for r in ruleset.rules}
+    for rule_id, table in design.rule_limits.items():
+        if rule_id not in rules:
+            raise DesignError(f"no rule '{rule_id}' in rule set {ruleset.id}",
+                              file=design.path, where=f"limits.{rule_id}",
+                              hint=did_you_mean(rule_id, rules) or "see 'loopwarden rules "
+                              f"--show {ruleset.id}'")
+        allowed = CHECKS[rules[rule_id].check].limit_keys
+        for key in table:
+            if key not in allowed:
+                raise DesignError(f"rule '{rule_id}' (check {rules[rule_id].check}) has no "
+                                  f"limit '{key}'", file=design.path,
+                                  where=f"limits.{rule_id}.{key}",
+                                  hint=did_you_mean(key, allowed)
+                                  or "allowed: " + (", ".join(allowed) or "none"))
+    reqs = requirement_values(design)
+    out: dict[str, dict[str, Limit]] = {}
+    for rule in ruleset.rules:
+        lim = {k: Limit(v, f"rule set {rule.origin}") for k, v in rule.limits.items()}
+        for req_key, value in reqs.items():
+            for target in REQUIREMENT_TARGETS.get(req_key, ()):
+                if target.check != rule.check or not target.when(rule):
+                    continue
+                for key in target.keys:
+                    new = target.convert(value)
+                    if key not in lim or _stricter(key, lim[key].value, new):
+                        lim[key] = Limit(new, f"design [requirements].{req_key}")
+        for key, value in design.rule_limits.get(rule.id, {}).items():
+            value = float(value)
+            own = rule.limits.get(key)
+            if own is not None and _stricter(key, value, own):
+                bound = "lower" if is_lower_bound(key) else "raise"
+                raise DesignError(
+                    f"{key} = {value:g} would {bound} the rule set's {key} = {own:g}; a design "
+                    "may only tighten a rule", file=design.path,
+                    where=f"limits.{rule.id}.{key}",
+                    hint="to accept a breach, add a waiver with a reason, approver and expiry")
+            if key not in lim or _stricter(key, lim[key].value, value):
+                lim[key] = Limit(value, f"design [limits.{rule.id}]")
+        out[rule.id] = lim
+    return out
+
+
+def analysis_settings(design: Design, ruleset: RuleSet,
+                      limits: Mapping[str, Mapping[str, Limit]]) -> tuple[float | None,
+                                                                          float | None]:
+    """(minimum phase margin, settling band) the analysis should use.
+
+    The phase margin is the strictest ``min`` of the set's phase-margin rules (the integral
+    alternative is re-tuned to keep it); the band is the design's, else the rule set's.
+    """
+    pm = [limits[r.id]["min"].value for r in ruleset.rules
+          if r.check == "phase_margin" and "min" in limits[r.id]]
+    bands = [float(r.options["band"]) for r in ruleset.rules if "band" in r.options]
+    band = design.requirements.settling_band or (bands[0] if bands else None)
+    return (max(pm) if pm else None), band
+
+
+# --------------------------------------------------------------------------- judging
+_BREACH = {"fail": Status.FAIL, "warn": Status.WARN, "info": Status.WARN}
+
+
+def _judge(m: Measurement, lim: Mapping[str, Limit], severity: str
+           ) -> tuple[Status, str | None, str]:
+    """(status, determining limit key, phrase) for a numeric measurement."""
+    usable = [k for k in lim if k in m.compare]
+    if not usable:
+        return Status.NA, None, ""
+    hard = [k for k in usable if not is_warn_key(k)]
+    warn = [k for k in usable if is_warn_key(k)]
+
+    def breached(key: str) -> bool:
+        value, limit = m.compare[key], lim[key].value
+        return value < limit if is_lower_bound(key) else value > limit
+
+    for key in hard:
+        if breached(key):
+            word = "below the minimum" if is_lower_bound(key) else "above the maximum"
+            return _BREACH[severity], key, word
+    for key in warn:
+        if breached(key):
+            word = ("below the warning level" if is_lower_bound(key)
+                    else "above the warning level")
+            if severity == "info":
+                return Status.PASS, key, word + " (noted only: info rule)"
+            return Status.WARN, key, word
+    key = hard[0] if hard else warn[0]
+    return Status.PASS, key, "meets " + ("≥" if is_lower_bound(key) else "≤")
+
+
+def _requirement_hint(check: str) -> str:
+    keys = [k for k, ts in REQUIREMENT_TARGETS.items() if any(t.check == check for t in ts)]
+    if not keys:
+        return "no limit given"
+    return "no limit given (the design may set " + " or ".join(
+        f"[requirements].{k}" for k in keys) + ")"
+
+
+def _finding(rule: Rule, variant: str | None, status: Status, message: str, *,
+             unit: str, measured: float | str | None = None, limit: float | str | None = None,
+             limit_source: str = "", details: Mapping[str, float | str | None] | None = None
+             ) -> Finding:
+    return Finding(rule=rule.id, check=rule.check, status=status, variant=variant,
+                   measured=measured, limit=limit, unit=unit, message=message,
+                   limit_source=limit_source, rationale=rule.rationale, source=rule.source,
+                   details=MappingProxyType(dict(details or {})))
+
+
+def evaluate_rule(rule: Rule, lim: Mapping[str, Limit], analysis: LoopAnalysis,
+                  design: Design, *, baseline: LoopAnalysis | None = None) -> Finding:
+    """One rule on one variant; never raises for a check's own failure."""
+    check = CHECKS[rule.check]
+    unit = check.unit_for(rule.options)
+    effective = dataclasses.replace(
+        rule, limits=MappingProxyType({k: v.value for k, v in lim.items()}))
+    variant = analysis.variant
+    try:
+        m = check(analysis, effective, design, baseline=baseline)
+    except NotApplicable as exc:
+        return _finding(rule, variant, Status.NA, exc.reason, unit=unit)
+    except AnalysisError as exc:
+        return _finding(rule, variant, Status.ERROR, f"could not compute: {exc}", unit=unit)
+    except Exception as exc:  # noqa: BLE001 - one broken check must not stop the review
+        return _finding(rule, variant, Status.ERROR,
+                        f"check '{rule.check}' crashed ({type(exc).__name__}: {exc}); the "
+                        "other rules were evaluated", unit=unit)
+    unit = m.unit if m.unit is not None else unit
+    if check.needs_stable and not analysis.stability.closed_loop_stable:
+        # Margins and peaks describe how far a *stable* loop is from instability; on an
+        # unstable loop the numbers exist but mean nothing (the stability rule fails).
+        return _finding(rule, variant, Status.NA,
+                        f"{m.text}; the closed loop is unstable, so this is no stability "
+                        "margin (see closed_loop_stability)", unit=unit, measured=m.value)
+    details: dict[str, float | str | None] = dict(m.details)
+    details["severity"] = rule.severity
+    for key, limit in lim.items():
+        details[f"limit.{key}"] = limit.value
+        details[f"limit_source.{key}"] = limit.source
+
+    if check.predicate:
+        status = Status.PASS if m.ok else _BREACH[rule.severity]
+        return _finding(rule, variant, status, m.text, unit=unit, measured=m.value,
+                        limit="stable", limit_source=f"rule set {rule.origin}",
+                        details=details)
+    status, key, phrase = _judge(m, lim, rule.severity)
+    if key is None:
+        reason = _requirement_hint(rule.check) if not lim else (
+            "none of this rule's limits applies to this loop ("
+            + ", ".join(lim) + ")")
+        return _finding(rule, variant, Status.NA, f"{m.text}; {reason}", unit=unit,
+                        measured=m.value, details=details)
+    details["limit_key"] = key
+    limit = lim[key]
+    measured = m.compare[key]
+    if key.endswith("_ratio"):
+        unit = check.limit_unit(key, rule.options)
+    message = f"{m.text}: {phrase} {fmt(limit.value, unit)}"
+    return _finding(rule, variant, status, message, unit=unit, measured=measured,
+                    limit=limit.value, limit_source=limit.source, details=details)
+
+
+# --------------------------------------------------------------------------- waivers
+_UNCHECKED_RATIONALE = "A requirement the design states but no rule checks gives false comfort."
+_WAIVER_RATIONALE = "A waiver that matches nothing is probably stale or misspelt."
+
+
+def _waiver_text(w: Waiver) -> str:
+    return f"{w.reason} (approved by {w.approved_by}, expires {w.expires.isoformat()})"
+
+
+def apply_waivers(findings: Sequence[Finding], waivers: Iterable[Waiver], *,
+                  today: dt.date, rule_ids: Sequence[str]) -> list[Finding]:
+    """Apply the design's waivers; unmatched waivers become ``warn`` findings."""
+    out = list(findings)
+    extra: list[Finding] = []
+    for w in waivers:
+        hits = [i for i, f in enumerate(out)
+                if f.rule == w.rule and f.variant is not None
+                and (w.variant is None or f.variant == w.variant)]
+        if not hits:
+            scope = f" on variant '{w.variant}'" if w.variant else ""
+            hint = did_you_mean(w.rule, rule_ids)
+            extra.append(Finding(
+                rule=w.rule, check="waiver", status=Status.WARN, variant=w.variant,
+                measured=None, limit=None, unit="", limit_source="design [[waivers]]",
+                message=f"waiver for rule '{w.rule}'{scope} matches no finding"
+                        + (f" ({hint})" if hint else "") + "; it has no effect",
+                waiver=_waiver_text(w), rationale=_WAIVER_RATIONALE,
+                source="design [[waivers]]"))
+            continue
+        for i in hits:
+            f = out[i]
+            if f.waiver is not None and f.status is Status.WAIVED:
+                continue                    # an earlier waiver already applies
+            if f.check in CHECKS and not CHECKS[f.check].waivable:
+                if f.status is Status.FAIL:
+                    out[i] = dataclasses.replace(
+                        f, waiver=f"refused: {_waiver_text(w)}",
+                        message=f"{f.message}. Waiver by {w.approved_by} refused: "
+                                f"{f.check} cannot be waived")
+            elif w.expires < today:
+                if f.status is Status.FAIL:
+                    out[i] = dataclasses.replace(
+                        f, waiver=f"expired: {_waiver_text(w)}",
+                        message=f"{f.message}. Waiver by {w.approved_by} expired on "
+                                f"{w.expires.isoformat()}; it does not count")
+            elif f.status is Status.FAIL:
+                out[i] = dataclasses.replace(
+                    f, status=Status.WAIVED, waiver=_waiver_text(w),
+                    message=f"{f.message}. Waived by {w.approved_by} until "
+                            f"{w.expires.isoformat()}: {w.reason}")
+            else:
+                out[i] = dataclasses.replace(
+                    f, message=f"{f.message}. (Waiver by {w.approved_by} not needed: the "
+                               f"rule does not fail)")
+    return out + extra
+
+
+def _unused_requirements(design: Design, ruleset: RuleSet) -> list[Finding]:
+    checks = {r.check for r in ruleset.rules}
+    out = []
+    for key, value in requirement_values(design).items():
+        if key in ANALYSIS_REQUIREMENTS:
+            continue
+        targets = REQUIREMENT_TARGETS.get(key, ())
+        if any(t.check in checks for t in targets):
+            continue
+        why = (f"rule set {ruleset.id} has no {' or '.join(sorted({t.check for t in targets}))}"
+               " rule" if targets else "no check uses this requirement")
+        out.append(Finding(
+            rule=f"requirements.{key}", check="requirements", status=Status.WARN,
+            variant=None, measured=value, limit=None, unit="",
+            limit_source=f"design [requirements].{key}", rationale=_UNCHECKED_RATIONALE,
+            source="loopwarden", message=f"requirement {key} = {fmt(value)} is not checked: "
+                                         f"{why}"))
+    return out
+
+
+# --------------------------------------------------------------------------- entry point
+def evaluate(design: Design, ruleset: RuleSet, analyses: Sequence[LoopAnalysis], *,
+             today: dt.date, baseline: Sequence[LoopAnalysis] | None = None,
+             limits: Mapping[str, Mapping[str, Limit]] | None = None) -> tuple[Finding, ...]:
+    """Evaluate every rule on every variant: findings in variant order, then rule order.
+
+    Design-wide findings (unchecked requirements, unmatched waivers) come last.
+    """
+    lim = limits if limits is not None else resolve_limits(design, ruleset)
+    base = {a.variant: a for a in baseline} if baseline is not None else None
+    findings: list[Finding] = []
+    for analysis in analyses:
+        for rule in ruleset.rules:
+            if rule.options.get("variants") == "nominal" and analysis is not analyses[0]:
+                continue
+            b = None if base is None else base.get(analysis.variant)
+            if base is not None and b is None and rule.check == "regression":
+                findings.append(_finding(
+                    rule, analysis.variant, Status.NA,
+                    f"the baseline has no plant variant named '{analysis.variant}'",
+                    unit=CHECKS[rule.check].unit))
+                continue
+            findings.append(evaluate_rule(rule, lim[rule.id], analysis, design, baseline=b))
+    findings.extend(_unused_requirements(design, ruleset))
+    return tuple(apply_waivers(findings, design.waivers, today=today,
+                               rule_ids=[r.id for r in ruleset.rules]))
