@@ -28,7 +28,7 @@ class Stability:
     closed_loop_poles: tuple[complex, ...]        # empty for the Nyquist method
     open_loop_rhp_poles: int                       # P, open-loop poles with Re > 0
     open_loop_imag_axis_poles: int                 # poles on the imaginary axis (indented)
-    rhp_closed_loop_poles: int                     # Z = N + P
+    rhp_closed_loop_poles: int | None              # Z = N + P; None: not finite (neutral)
     clockwise_encirclements: int | None            # N (Nyquist method only)
     marginal: bool = False                         # a closed-loop pole on the boundary
     note: str = ""
