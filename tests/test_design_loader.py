@@ -338,3 +338,53 @@ def test_sample_design_parses(name):
     assert tuple(st.type for st in design.controller) == stages
     assert design.frequency_unit == unit
     assert design.requirements.settling_time_s is not None
+
+
+def _rational_feedback(design: Design, variant):
+    """Reference → output closed loop C·P/(1 + C·P·H) built in python-control (no delay)."""
+    loop = design.loop(variant)
+    def sys(z):
+        return control.zpk(z.zeros, z.poles, z.gain)
+    return sys(loop.rational), control.feedback(sys(loop.forward), sys(loop.sensor))
+
+
+@pytest.mark.parametrize(("name", "crossings", "rhp_open_loop"), [
+    ("conveyor_axis.toml", 1, 0),
+    ("gimbal_rate.toml", 3, 0),          # the 52 Hz peak crosses 0 dB twice more
+    ("levitation_lead.toml", 1, 1),      # one open-loop pole at +30 rad/s
+    ("hoist_lag_tail.toml", 1, 0),
+])
+def test_rational_samples_keep_their_character(name, crossings, rhp_open_loop):
+    # reference: python-control closed-loop poles and stability_margins(returnall=True);
+    # the samples' comments quote these properties, and the delay-free variants are checked
+    design = load_design(SAMPLES / name)
+    for variant in design.variants:
+        if variant.delay_s or design.sensor_delay_s:
+            continue
+        L, T = _rational_feedback(design, variant)
+        assert np.all(T.poles().real < 0), variant.name
+        assert int(np.sum(L.poles().real > 0)) == rhp_open_loop
+        _, pm, _, _, wgc, _ = control.stability_margins(L, returnall=True)
+        assert len(wgc) == crossings, (variant.name, wgc)
+        assert np.min(pm) > 45.0, (variant.name, pm)
+
+
+def test_tank_level_reproduces_simc_robustness_figures():
+    # Skogestad, J. Process Control 13 (2003), SIMC with τc = θ [memory]: L = e^(−θs)/(2θs),
+    # GM 3.14, PM 61.4°, Ms 1.59 (REFERENCE_CHECKS.md). L(jω) from python-control times the
+    # exact delay, on a fine grid; the crossings are where this grid puts them.
+    design = load_design(SAMPLES / "tank_level.toml")
+    nominal = design.variants[0]
+    assert nominal.delay_s == 8.0
+    L, _ = _rational_feedback(design, nominal)
+    w = np.linspace(0.01, 0.4, 390001)
+    lw = np.array(L(1j * w)).ravel() * np.exp(-1j * w * nominal.delay_s)
+    i_gc = np.argmin(np.abs(np.abs(lw) - 1.0))
+    pm_deg = 180.0 + math.degrees(np.angle(lw[i_gc]))
+    # first phase crossing (∠L = −180°, i.e. ∠(−L) = 0) is at π/(2θ) ≈ 0.196 rad/s
+    i_pc = np.argmin(np.where(w < 0.3, np.abs(np.angle(-lw)), np.inf))
+    assert w[i_pc] == pytest.approx(math.pi / 16, rel=1e-4)
+    assert w[i_gc] == pytest.approx(1 / 16, rel=1e-4)          # 1/(2θ)
+    assert pm_deg == pytest.approx(61.4, abs=0.05)
+    assert 1 / abs(lw[i_pc]) == pytest.approx(3.14, abs=0.005)
+    assert np.max(np.abs(1 / (1 + lw))) == pytest.approx(1.59, abs=0.005)
