@@ -49,17 +49,19 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def _embedded(review: object, evidence: bytes) -> dict[str, bytes]:
-    """Files embedded in the PDF: the evidence JSON and every input file as read."""
+    """Files embedded in the PDF: the evidence JSON and every input file as read.
+
+    ``design.toml`` and ``rules.toml`` hash to ``design.sha256`` / ``ruleset.sha256`` of
+    the evidence; sets the rule set extends follow as ``rules-<id>.toml``.
+    """
     from ..report.review import Review
 
     assert isinstance(review, Review)
-    files = {"review.json": evidence,
-             f"design/{Path(review.design.path).name}": review.design.text.encode("utf-8")}
-    for f in review.ruleset.files:
-        files[f"rules/{Path(f.path).name}"] = f.text.encode("utf-8")
+    files = {"review.json": evidence, "design.toml": review.design.text.encode("utf-8")}
+    for i, f in enumerate(review.ruleset.files):
+        files["rules.toml" if i == 0 else f"rules-{f.id}.toml"] = f.text.encode("utf-8")
     if review.baseline is not None:
-        b = review.baseline.design
-        files[f"baseline/{Path(b.path).name}"] = b.text.encode("utf-8")
+        files["baseline.toml"] = review.baseline.design.text.encode("utf-8")
     return files
 
 
