@@ -7,7 +7,7 @@ expected and a hint.  Every error is a :class:`~loopwarden.errors.DesignError` (
 
 Units
 -----
-``[design] frequency_unit`` is ``"rad/s"`` (default) or ``"hz"``.  With ``"hz"`` every
+``[design] frequency_unit`` is ``"rad/s"`` (default) or ``"hz"`` (either case).  With ``"hz"`` every
 frequency in the file is multiplied by 2π on reading, so the model holds rad/s only:
 
 * lead and lag ``zero`` and ``pole``; notch and lowpass ``freq``;
@@ -32,9 +32,9 @@ import re
 import tomllib
 from pathlib import Path
 from types import MappingProxyType
-from typing import Any
 
 from ..errors import DesignError, did_you_mean
+from ..lti import Zpk
 from .forms import FORMS, Table, read_form
 from .model import Design, PlantVariant, Requirements, Stage, Waiver
 from .stages import read_stage
@@ -222,17 +222,9 @@ def _delay(t: Table, default: float = 0.0) -> float:
     return t.number("delay", minimum=0.0, unit="s", default=default)
 
 
-def _check_proper(t: Table, model: Any) -> None:
-    if not model.is_proper:
-        raise t.error(None, f"improper: more zeros ({model.zeros.size}) than poles "
-                      f"({model.poles.size})",
-                      "a physical block must be proper")
-
-
 def _plant(t: Table) -> tuple[PlantVariant, ...]:
     t.check_keys((*FORMS, "delay", "variants"), hints={"frd": _FRD_HINT})
     model, form = read_form(t, "plant")
-    _check_proper(t, model)
     delay = _delay(t)
     out = [PlantVariant(name="nominal", model=model, delay_s=delay, form=form, where="plant")]
     if "variants" not in t.data:
@@ -250,17 +242,15 @@ def _plant(t: Table) -> tuple[PlantVariant, ...]:
                            "variant names must be unique")
         seen[name] = vt.where
         vmodel, vform = read_form(vt, f"plant ({name})")
-        _check_proper(vt, vmodel)
         out.append(PlantVariant(name=name, model=vmodel, delay_s=_delay(vt, delay),
                                 form=vform, where=vt.where))
     return tuple(out)
 
 
-def _sensor(top: Table) -> tuple[Any, float]:
+def _sensor(top: Table) -> tuple[Zpk, float]:
     t = _table(top, "sensor")
     t.check_keys((*FORMS, "delay"), hints={"frd": _FRD_HINT})
     model, _ = read_form(t, "sensor")
-    _check_proper(t, model)
     if model.origin_poles != 0 or model.low_frequency_coefficient() == 0:
         what = ("infinite DC gain (a pole at s = 0)" if model.origin_poles > 0
                 else "zero DC gain (a zero at s = 0)")

@@ -21,8 +21,11 @@ zpk        zeros, poles, gain  (or zpk = {...})    as given (roots converted fro
 ========== ======================================= ==============================================
 
 For the notch ζ_z = ζ·10^(−depth_db/20), so |N(jω)| = 10^(−depth_db/20) at ω.
-Every stage must be proper; the lead, lag, notch and lowpass have unity gain at DC or at high
-frequency as stated, so their gain is set by ``gain`` / ``pi`` / ``pid`` stages.
+``Stage.params`` holds the numbers as floats (frequencies in rad/s, defaults filled in);
+for tf and zpk stages it holds the coefficient and root lists as text in the file's
+notation (roots in rad/s) and the zpk gain as a number.  Every stage must be proper; the
+lead, lag, notch and lowpass have unity gain at DC or at high frequency as stated, so the
+loop gain is set by ``gain`` / ``pi`` / ``pid`` stages.
 """
 
 from __future__ import annotations
@@ -236,8 +239,3 @@ def read_stage(t: Table, index: int) -> Stage:
     label = f"{t.where} {kind}"
     params, model = spec.build(body, label)
     return Stage(index=index, type=kind, params=MappingProxyType(params), model=model)
-
-
-def stage_types() -> tuple[str, ...]:
-    """Names of the stage types, in catalog order."""
-    return tuple(STAGE_TYPES)
