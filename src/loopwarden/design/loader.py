@@ -136,9 +136,10 @@ def _parse(text: str, path: str, sha256: str) -> Design:
 
     head = _table(top, "design")
     head.check_keys(("name", "revision", "description", "frequency_unit"), required=("name",))
-    unit = head.string("frequency_unit", default="rad/s").lower()
+    written = head.string("frequency_unit", default="rad/s")
+    unit = written.lower()
     if unit not in ("rad/s", "hz"):
-        raise head.error("frequency_unit", f"unknown frequency unit {unit!r}",
+        raise head.error("frequency_unit", f"unknown frequency unit {written!r}",
                          'allowed values: "rad/s", "hz"')
     hz = unit == "hz"
     top = Table(data, "", path, hz)
