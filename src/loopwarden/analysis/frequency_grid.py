@@ -159,9 +159,10 @@ def delay_grid_end(loop: Loop, log_grid: FloatArray | None = None) -> float:
     return max(end, w_neg) if w_neg is not None else end
 
 
-def _resonance_points(zpk: Zpk, lo: float, points_per_unit: int, half_width: float,
+def _resonance_points(zpk: Zpk, lo: float, offsets: FloatArray,
                       approach: FloatArray) -> list[FloatArray]:
-    """Clusters across lightly damped roots and points approaching imaginary-axis roots."""
+    """Clusters ``Im r + |Re r|·offsets`` across lightly damped roots, and points
+    ``Im r·(1 ± approach)`` on both sides of imaginary-axis roots."""
     out: list[FloatArray] = []
     roots = np.concatenate([zpk.zeros, zpk.poles])
     for r in np.unique(roots[roots.imag > 0]):
@@ -170,8 +171,7 @@ def _resonance_points(zpk: Zpk, lo: float, points_per_unit: int, half_width: flo
             out.append(b * (1.0 - approach))
             out.append(b * (1.0 + approach))
         elif sigma < LIGHT_DAMPING * abs(r):
-            n = int(2 * half_width * points_per_unit) + 1
-            out.append(b + sigma * np.linspace(-half_width, half_width, n))
+            out.append(b + sigma * offsets)
     return [x[x >= lo] for x in out]
 
 
@@ -207,8 +207,10 @@ def loop_grid(loop: Loop, points_per_decade: int = DEFAULT_POINTS_PER_DECADE) ->
     decades = math.log10(hi / lo)
     base = np.logspace(math.log10(lo), math.log10(hi),
                        int(math.ceil(points_per_decade * decades)) + 1)
-    parts = [base, *_resonance_points(rat, lo, _CLUSTER_POINTS_PER_UNIT, _CLUSTER_HALF_WIDTH,
-                                      np.logspace(-12, -1, 111))]
+    n_cluster = int(2 * _CLUSTER_HALF_WIDTH * _CLUSTER_POINTS_PER_UNIT) + 1
+    parts = [base, *_resonance_points(
+        rat, lo, np.linspace(-_CLUSTER_HALF_WIDTH, _CLUSTER_HALF_WIDTH, n_cluster),
+        np.logspace(-12, -1, 111))]
     if loop.has_delay:
         parts.append(_uniform_delay_points(loop.delay_s, hi, MAX_DELAY_POINTS))
     return _finish(parts, rat, lo, hi)
@@ -226,7 +228,8 @@ def plot_grid(loop: Loop, max_points: int = 2000) -> FloatArray:
     """A moderate grid for plots (at most ``max_points`` frequencies, rad/s).
 
     Same construction as :func:`loop_grid` with fewer points: at most 1200 log points over
-    :func:`plot_range`, 41 points across each lightly damped root, and for a delay loop up
+    :func:`plot_range`, 41 points across each lightly damped root (densest at its peak,
+    reaching ±10·|Re r|), and for a delay loop up
     to 400 uniform points until ``|L|`` falls below 0.01.
     """
     rat = loop.rational
@@ -234,7 +237,8 @@ def plot_grid(loop: Loop, max_points: int = 2000) -> FloatArray:
     decades = math.log10(hi / lo)
     n = int(min(100.0 * decades, 1200.0)) + 1
     parts = [np.logspace(math.log10(lo), math.log10(hi), n),
-             *_resonance_points(rat, lo, 2, 10.0, np.logspace(-6, -1, 11))]
+             *_resonance_points(rat, lo, np.sinh(np.linspace(-3.0, 3.0, 41)),
+                                np.logspace(-6, -1, 11))]
     if loop.has_delay:
         end = bound_frequency(rat, 0.01) or hi
         parts.append(_uniform_delay_points(loop.delay_s, min(end, hi), 400))
