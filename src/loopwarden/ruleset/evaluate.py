@@ -182,32 +182,41 @@ def analysis_settings(design: Design, ruleset: RuleSet,
 _BREACH = {"fail": Status.FAIL, "warn": Status.WARN, "info": Status.WARN}
 
 
-def _judge(m: Measurement, lim: Mapping[str, Limit], severity: str
-           ) -> tuple[Status, str | None, str]:
-    """(status, determining limit key, phrase) for a numeric measurement."""
+def _judge(m: Measurement, lim: Mapping[str, Limit], severity: str,
+           unit: Callable[[str], str]) -> tuple[Status, str | None, str]:
+    """(status, determining limit key, phrase) for a numeric measurement.
+
+    The phrase names the determining limit with its value ("below the minimum 45°").
+    """
     usable = [k for k in lim if k in m.compare]
     if not usable:
         return Status.NA, None, ""
     hard = [k for k in usable if not is_warn_key(k)]
     warn = [k for k in usable if is_warn_key(k)]
 
+    def value(key: str) -> str:
+        return fmt(lim[key].value, unit(key))
+
     def breached(key: str) -> bool:
-        value, limit = m.compare[key], lim[key].value
-        return value < limit if is_lower_bound(key) else value > limit
+        measured, limit = m.compare[key], lim[key].value
+        return measured < limit if is_lower_bound(key) else measured > limit
 
     for key in hard:
         if breached(key):
             word = "below the minimum" if is_lower_bound(key) else "above the maximum"
-            return _BREACH[severity], key, word
+            return _BREACH[severity], key, f"{word} {value(key)}"
     for key in warn:
         if breached(key):
             word = ("below the warning level" if is_lower_bound(key)
                     else "above the warning level")
             if severity == "info":
-                return Status.PASS, key, word + " (noted only: info rule)"
-            return Status.WARN, key, word
-    key = hard[0] if hard else warn[0]
-    return Status.PASS, key, "meets " + ("≥" if is_lower_bound(key) else "≤")
+                return Status.PASS, key, f"{word} {value(key)} (noted only: info rule)"
+            return Status.WARN, key, f"{word} {value(key)}"
+    met = hard or warn
+    if len(met) == 1:
+        sign = "≥" if is_lower_bound(met[0]) else "≤"
+        return Status.PASS, met[0], f"meets {sign} {value(met[0])}"
+    return Status.PASS, met[0], "meets " + ", ".join(f"{k} {value(k)}" for k in met)
 
 
 def _requirement_hint(check: str) -> str:
@@ -264,7 +273,8 @@ def evaluate_rule(rule: Rule, lim: Mapping[str, Limit], analysis: LoopAnalysis,
         return _finding(rule, variant, status, m.text, unit=unit, measured=m.value,
                         limit="stable", limit_source=f"rule set {rule.origin}",
                         details=details)
-    status, key, phrase = _judge(m, lim, rule.severity)
+    status, key, phrase = _judge(m, lim, rule.severity,
+                                 lambda k: check.limit_unit(k, rule.options))
     if key is None:
         reason = _requirement_hint(rule.check) if not lim else (
             "none of this rule's limits applies to this loop ("
@@ -276,7 +286,7 @@ def evaluate_rule(rule: Rule, lim: Mapping[str, Limit], analysis: LoopAnalysis,
     measured = m.compare[key]
     if key.endswith("_ratio"):
         unit = check.limit_unit(key, rule.options)
-    message = f"{m.text}: {phrase} {fmt(limit.value, unit)}"
+    message = f"{m.text}: {phrase}"
     return _finding(rule, variant, status, message, unit=unit, measured=measured,
                     limit=limit.value, limit_source=limit.source, details=details)
 
