@@ -235,3 +235,33 @@ def test_help_exits_0(capsys) -> None:
     assert main(["review", "--help"]) == 0
     out = capsys.readouterr().out
     assert "--rules" in out and "exit status" in out
+
+
+# --------------------------------------------------------------------------- PDF and baseline
+def test_pdf_embeds_the_evidence_and_the_inputs(tmp_path: Path) -> None:
+    import hashlib
+
+    from pypdf import PdfReader
+
+    design = put(tmp_path, PASSING)
+    pdf = tmp_path / "review.pdf"
+    assert main(["review", str(design), "--quiet", "--date", "2025-05-05", "--out", str(pdf),
+                 "--json", str(tmp_path / "r.json")]) == 0
+    assert pdf.read_bytes().startswith(b"%PDF")
+    attached = {name: data[0] for name, data in PdfReader(str(pdf)).attachments.items()}
+    assert set(attached) == {"review.json", "design.toml", "rules.toml"}
+    assert attached["review.json"] == (tmp_path / "r.json").read_bytes()
+    doc = json.loads(attached["review.json"])
+    assert hashlib.sha256(attached["design.toml"]).hexdigest() == doc["design"]["sha256"]
+    assert hashlib.sha256(attached["rules.toml"]).hexdigest() == doc["ruleset"]["sha256"]
+
+
+def test_baseline_option(tmp_path: Path) -> None:
+    old = put(tmp_path, FAILING, "old.toml")
+    new = put(tmp_path, FAILING.replace("k = 0.5", "k = 0.8"), "new.toml")
+    assert main(["review", str(new), "--baseline", str(old), "--quiet", "--date",
+                 "2025-05-05", "--json", str(tmp_path / "r.json")]) == 1
+    doc = json.loads((tmp_path / "r.json").read_text(encoding="utf-8"))
+    reg = next(f for f in doc["findings"] if f["rule"] == "regression.baseline")
+    assert reg["status"] == "warn" and "worse" in reg["message"]
+    assert doc["baseline"]["design"]["file"] == "old.toml"

@@ -413,3 +413,32 @@ def test_ruleset_object_is_accepted(ogata) -> None:
     rs = load_ruleset("general")
     r = run_review(ogata.design, rs, today="2025-06-01", tool_version="test")
     assert r.run.date == "2025-06-01" and r.ruleset is rs
+
+
+def test_nominal_only_rules_skip_other_variants(tmp_path: Path) -> None:
+    path = tmp_path / "n.toml"
+    path.write_text(textwrap.dedent("""
+        [ruleset]
+        id = "n"
+        version = "1"
+        title = "nominal only"
+        [[rule]]
+        id = "pm"
+        check = "phase_margin"
+        min = 30.0
+        variants = "nominal"
+        rationale = "r"
+        source = "s"
+        [[rule]]
+        id = "stab"
+        check = "closed_loop_stability"
+        rationale = "r"
+        source = "s"
+        """), encoding="utf-8")
+    r = review(OGATA, """
+        [[plant.variants]]
+        name = "other"
+        zpk = { zeros = [], poles = [0.0, -1.0, -2.0], gain = 2.0 }
+        """, ruleset=str(path))
+    assert [(f.rule, f.variant) for f in r.findings] == [
+        ("pm", "nominal"), ("stab", "nominal"), ("stab", "other")]

@@ -540,6 +540,10 @@ def integral_alternative(a: LoopAnalysis, rule: Rule, design: Design, *,
             f"{fmt(alt.margins.gain_margin_db, 'dB')}, type {alt.tracking.system_type}, "
             f"settling {fmt(alt.step.settling_time_s, 's')} against "
             f"{fmt(current.settling_time_s, 's')} now")
+    # What the extra integrator buys: the steady-state error of the current loop's type.
+    which = ("step_error", "ramp_error", "parabola_error")[min(a.tracking.system_type, 2)]
+    text += (f", {_ERROR_LABEL[which]} {fmt(getattr(alt.tracking, which))} against "
+             f"{fmt(getattr(a.tracking, which))}")
     return Measurement(value=ratio, text=text, compare={"max": ratio, "warn_max": ratio},
                        details={"stage": float(alt.stage), "gain_factor": alt.gain_factor,
                                 "phase_margin_deg": alt.margins.phase_margin_deg,

@@ -219,8 +219,9 @@ def _judge(m: Measurement, lim: Mapping[str, Limit], severity: str,
     return Status.PASS, met[0], "meets " + ", ".join(f"{k} {value(k)}" for k in met)
 
 
-def _requirement_hint(check: str) -> str:
-    keys = [k for k, ts in REQUIREMENT_TARGETS.items() if any(t.check == check for t in ts)]
+def _requirement_hint(rule: Rule) -> str:
+    keys = [k for k, ts in REQUIREMENT_TARGETS.items()
+            if any(t.check == rule.check and t.when(rule) for t in ts)]
     if not keys:
         return "no limit given"
     return "no limit given (the design may set " + " or ".join(
@@ -276,7 +277,7 @@ def evaluate_rule(rule: Rule, lim: Mapping[str, Limit], analysis: LoopAnalysis,
     status, key, phrase = _judge(m, lim, rule.severity,
                                  lambda k: check.limit_unit(k, rule.options))
     if key is None:
-        reason = _requirement_hint(rule.check) if not lim else (
+        reason = _requirement_hint(rule) if not lim else (
             "none of this rule's limits applies to this loop ("
             + ", ".join(lim) + ")")
         return _finding(rule, variant, Status.NA, f"{m.text}; {reason}", unit=unit,
