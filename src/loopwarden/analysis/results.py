@@ -199,6 +199,8 @@ class IntegralAlternative:
     step: StepMetrics
     slow_pairs: tuple[SlowPair, ...]
     snippet_toml: str                              # ready to paste into a design file
+    target_phase_margin_deg: float | None = None   # max(current PM, rule-set minimum)
+    meets_target: bool | None = None               # False: best reachable PM reported
 
 
 # --------------------------------------------------------------------------- curves

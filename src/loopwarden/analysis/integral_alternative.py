@@ -1,0 +1,190 @@
+"""The integral-action alternative to a low-frequency boost stage.
+
+A lag ``(s+z)/(s+p)`` buys a finite DC boost z/p.  Moving its pole to the origin,
+``(s+z)/s``, gives integral action instead: one system type higher (zero steady error for
+the input that the lag only reduced), for about the same phase cost at crossover.  The
+phase it costs is slightly larger, so one overall gain factor k is chosen so that the
+phase margin is at least the current design's (or the rule set's minimum, if higher) and
+the closed loop is stable.  Among the gains that meet this the highest is kept, since a
+higher gain tracks better; k never exceeds 1, so the alternative does not buy tracking with
+more loop gain (and bandwidth) than the current design has.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+
+import numpy as np
+
+from ..design.model import Stage
+from ..errors import AnalysisError
+from ..lti import Loop, Zpk
+from .margins import compute_margins
+from .results import Boost, IntegralAlternative, Margins
+from .sensitivity import compute_sensitivity
+from .slow_pairs import slow_tail
+from .stability import closed_loop_stability
+from .time_response import step_response
+from .tracking import compute_tracking
+
+__all__ = ["GAIN_RANGE", "integral_alternatives", "integral_loop", "integral_stage"]
+
+#: Gain factors searched, highest first: 1 down to 1e-3 (20 per decade), then refined.
+GAIN_RANGE = (1.0, 1e-3)
+GRID_PER_DECADE = 20
+#: Relative width of the final gain bracket.
+GAIN_RTOL = 1e-7
+
+
+def integral_stage(model: Zpk) -> Zpk:
+    """The stage with its smallest real pole moved to s = 0 (same zeros, same gain).
+
+    For a lag ``k(s+z)/(s+p)`` this is ``k(s+z)/s``: same high-frequency gain, same zero.
+
+    Raises
+    ------
+    AnalysisError
+        When the stage has no real pole to move.
+    """
+    real = [i for i, p in enumerate(model.poles) if p.imag == 0 and p != 0]
+    if not real:
+        raise AnalysisError("the boost stage has no real pole to move to the origin")
+    i = min(real, key=lambda j: abs(model.poles[j]))
+    poles = model.poles.copy()
+    poles[i] = 0.0
+    return Zpk(model.zeros, poles, model.gain)
+
+
+def integral_loop(loop: Loop, stages: Sequence[Stage], stage_index: int) -> Loop:
+    """``loop`` with controller stage ``stage_index`` (1-based) made integral, gain unchanged."""
+    models = list(loop.stages if loop.stages else (st.model for st in stages))
+    pos = next((i for i, st in enumerate(stages) if st.index == stage_index), None)
+    if pos is None:
+        raise ValueError(f"no controller stage with index {stage_index}")
+    models[pos] = integral_stage(models[pos])
+    return loop.with_controller(models)
+
+
+def _phase_margin_if_stable(loop: Loop) -> tuple[bool, Margins | None]:
+    if not closed_loop_stability(loop).closed_loop_stable:
+        return False, None
+    return True, compute_margins(loop)
+
+
+def _choose_gain(base: Loop, target_deg: float) -> tuple[float, bool]:
+    """Highest factor in :data:`GAIN_RANGE` meeting the target; else the best stable one.
+
+    Returns the factor and whether it meets the target.
+    """
+    hi, lo = GAIN_RANGE
+    count = int(round(math.log10(hi / lo) * GRID_PER_DECADE)) + 1
+    grid = np.logspace(math.log10(hi), math.log10(lo), count)
+
+    def meets(k: float) -> bool:
+        stable, m = _phase_margin_if_stable(base.scaled(k))
+        return stable and m is not None and m.phase_margin_deg >= target_deg
+
+    best: tuple[float, float] | None = None       # (phase margin, k) of the best stable
+    for j, k in enumerate(grid):
+        stable, m = _phase_margin_if_stable(base.scaled(float(k)))
+        if not stable or m is None:
+            continue
+        if m.phase_margin_deg >= target_deg:
+            if j == 0:
+                return float(k), True
+            # Refine between this gain (meets) and the next higher one (does not).
+            k_ok, k_bad = float(k), float(grid[j - 1])
+            while k_bad / k_ok - 1.0 > GAIN_RTOL:
+                mid = math.sqrt(k_ok * k_bad)
+                if meets(mid):
+                    k_ok = mid
+                else:
+                    k_bad = mid
+            return k_ok, True
+        if best is None or m.phase_margin_deg > best[0]:
+            best = (m.phase_margin_deg, float(k))
+    if best is None:
+        raise AnalysisError(f"no gain factor in [{lo:g}, {hi:g}] makes the integral "
+                            "alternative closed-loop stable")
+    return best[1], False
+
+
+def _num(x: float) -> str:
+    return f"{x:.10g}"
+
+
+def _snippet(stage: Stage, new_model: Zpk, k: float, target_deg: float, met: bool) -> str:
+    head = [f"# Integral-action alternative to {stage.name}: its lowest pole moved to s = 0,",
+            f"# overall loop gain x{k:.6g} folded in "
+            f"(phase margin {'>=' if met else 'best reachable below'} {target_deg:.2f} deg).",
+            f"# Replace {stage.name} with:"]
+    if stage.type == "lag":
+        zero = float(-new_model.zeros[0].real)
+        kp = k * new_model.gain
+        body = ["[[controller]]", 'type = "pi"', f"kp = {_num(kp)}", f"ti = {_num(1.0 / zero)}"]
+    else:
+        # tf coefficients are in s (rad/s) whatever the design's frequency unit.
+        num = np.real(np.poly(new_model.zeros)) * new_model.gain * k
+        den = np.real(np.poly(new_model.poles))
+        body = ["[[controller]]", 'type = "tf"',
+                "num = [" + ", ".join(_num(float(c)) for c in num) + "]",
+                "den = [" + ", ".join(_num(float(c)) for c in den) + "]"]
+    return "\n".join(head + body) + "\n"
+
+
+def integral_alternatives(loop: Loop, stages: Sequence[Stage], boosts: Sequence[Boost],
+                          margins: Margins, *, min_phase_margin_deg: float | None,
+                          settling_band: float) -> tuple[IntegralAlternative, ...]:
+    """One integral-action alternative per boost stage, re-tuned by one gain factor.
+
+    Parameters
+    ----------
+    loop, stages
+        The current loop and its controller stages.
+    boosts : sequence of Boost
+        From :func:`.boost_band.find_boosts`; each names the stage to replace.
+    margins : Margins
+        The current loop's margins; its phase margin (deg) is the target unless
+        ``min_phase_margin_deg`` is higher.  An infinite current margin makes the rule
+        set's minimum (or 0° without one) the target.
+    min_phase_margin_deg : float or None
+        The rule set's minimum phase margin, deg.
+    settling_band : float
+        Settling band for the step metrics, fraction of the final value.
+
+    Returns
+    -------
+    tuple of IntegralAlternative
+        Margins, sensitivity, tracking, step metrics and the remaining slow pairs of the
+        re-tuned loop (slow pairs are empty for loops with a delay, where closed-loop
+        poles are not computed), the gain factor k ∈ [1e-3, 1], and a ``[[controller]]``
+        snippet: a ``pi`` stage (kp = k·high-frequency gain, ti = 1/zero, s) for a lag, a
+        ``tf`` stage otherwise.
+    """
+    current = margins.phase_margin_deg if math.isfinite(margins.phase_margin_deg) else None
+    candidates = [v for v in (current, min_phase_margin_deg) if v is not None]
+    target = max(candidates) if candidates else 0.0
+    by_index = {st.index: st for st in stages}
+    out: list[IntegralAlternative] = []
+    for boost in boosts:
+        stage = by_index[boost.stage]
+        base = integral_loop(loop, stages, boost.stage)
+        k, met = _choose_gain(base, target)
+        tuned = base.scaled(k)
+        step = step_response(tuned, settling_band)
+        pairs = () if tuned.has_delay else slow_tail(tuned, step, settling_band).pairs
+        out.append(IntegralAlternative(
+            stage=boost.stage,
+            gain_factor=k,
+            closed_loop_stable=closed_loop_stability(tuned).closed_loop_stable,
+            margins=compute_margins(tuned),
+            sensitivity=compute_sensitivity(tuned),
+            tracking=compute_tracking(tuned),
+            step=step.metrics,
+            slow_pairs=pairs,
+            snippet_toml=_snippet(stage, integral_stage(stage.model), k, target, met),
+            target_phase_margin_deg=target,
+            meets_target=met,
+        ))
+    return tuple(out)
