@@ -242,6 +242,53 @@ def test_fopdt_under_pi_against_solve_ivp():
     assert res.metrics.rise_time_s == pytest.approx(t[k90] - t[k10], rel=0.01)
 
 
+def test_biproper_plant_with_delay_keeps_the_delayed_jumps():
+    # 0.5(s+3)/(s+1)·e^{−s} under PI 0.6(1 + 1/(2s)): the plant passes the controller's
+    # jump straight through, so y jumps at t = 1, 2, … (a neutral delay equation).
+    # Independent: method of steps with solve_ivp; the delayed input is evaluated from
+    # the earlier segments' dense output, jumps included (right limits at the samples).
+    kp, ti, tau = 0.6, 2.0, 1.0
+    pi = Zpk([-1 / ti], [0.0], kp)
+    res = step_response(make_loop(Zpk([-3.0], [-1.0], 0.5), pi, delay=tau), BAND)
+    segments: list = []
+
+    def states(ts: np.ndarray) -> np.ndarray:
+        out = np.zeros((2, ts.size))
+        for i, sol in enumerate(segments):
+            m = (ts >= i * tau) & ((ts < (i + 1) * tau) | (i == len(segments) - 1))
+            if m.any():
+                out[:, m] = sol.sol(ts[m])
+        return out
+
+    def u_at(ts: np.ndarray) -> np.ndarray:
+        u = np.zeros(ts.size)
+        m = ts >= 0
+        if m.any():
+            xp, z = states(ts[m])
+            y = 0.5 * (u_at(ts[m] - tau) + 2 * xp)
+            u[m] = kp * ((1 - y) + z / ti)
+        return u
+
+    x0 = np.zeros(2)
+    for i in range(int(math.ceil(res.metrics.horizon_s / tau))):
+        def rhs(t, x):
+            w = u_at(np.array([t - tau]))[0]
+            y = 0.5 * (w + 2 * x[0])
+            return [-x[0] + w, 1 - y]
+
+        sol = integrate.solve_ivp(rhs, (i * tau, (i + 1) * tau), x0, method="DOP853",
+                                  dense_output=True, rtol=1e-10, atol=1e-12)
+        segments.append(sol)
+        x0 = sol.y[:, -1]
+    t = res.step.time_s
+    y_ref = 0.5 * (u_at(t - tau) + 2 * states(t)[0])
+    assert np.max(np.abs(res.step.value - y_ref)) < 1e-6
+    # the jump D_plant·D_controller = 0.3 at t = delay is kept, not smeared over a step
+    after = int(np.searchsorted(t, tau * (1 - 1e-12)))
+    assert res.step.value[after - 1] == pytest.approx(0.0, abs=1e-12)
+    assert res.step.value[after] - res.step.value[after - 1] > 0.5 * kp * 0.99
+
+
 # --------------------------------------------------------------------------- errors
 def test_bad_band_and_zero_dc_gain_raise():
     with pytest.raises(AnalysisError):
