@@ -265,3 +265,26 @@ def test_baseline_option(tmp_path: Path) -> None:
     reg = next(f for f in doc["findings"] if f["rule"] == "regression.baseline")
     assert reg["status"] == "warn" and "worse" in reg["message"]
     assert doc["baseline"]["design"]["file"] == "old.toml"
+
+
+def test_signed_review_and_wrong_passphrase(tmp_path: Path) -> None:
+    from pypdf import PdfReader
+
+    from loopwarden.signing.keys import make_key
+
+    key = tmp_path / "k.p12"
+    make_key(key, "Trial Reviewer", b"s3cret")
+    (tmp_path / "pw.txt").write_text("s3cret\n", encoding="utf-8")
+    (tmp_path / "bad.txt").write_text("guess\n", encoding="utf-8")
+    design = put(tmp_path, PASSING)
+    base = ["review", str(design), "--quiet", "--date", "2025-05-05", "--sign", str(key)]
+    pdf = tmp_path / "signed.pdf"
+    assert main([*base, "--passphrase-file", str(tmp_path / "bad.txt"), "--out", str(pdf),
+                 "--json", str(tmp_path / "r.json")]) == 2
+    assert not pdf.exists() and not (tmp_path / "r.json").exists()
+    assert main([*base, "--passphrase-file", str(tmp_path / "pw.txt"), "--out", str(pdf),
+                 "--json", str(tmp_path / "r.json")]) == 0
+    fields = PdfReader(str(pdf)).get_fields() or {}
+    assert any(f.get("/FT") == "/Sig" for f in fields.values())
+    doc = json.loads((tmp_path / "r.json").read_text(encoding="utf-8"))
+    assert doc["signer"] and "Trial Reviewer" in doc["signer"]

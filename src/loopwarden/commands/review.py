@@ -9,6 +9,7 @@ written.  Exit status: 0 nothing fails, 1 a finding fails (or errors), 2 bad inp
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import sys
 from pathlib import Path
 
@@ -89,13 +90,18 @@ def run(args: argparse.Namespace) -> int:
     ruleset = load_ruleset(args.rules)
     inputs += [Path(f.path) for f in ruleset.files]
     check_outputs(outputs, inputs=inputs)
-    passphrase = None
+    passphrase, signer = None, None
     if args.sign:
-        from ..signing.keys import read_passphrase
+        # Open the key before the analysis: a wrong passphrase is bad input (exit 2), and
+        # the signer's name belongs on the cover and in the evidence.
+        from ..signing.keys import read_passphrase, signer_name
 
         passphrase = read_passphrase(args)
+        signer = signer_name(args.sign, passphrase)
 
     review = run_review(design, ruleset, baseline=args.baseline, today=date)
+    if signer is not None:
+        review = dataclasses.replace(review, run=dataclasses.replace(review.run, signer=signer))
     evidence = renderer("json").render(review)
     files: dict[Path, bytes] = {}
     if args.json:
