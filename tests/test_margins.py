@@ -297,3 +297,38 @@ def test_plot_grid_is_moderate_and_resolves_resonance():
     w = plot_grid(colocated_resonance_loop())
     peak = 10.0 * math.sqrt(1 - 0.02**2)            # resonance at Im p, |Re p| = 0.2
     assert np.sum(np.abs(w - peak) <= 0.2) >= 10
+
+
+def test_small_gain_delay_loop_first_crossing_far_out_derived():
+    """1e−4·e^(−0.001s)/(s+1): the only relevant phase crossing lies where
+    atan ω + 0.001ω = π, far above the pole [derived, solved here with scipy brentq on
+    the closed-form phase]; GM = −20·log10(1e−4/√(1 + ω²))."""
+    from scipy.optimize import brentq
+
+    w180 = brentq(lambda w: math.atan(w) + 0.001 * w - math.pi, 1.0, 1e4, xtol=1e-14)
+    m = compute_margins(loop([], [-1], 1e-4, delay=0.001))
+    assert m.phase_crossover_rad_s == pytest.approx(w180, rel=RTOL)
+    assert m.gain_margin_db == pytest.approx(-db(1e-4 / math.hypot(1.0, w180)), rel=RTOL)
+    assert m.gain_crossings == ()
+
+
+def test_pi_on_pure_delay_biproper_derived():
+    """PI on a pure delay, L = 0.5(1 + 1/s)·e^(−s): |L| = 0.5·√(1 + 1/ω²) falls towards
+    0.5 while the delay keeps turning L [derived].  Crossings solve −π/2 + atan ω − ω =
+    −π(2n − 1); the first one with |L| ≤ 1 sets the upper margin, and ω = ∞ is listed
+    with the limit |L(j∞)| = 0.5."""
+    from scipy.optimize import brentq
+
+    lp = Loop(plant=Zpk([], [], 0.5), controller=Zpk([-1.0], [0.0], 1.0), sensor=ONE,
+              delay_s=1.0)
+    m = compute_margins(lp)
+    finite = [c for c in m.phase_crossings if math.isfinite(c.frequency_rad_s)]
+    for n, c in enumerate(finite[:10], start=1):
+        w = brentq(lambda x, n=n: -math.pi / 2 + math.atan(x) - x + math.pi * (2 * n - 1),
+                   1e-9, 1e3, xtol=1e-14)
+        assert c.frequency_rad_s == pytest.approx(w, rel=RTOL)
+        assert c.magnitude == pytest.approx(0.5 * math.sqrt(1 + 1 / w**2), rel=RTOL)
+    assert m.phase_crossings[-1].frequency_rad_s == math.inf
+    assert m.phase_crossings[-1].magnitude == 0.5
+    first_upper = next(c for c in finite if c.magnitude <= 1.0)
+    assert m.gain_margin_db == pytest.approx(first_upper.gain_margin_db, rel=RTOL)

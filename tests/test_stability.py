@@ -223,3 +223,53 @@ def test_delay_loop_at_its_delay_margin_is_marginal_derived():
     """e^(−Ts)/s with T = π/2 puts a root exactly on the axis at ω = 1 [derived]."""
     st = closed_loop_stability(loop([], [0.0], 1.0, delay=math.pi / 2))
     assert st.marginal and not st.closed_loop_stable
+
+
+def rectangle_count(poles, zeros, gain, delay, size):
+    """Roots of D(s) + k·N(s)·e^(−sT) in [0, size] × [−size, size] by the argument
+    principle on the rectangle's boundary (plain numpy; no poles inside, since the
+    quasi-polynomial is entire) [derived]."""
+    t = np.linspace(0.0, 1.0, 200_001)
+    z = np.concatenate([-1j * size + size * t, size - 1j * size + 2j * size * t,
+                        size + 1j * size - size * t, 1j * size - 2j * size * t])
+
+    def poly(s, roots):
+        return np.prod([s - r for r in roots], axis=0) if roots else np.ones_like(s)
+
+    v = poly(z, poles) + gain * poly(z, zeros) * np.exp(-z * delay)
+    winding = float(np.sum(np.angle(v[1:] / v[:-1]))) / (2 * math.pi)
+    assert abs(winding - round(winding)) < 1e-6
+    # Right-half-plane roots need |k·N/D| ≥ 1 (|e^(−sT)| ≤ 1 there); on the far sides of
+    # the box it is below 1/2, so no root lies outside it.
+    outer = z[(z.real > 0.5 * size) | (np.abs(z.imag) > 0.5 * size)]
+    assert np.max(np.abs(gain * poly(outer, zeros) / poly(outer, poles))) < 0.5
+    return int(round(winding))
+
+
+def test_random_delay_loops_against_rectangle_argument_principle():
+    """Seeded delay loops with open-loop unstable, lightly damped and integrating poles:
+    the D-contour count equals an independent argument-principle count of the
+    characteristic quasi-polynomial's roots in a large right-half-plane box."""
+    rng = np.random.default_rng(99)
+    counts = []
+    for _ in range(12):
+        poles: list[complex] = []
+        for _ in range(int(rng.integers(1, 4))):
+            w = 10 ** rng.uniform(-0.5, 0.5)
+            u = rng.random()
+            if u < 0.2:
+                poles.append(0.0)
+            elif u < 0.6:
+                poles.append(-w if rng.random() < 0.7 else w)
+            else:
+                z = rng.choice([0.01, 0.3])
+                r = complex(-z * w, w * math.sqrt(1 - z * z))
+                poles += [r, r.conjugate()]
+        zeros = [-(10 ** rng.uniform(-0.5, 0.5)) for _ in range(int(rng.integers(0, len(poles))))]
+        gain = 10 ** rng.uniform(-0.5, 1.0)
+        delay = 10 ** rng.uniform(-1.5, 0)
+        st = closed_loop_stability(loop(zeros, poles, gain, delay=delay))
+        ref = rectangle_count(poles, zeros, gain, delay, size=60.0)
+        assert st.rhp_closed_loop_poles == ref, (zeros, poles, gain, delay)
+        counts.append(ref)
+    assert len(set(counts)) >= 3          # the set holds stable and unstable loops

@@ -29,6 +29,7 @@ __all__ = [
     "log_magnitude",
     "loop_grid",
     "magnitude_bound",
+    "span_points",
 ]
 
 #: A root with |Re r| ≤ AXIS_RTOL·|r| counts as lying on the imaginary axis.
@@ -136,27 +137,38 @@ def bound_frequency(zpk: Zpk, level: float, start_rad_s: float = 0.0) -> float |
     return None
 
 
-def delay_grid_end(loop: Loop, log_grid: FloatArray | None = None) -> float:
-    """Where the grid of a delay loop ends (rad/s).
+def delay_grid_end(loop: Loop) -> float:
+    """Where the grid of a delay loop ends (rad/s), at least two turns of the delay phase.
 
-    Beyond it ``|L| ≤ NEGLIGIBLE_GAIN·min(1, max|L|)``, and it lies at least two turns of
-    the delay phase past the rational part's last feature (100× its highest characteristic
-    frequency): beyond that feature ``|L|`` only decreases, so the first crossings there
-    carry the largest ``|L|`` of all later ones and the unlisted ones cannot set a margin.
-    For a biproper rational part ``|L|`` never becomes negligible; the end is then just
-    those two turns.
+    Beyond it :func:`magnitude_bound` guarantees ``|L| ≤ 1e−3·min(1, max|L|)`` for a
+    strictly proper rational part (crossings there are at least 60 dB from mattering);
+    for a biproper one, whose ``|L|`` tends to ``|k| = |L(j∞)| < 1`` while the delay keeps
+    turning it, ``|L| ≤ min(1.01·|k|, (1 + |k|)/2)``: no gain crossing lies beyond, and
+    phase crossings there are within 0.09 dB of the limit carried by the ω = ∞ entry.
     """
     rat = loop.rational
-    chars = characteristic_frequencies(loop, with_delay=False)
-    hi_rat = 100.0 * float(chars.max()) if chars.size else 0.0
-    if log_grid is None:
-        lo, hi = frequency_range(loop)
-        log_grid = np.logspace(math.log10(lo), math.log10(hi), 400)
+    lo, hi = frequency_range(loop)
+    log_grid = np.logspace(math.log10(lo), math.log10(hi), 400)
     peak = float(np.max(np.exp(log_magnitude(rat, log_grid)))) if rat.gain != 0 else 0.0
     level = NEGLIGIBLE_GAIN * min(1.0, peak) if peak > 0 else NEGLIGIBLE_GAIN
+    if rat.relative_degree == 0:
+        k = abs(rat.gain)
+        level = max(level, min(1.01 * k, 0.5 * (1.0 + k)))
     w_neg = bound_frequency(rat, level)
-    end = hi_rat + 4.0 * math.pi / loop.delay_s
-    return max(end, w_neg) if w_neg is not None else end
+    if w_neg is None:                                   # improper or neutral
+        w_neg = hi
+    return max(w_neg, 4.0 * math.pi / loop.delay_s)
+
+
+def span_points(loop: Loop, lo: float, hi: float,
+                      points_per_decade: int = DEFAULT_POINTS_PER_DECADE) -> FloatArray:
+    """Log points and uniform delay points (``Δω·T = 0.1``, at most 20 000) in (lo, hi]."""
+    n = int(math.ceil(points_per_decade * math.log10(hi / lo))) + 1
+    parts = [np.logspace(math.log10(lo), math.log10(hi), n)[1:]]
+    if loop.has_delay:
+        u = _uniform_delay_points(loop.delay_s, hi - lo, MAX_DELAY_POINTS) + lo
+        parts.append(u[u <= hi])
+    return np.unique(np.concatenate(parts))
 
 
 def _resonance_points(zpk: Zpk, lo: float, offsets: FloatArray,
@@ -204,15 +216,11 @@ def loop_grid(loop: Loop, points_per_decade: int = DEFAULT_POINTS_PER_DECADE) ->
     lo, hi = frequency_range(loop)
     if loop.has_delay:
         hi = delay_grid_end(loop)
-    decades = math.log10(hi / lo)
-    base = np.logspace(math.log10(lo), math.log10(hi),
-                       int(math.ceil(points_per_decade * decades)) + 1)
     n_cluster = int(2 * _CLUSTER_HALF_WIDTH * _CLUSTER_POINTS_PER_UNIT) + 1
-    parts = [base, *_resonance_points(
-        rat, lo, np.linspace(-_CLUSTER_HALF_WIDTH, _CLUSTER_HALF_WIDTH, n_cluster),
-        np.logspace(-12, -1, 111))]
-    if loop.has_delay:
-        parts.append(_uniform_delay_points(loop.delay_s, hi, MAX_DELAY_POINTS))
+    parts = [np.array([lo]), span_points(loop, lo, hi, points_per_decade),
+             *_resonance_points(
+                 rat, lo, np.linspace(-_CLUSTER_HALF_WIDTH, _CLUSTER_HALF_WIDTH, n_cluster),
+                 np.logspace(-12, -1, 111))]
     return _finish(parts, rat, lo, hi)
 
 

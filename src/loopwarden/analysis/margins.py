@@ -1,7 +1,10 @@
 """Gain, phase and delay margins over every crossing of the loop.
 
 Crossings are located as sign changes on :func:`~.frequency_grid.loop_grid` and refined
-with :func:`scipy.optimize.brentq` on continuous functions of ``u = ln ω``:
+on continuous functions of ``u = ln ω`` by a bracketing solver run on all brackets at
+once (a few bisections, then Illinois false position: the root never leaves its
+bracket, as with ``scipy.optimize.brentq``, but a delay loop's hundreds of crossings cost
+one vectorised evaluation per iteration instead of a Python loop):
 
 * gain crossings on ``ln|L(jω)|`` (summed factor by factor);
 * phase crossings on ``(∠L(jω) + π)/(2π) − n`` for every integer ``n`` the continuous
@@ -20,17 +23,27 @@ import math
 from collections.abc import Callable
 
 import numpy as np
-from scipy.optimize import brentq
 
-from ..lti import FloatArray, Loop
+from ..lti import FloatArray, Loop, Zpk
 from . import frequency_grid
-from .frequency_grid import imaginary_axis_frequencies, log_magnitude, loop_grid
+from .frequency_grid import (
+    NEGLIGIBLE_GAIN,
+    bound_frequency,
+    imaginary_axis_frequencies,
+    log_magnitude,
+    loop_grid,
+    magnitude_bound,
+    span_points,
+)
 from .results import GainCrossing, Margins, PhaseCrossing
 
-__all__ = ["compute_margins", "plot_grid", "wrap_phase_margin_deg"]
+__all__ = ["bracketed_roots", "compute_margins", "gain_crossover_frequencies",
+           "phase_crossover_frequencies", "plot_grid", "wrap_phase_margin_deg"]
 
-#: Tolerance of the crossing refinement in u = ln ω (relative in ω).
+#: Tolerance of the crossing refinement in u = ln ω (so relative in ω).
 _XTOL = 1e-14
+_BISECTIONS = 6
+_MAX_ITER = 200
 #: Crossings closer than this (relative) are one crossing found from two grid steps.
 _SAME_CROSSING_RTOL = 1e-9
 
@@ -41,16 +54,60 @@ def wrap_phase_margin_deg(phase_deg: FloatArray | float) -> FloatArray:
     return x - 360.0 * np.ceil((x - 180.0) / 360.0)
 
 
+def bracketed_roots(fn: Callable[[FloatArray, FloatArray], FloatArray],
+                    a: FloatArray, b: FloatArray, xtol: float = _XTOL) -> FloatArray:
+    """Roots of ``fn(u, i)`` in every bracket ``[a_i, b_i]``, all brackets at once.
+
+    ``fn(u, i)`` evaluates the function of bracket ``i`` (integer array) at ``u``; each
+    bracket must hold a sign change or a zero at an end.  A few bisections, then Illinois
+    false position; the iterate never leaves the bracket.  Converged when a step moves
+    less than ``xtol·max(1, |u|)``.
+    """
+    a = np.array(a, dtype=float)
+    b = np.array(b, dtype=float)
+    n = a.size
+    everyone = np.arange(n)
+    fa, fb = fn(a, everyone), fn(b, everyone)
+    root = np.where(fa == 0, a, np.where(fb == 0, b, 0.5 * (a + b)))
+    active = (fa != 0) & (fb != 0)
+    side = np.zeros(n, dtype=int)
+    for it in range(_MAX_ITER):
+        idx = np.flatnonzero(active)
+        if idx.size == 0:
+            break
+        ai, bi, fai, fbi = a[idx], b[idx], fa[idx], fb[idx]
+        mid = 0.5 * (ai + bi)
+        if it < _BISECTIONS:
+            c = mid
+        else:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                c = (ai * fbi - bi * fai) / (fbi - fai)
+            outside = ~np.isfinite(c) | (c <= np.minimum(ai, bi)) | (c >= np.maximum(ai, bi))
+            c = np.where(outside, mid, c)
+        fc = fn(c, idx)
+        step = np.abs(c - root[idx])
+        root[idx] = c
+        hit = fc == 0
+        same_b = (np.sign(fc) == np.sign(fbi)) & ~hit
+        same_a = ~same_b & ~hit
+        # Illinois: halve the value kept at the end that did not move twice in a row.
+        fa[idx[same_b & (side[idx] == -1)]] *= 0.5
+        fb[idx[same_a & (side[idx] == 1)]] *= 0.5
+        b[idx[same_b]], fb[idx[same_b]] = c[same_b], fc[same_b]
+        a[idx[same_a]], fa[idx[same_a]] = c[same_a], fc[same_a]
+        side[idx[same_b]] = -1
+        side[idx[same_a]] = 1
+        width = np.abs(b[idx] - a[idx])
+        tol = xtol * np.maximum(1.0, np.abs(c))
+        converged = hit | (width <= tol) | ((it >= _BISECTIONS) & (step <= tol))
+        active[idx[converged]] = False
+    return root
+
+
 def _valid_steps(w: FloatArray, axis: FloatArray) -> FloatArray:
     """Mask of grid steps ``[w_i, w_{i+1}]`` that contain no imaginary-axis root."""
     seg = np.searchsorted(axis, w)
     return seg[:-1] == seg[1:]
-
-
-def _refine(fn: Callable[[float], float], a: FloatArray, b: FloatArray) -> FloatArray:
-    """Roots of ``fn(u)`` in each bracket ``[ln a_i, ln b_i]`` (returned as ω)."""
-    roots = [brentq(fn, math.log(x), math.log(y), xtol=_XTOL) for x, y in zip(a, b, strict=True)]
-    return np.exp(np.asarray(roots, dtype=float))
 
 
 def _dedupe(w: FloatArray) -> FloatArray:
@@ -74,23 +131,16 @@ def gain_crossover_frequencies(loop: Loop, w: FloatArray | None = None) -> Float
              & np.isfinite(f[:-1]) & np.isfinite(f[1:]))
     idx = np.flatnonzero(steps)
 
-    def fn(u: float) -> float:
-        return float(log_magnitude(rat, np.array([math.exp(u)]))[0])
+    def fn(u: FloatArray, _: FloatArray) -> FloatArray:
+        return log_magnitude(rat, np.exp(u))
 
-    return _dedupe(_refine(fn, w[idx], w[idx + 1]))
+    return _dedupe(np.exp(bracketed_roots(fn, np.log(w[idx]), np.log(w[idx + 1]))))
 
 
-def phase_crossover_frequencies(loop: Loop, w: FloatArray | None = None) -> FloatArray:
-    """Every frequency 0 < ω < ∞ (rad/s) on the grid's span where ∠L = −180° mod 360°."""
-    rat = loop.rational
-    if rat.gain == 0:
-        return np.zeros(0)
-    if w is None:
-        w = loop_grid(loop)
-    delay = loop.delay_s
-
+def _phase_crossings_on(rat: Zpk, delay_s: float, w: FloatArray) -> FloatArray:
+    """Phase crossings inside the span of grid ``w`` (rad/s)."""
     def phase(x: FloatArray) -> FloatArray:
-        return rat.phase_rad(x) - x * delay
+        return rat.phase_rad(x) - x * delay_s
 
     g = (phase(w) + math.pi) / (2.0 * math.pi)
     lo = np.minimum(g[:-1], g[1:])
@@ -100,17 +150,45 @@ def phase_crossover_frequencies(loop: Loop, w: FloatArray | None = None) -> Floa
     count = np.floor(hi) - first + 1.0
     count[~_valid_steps(w, imaginary_axis_frequencies(rat))] = 0.0
     count = np.maximum(count, 0.0).astype(int)
-    idx = np.repeat(np.arange(count.size), count)
-    offsets = np.arange(idx.size) - np.repeat(np.cumsum(count) - count, count)
-    targets = first[idx] + offsets
-    roots = []
-    for i, n in zip(idx, targets, strict=True):
-        def fn(u: float, n: float = n) -> float:
-            ph = phase(np.array([math.exp(u)]))[0]
-            return float((ph + math.pi) / (2.0 * math.pi) - n)
+    step = np.repeat(np.arange(count.size), count)
+    offsets = np.arange(step.size) - np.repeat(np.cumsum(count) - count, count)
+    targets = first[step] + offsets
 
-        roots.append(brentq(fn, math.log(w[i]), math.log(w[i + 1]), xtol=_XTOL))
-    return _dedupe(np.exp(np.asarray(roots, dtype=float)))
+    def fn(u: FloatArray, i: FloatArray) -> FloatArray:
+        return (phase(np.exp(u)) + math.pi) / (2.0 * math.pi) - targets[i]
+
+    return np.exp(bracketed_roots(fn, np.log(w[step]), np.log(w[step + 1])))
+
+
+def phase_crossover_frequencies(loop: Loop, w: FloatArray | None = None) -> FloatArray:
+    """Frequencies 0 < ω < ∞ (rad/s) where ∠L = −180° mod 360°, ascending.
+
+    Every one for a rational loop.  For a delay loop, whose crossings never end, the grid
+    is extended until :func:`~.frequency_grid.magnitude_bound` shows that every crossing
+    beyond it has ``|L|`` no larger than the largest ``|L| ≤ 1`` found, so the upper gain
+    margin is decided by a listed crossing.
+    """
+    rat = loop.rational
+    if rat.gain == 0:
+        return np.zeros(0)
+    if w is None:
+        w = loop_grid(loop)
+    found = [_phase_crossings_on(rat, loop.delay_s, w)]
+    end = float(w[-1])
+    while loop.has_delay and rat.relative_degree > 0:
+        mags = np.exp(log_magnitude(rat, np.concatenate(found)))
+        upper = mags[mags <= 1.0]
+        m_up = float(upper.max()) if upper.size else 0.0
+        if m_up > 0 and m_up >= magnitude_bound(rat, end):
+            break
+        new_end = (bound_frequency(rat, m_up) if m_up > 0 else None) or 2.0 * end
+        new_end = max(new_end, 1.01 * end)
+        if new_end > 1e300:
+            break
+        ext = np.concatenate([[end], span_points(loop, end, new_end)])
+        found.append(_phase_crossings_on(rat, loop.delay_s, ext))
+        end = new_end
+    return _dedupe(np.concatenate(found))
 
 
 def _endpoint_crossings(loop: Loop) -> list[PhaseCrossing]:
@@ -154,9 +232,10 @@ def compute_margins(loop: Loop) -> Margins:
     Notes
     -----
     The margins are computed whether or not the closed loop is stable; they describe the
-    distance to instability only for a stable loop.  For a delay loop, phase crossings
-    beyond :func:`~.frequency_grid.delay_grid_end` are not listed: there ``|L|`` is below
-    ``1e-3·min(1, max|L|)`` and smaller than at the listed ones.
+    distance to instability only for a stable loop.  A delay loop has infinitely many
+    phase crossings; those listed are the ones whose ``|L|`` is at least 1e−3 times that
+    of the crossing setting the upper margin (the others are more than 60 dB from
+    mattering), found as :func:`phase_crossover_frequencies` describes.
     """
     rat = loop.rational
     w = loop_grid(loop)
@@ -175,6 +254,10 @@ def compute_margins(loop: Loop) -> Margins:
     upper = [c for c in phases if c.magnitude <= 1.0]
     lower = [c for c in phases if c.magnitude > 1.0]
     gm = min(upper, key=lambda c: c.gain_margin_db) if upper else None
+    if loop.has_delay and gm is not None:
+        # A delay turns L for ever; list only crossings within 60 dB of the upper margin.
+        floor = NEGLIGIBLE_GAIN * gm.magnitude
+        phases = [c for c in phases if c.magnitude >= floor]
     gm_low = max(lower, key=lambda c: c.gain_margin_db) if lower else None
     # The wrapped margin is the smallest phase rotation, either way, that reaches −1 at that
     # crossing; the loop's margin is the crossing where that rotation is smallest.
