@@ -20,7 +20,7 @@ from ..errors import AnalysisError
 from ..lti import FloatArray, Loop, Zpk
 from .closed_loop import reference_to_output
 from .results import SlowPair, SlowTail, StepResult
-from .time_response import RATIONAL_STEPS, RationalResponse, settling_time
+from .time_response import RationalResponse, grid_steps, settling_time
 
 __all__ = ["CRITERIA", "NEAR_RATIO", "SLOW_RATIO", "find_pairs", "slow_tail", "step_residue"]
 
@@ -163,7 +163,8 @@ def slow_tail(loop: Loop, step: StepResult, band: float) -> SlowTail:
     without = settling
     if pairs:
         resp = RationalResponse.of_loop(loop)
-        t, y, _ = resp.on_grid(step.metrics.horizon_s, RATIONAL_STEPS)
+        horizon = step.metrics.horizon_s
+        t, y, _ = resp.on_grid(horizon, grid_steps(t_ref, horizon, final, band))
         reduced = y - _terms(t, pairs, residues)
 
         def exact(s: float) -> float:

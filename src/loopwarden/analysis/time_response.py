@@ -35,12 +35,16 @@ from .results import StepMetrics, StepResult, TimeSeries
 __all__ = [
     "RationalResponse",
     "crossing_time",
+    "grid_steps",
     "settling_time",
     "step_response",
 ]
 
-#: Samples of the fine grid for rational loops (exact at every sample).
+#: Samples of the fine grid for rational loops (exact at every sample): at least this many,
+#: more when a significant mode needs them (``|p|·h ≤ RATIONAL_STEP_PER_RAD``), at most the cap.
 RATIONAL_STEPS = 100_000
+RATIONAL_MAX_STEPS = 1_000_000
+RATIONAL_STEP_PER_RAD = 0.1
 #: Fewest and most steps of the delay simulation.
 DELAY_MIN_STEPS = 20_000
 DELAY_MAX_STEPS = 2_000_000
@@ -350,6 +354,20 @@ def _horizon(poles: NDArray[np.complex128], amp: FloatArray, final: float,
     return horizon
 
 
+def grid_steps(t_ref: Zpk, horizon_s: float, final: float, band: float) -> int:
+    """Fine-grid size for a rational loop: every significant mode sampled densely.
+
+    A mode counts when its step-response term exceeds the horizon floor; the grid then
+    resolves its oscillation or decay (``|p|·h ≤ 0.1``) so that the first crossing and the
+    largest peak are bracketed by neighbouring samples before they are refined.
+    """
+    poles, amp = _mode_amplitudes(t_ref)
+    floor = HORIZON_TAIL_FRACTION * band * abs(final)
+    fast = max((abs(p) for p, a in zip(poles, amp, strict=True) if a > floor), default=0.0)
+    need = math.ceil(horizon_s * fast / RATIONAL_STEP_PER_RAD)
+    return int(min(max(RATIONAL_STEPS, need), RATIONAL_MAX_STEPS))
+
+
 # --------------------------------------------------------------------------- metrics
 def crossing_time(t: FloatArray, y: FloatArray, level: float, k: int,
                   exact: Callable[[float], float] | None = None) -> float:
@@ -518,7 +536,7 @@ def step_response(loop: Loop, band: float) -> StepResult:
         if loop.has_delay:
             t, y, e = _delay_run(loop, horizon, poles, amp, final, band)
         else:
-            t, y, e = rational.on_grid(horizon, RATIONAL_STEPS)
+            t, y, e = rational.on_grid(horizon, grid_steps(t_ref, horizon, final, band))
         if _settled(t, y, final, band):
             break
         horizon *= 2.0
