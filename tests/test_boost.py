@@ -252,3 +252,67 @@ den = [1.0, 5.0]
 """
     loop, stages = loop_and_stages(text)
     assert find_boosts(loop, stages, compute_margins(loop), 0.1) == ()
+
+
+def lag_design(plant: str, gain: float, zero: float, pole: float, extra: str = "") -> str:
+    return f"""
+[design]
+name = "new lag loop"
+[plant]
+{plant}
+[[controller]]
+type = "gain"
+k = {gain!r}
+[[controller]]
+type = "lag"
+zero = {zero!r}
+pole = {pole!r}
+{extra}
+"""
+
+
+# Lag loops that are not in the repository (our own scenarios, rad/s).
+NEW_LAG_DESIGNS = [
+    pytest.param(lag_design("zpk = { poles = [0.0, -5.0], gain = 20.0 }", 1.0, 0.2, 0.02),
+                 id="conveyor-axis"),
+    pytest.param(lag_design("zpk = { poles = [-1.0, -5.0], gain = 20.0 }", 2.0, 0.3, 0.03),
+                 id="tank-level-type0"),
+    pytest.param(lag_design("tf = { num = [9.0], den = [1.0, 2.0, 9.0, 0.0] }", 0.5, 0.05,
+                            0.005), id="gimbal-resonant"),
+    pytest.param(lag_design("zpk = { poles = [0.0, -2.0], gain = 1.0 }\ndelay = 0.05", 3.0,
+                            0.1, 0.025), id="pump-with-delay"),
+]
+
+
+@pytest.mark.parametrize("text", NEW_LAG_DESIGNS)
+def test_new_lag_loops_band_edges(text):
+    # issue: DC boost exact, band edges within 2 % of an independent computation
+    # (python-control responses, the delay applied as e^{−jωT}, scipy brentq).
+    d = design(text)
+    loop, stages = d.loop(d.variants[0]), d.controller
+    (boost,) = find_boosts(loop, stages, compute_margins(loop), None)
+    lag = stages[1]
+    assert boost.dc_boost == pytest.approx(lag.params["zero"] / lag.params["pole"], rel=1e-14)
+    factor = independent_factor(text, lag.index)
+    delay = d.variants[0].delay_s
+    with_sys = control.zpk(loop.rational.zeros, loop.rational.poles, loop.rational.gain)
+    lag_sys = control.zpk(lag.model.zeros, lag.model.poles, lag.model.gain)
+
+    def delayed_factor(w: float) -> float:
+        if delay == 0:
+            return factor(w)
+        lw = with_sys(1j * w) * np.exp(-1j * w * delay)
+        return abs(1 + lw) / abs(1 + lw / lag_sys(1j * w))
+
+    low = 1e-3 * lag.params["pole"]
+    for level, got in ((2.0, boost.band_2x_rad_s), (math.sqrt(2.0), boost.band_3db_rad_s)):
+        if delayed_factor(low) < level:
+            assert got is None
+            continue
+        # first drop below the level, bracketed on a fine log grid
+        grid = np.logspace(math.log10(low), math.log10(100 * lag.params["zero"]), 4000)
+        vals = np.array([delayed_factor(w) for w in grid])
+        k = int(np.flatnonzero(vals < level)[0])
+        ref = edge(delayed_factor, level, grid[k - 1], grid[k])
+        assert got == pytest.approx(ref, rel=0.02)
+        assert got == pytest.approx(ref, rel=1e-8)

@@ -214,3 +214,63 @@ pole = 0.01
     pm = 180.0 + math.degrees(np.angle(sys(1j * wc)) - wc * 0.3)
     assert alt.margins.phase_margin_deg == pytest.approx(pm, abs=1e-4)
     assert pm >= margins.phase_margin_deg - 1e-6
+
+
+def lag_design(plant: str, gain: float, zero: float, pole: float) -> str:
+    return f"""
+[design]
+name = "new lag loop"
+[plant]
+{plant}
+[[controller]]
+type = "gain"
+k = {gain!r}
+[[controller]]
+type = "lag"
+zero = {zero!r}
+pole = {pole!r}
+"""
+
+
+@pytest.mark.parametrize("text", [
+    # lag loops that are not in the repository (our own scenarios)
+    pytest.param(lag_design("zpk = { poles = [0.0, -5.0], gain = 20.0 }", 1.0, 0.2, 0.02),
+                 id="conveyor-axis"),
+    pytest.param(lag_design("zpk = { poles = [-1.0, -5.0], gain = 20.0 }", 2.0, 0.3, 0.03),
+                 id="tank-level-type0"),
+    pytest.param(lag_design("tf = { num = [9.0], den = [1.0, 2.0, 9.0, 0.0] }", 0.5, 0.05,
+                            0.005), id="gimbal-resonant"),
+])
+def test_new_lag_loops_alternative(text):
+    # issue: an integral alternative one system type higher, with its phase margin.
+    # Independent: python-control margins of the same loop, and a python-control scan of
+    # the phase margin over gain factors 1e-3…1 to know whether the target is reachable.
+    d, loop, margins, boosts = setup(text)
+    (alt,) = integral_alternatives(loop, d.controller, boosts, margins,
+                                   min_phase_margin_deg=30.0, settling_band=BAND)
+    assert alt.tracking.system_type == compute_tracking(loop).system_type + 1
+    base = integral_loop(loop, d.controller, 2)
+    tuned = base.scaled(alt.gain_factor)
+    pm, gm = pc_margins(tuned)
+    assert alt.margins.phase_margin_deg == pytest.approx(pm, abs=1e-4)
+    assert alt.margins.gain_margin_db == pytest.approx(gm, abs=1e-4)
+    target = max(margins.phase_margin_deg, 30.0)
+    scan = []
+    for k in np.logspace(-3, 0, 601):
+        lo = base.scaled(k).rational
+        cl = control.feedback(control.zpk(lo.zeros, lo.poles, lo.gain), 1)
+        if np.max(np.real(control.poles(cl))) < 0:
+            scan.append(pc_margins(base.scaled(k))[0])
+    best = max(scan)
+    if best >= target:
+        assert alt.meets_target and pm >= target - 1e-6
+        if alt.gain_factor < 1:
+            assert pc_margins(base.scaled(alt.gain_factor * 1.001))[0] < target
+    else:
+        # e.g. the resonant gimbal: 78.29° now, at most ≈ 77.8° with integral action
+        assert not alt.meets_target
+        assert pm >= best - 1e-3
+    lo = tuned.rational
+    cl = control.feedback(control.zpk(lo.zeros, lo.poles, lo.gain), 1)
+    assert np.max(np.real(control.poles(cl))) < 0
+    assert alt.closed_loop_stable

@@ -16,6 +16,7 @@ import math
 from collections.abc import Sequence
 
 import numpy as np
+from scipy import optimize
 
 from ..design.model import Stage
 from ..errors import AnalysisError
@@ -73,7 +74,8 @@ def _phase_margin_if_stable(loop: Loop) -> tuple[bool, Margins | None]:
 
 
 def _choose_gain(base: Loop, target_deg: float) -> tuple[float, bool]:
-    """Highest factor in :data:`GAIN_RANGE` meeting the target; else the best stable one.
+    """Highest factor in :data:`GAIN_RANGE` meeting the target; else the one with the
+    largest phase margin among the stable ones.
 
     Returns the factor and whether it meets the target.
     """
@@ -107,7 +109,22 @@ def _choose_gain(base: Loop, target_deg: float) -> tuple[float, bool]:
     if best is None:
         raise AnalysisError(f"no gain factor in [{lo:g}, {hi:g}] makes the integral "
                             "alternative closed-loop stable")
-    return best[1], False
+    return _best_reachable(base, best[1], grid), False
+
+
+def _best_reachable(base: Loop, k_best: float, grid: np.ndarray) -> float:
+    """Refine the grid's best phase margin between the neighbouring grid gains."""
+    step = math.log(grid[0] / grid[1])
+    lo = max(math.log(k_best) - step, math.log(grid[-1]))
+    hi = min(math.log(k_best) + step, math.log(grid[0]))
+
+    def neg_pm(logk: float) -> float:
+        stable, m = _phase_margin_if_stable(base.scaled(math.exp(logk)))
+        return -m.phase_margin_deg if stable and m is not None else math.inf
+
+    res = optimize.minimize_scalar(neg_pm, bounds=(lo, hi), method="bounded",
+                                   options={"xatol": 1e-6})
+    return math.exp(res.x) if res.fun <= neg_pm(math.log(k_best)) else k_best
 
 
 def _num(x: float) -> str:
