@@ -44,7 +44,7 @@ _CLUSTER_POINTS_PER_UNIT = 20
 DELAY_STEP_RAD = 0.1
 #: At most this many uniform points for a delay; beyond it the spacing grows.
 MAX_DELAY_POINTS = 20_000
-#: Phase crossings where |L| is below this (relative to min(1, max|L|)) are not listed.
+#: A loop gain this far (relative) below what matters is negligible: 60 dB.
 NEGLIGIBLE_GAIN = 1e-3
 
 
@@ -117,19 +117,19 @@ def magnitude_bound(zpk: Zpk, r: float) -> float:
     return math.exp(min(log_b, 700.0))
 
 
-def bound_frequency(zpk: Zpk, level: float, start_rad_s: float = 0.0) -> float | None:
+def bound_frequency(zpk: Zpk, level: float) -> float | None:
     """A frequency beyond which ``|G(s)| ≤ level`` for every ``|s| ≥`` it (rad/s).
 
-    Found by doubling from ``max(start, 2·max|root|)`` on :func:`magnitude_bound`, so it
-    overshoots the smallest such radius by at most a factor 2.  None when ``|G|`` does not
-    fall below ``level`` (biproper with ``|G(∞)| ≥ level``, or improper).
+    Found by doubling from ``2·max|root|`` on :func:`magnitude_bound`, so it overshoots
+    the smallest such radius by at most a factor 2.  None when ``|G|`` does not fall below
+    ``level`` (biproper with ``|G(∞)| ≥ level``, or improper); 0 when ``G = 0``.
     """
     if zpk.gain == 0:
-        return max(start_rad_s, 0.0)
+        return 0.0
     if zpk.relative_degree < 0 or (zpk.relative_degree == 0 and abs(zpk.gain) >= level):
         return None
     roots = np.abs(np.concatenate([zpk.zeros, zpk.poles]))
-    r = max(start_rad_s, 2.0 * float(roots.max()) if roots.size else 0.0, 1e-300)
+    r = max(2.0 * float(roots.max()) if roots.size else 0.0, 1e-300)
     while r < 1e300:
         if magnitude_bound(zpk, r) <= level:
             return r
@@ -161,7 +161,7 @@ def delay_grid_end(loop: Loop) -> float:
 
 
 def span_points(loop: Loop, lo: float, hi: float,
-                      points_per_decade: int = DEFAULT_POINTS_PER_DECADE) -> FloatArray:
+                points_per_decade: int = DEFAULT_POINTS_PER_DECADE) -> FloatArray:
     """Log points and uniform delay points (``Δω·T = 0.1``, at most 20 000) in (lo, hi]."""
     n = int(math.ceil(points_per_decade * math.log10(hi / lo))) + 1
     parts = [np.logspace(math.log10(lo), math.log10(hi), n)[1:]]
@@ -237,8 +237,8 @@ def plot_grid(loop: Loop, max_points: int = 2000) -> FloatArray:
 
     Same construction as :func:`loop_grid` with fewer points: at most 1200 log points over
     :func:`plot_range`, 41 points across each lightly damped root (densest at its peak,
-    reaching ±10·|Re r|), and for a delay loop up
-    to 400 uniform points until ``|L|`` falls below 0.01.
+    reaching ±10·|Re r|), and for a delay loop up to 400 uniform points until ``|L|``
+    falls below 0.01.
     """
     rat = loop.rational
     lo, hi = plot_range(loop)

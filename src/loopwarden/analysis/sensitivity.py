@@ -26,8 +26,9 @@ from .results import Sensitivity
 
 __all__ = ["compute_sensitivity", "disk_ranges"]
 
-#: How many of the largest grid maxima are refined.
+#: How many of the largest grid maxima are refined at least, and at most.
 _CANDIDATES = 6
+_MAX_CANDIDATES = 12
 _XATOL = 1e-12
 _TIE_RTOL = 1e-12
 
@@ -76,7 +77,12 @@ def _peak(fn: Callable[[ComplexArray], FloatArray], l_grid: ComplexArray, w: Flo
         return math.inf, float(w[i])
     interior = np.flatnonzero(np.r_[True, vals[1:] >= vals[:-1]]
                               & np.r_[vals[:-1] >= vals[1:], True])
-    interior = interior[np.argsort(vals[interior])[::-1][:_CANDIDATES]]
+    # Refine the largest grid maxima and any other within 0.1 % of the best: the grid value
+    # of a peak is low by its curvature times the squared spacing, never by more.
+    ranked = interior[np.argsort(vals[interior])[::-1]]
+    close = vals[ranked] >= 0.999 * vals[ranked[0]] if ranked.size else ranked.astype(bool)
+    keep = np.arange(ranked.size) < _CANDIDATES
+    interior = ranked[(keep | close)][:_MAX_CANDIDATES]
     u = np.log(w)
 
     def neg(x: float) -> float:

@@ -115,7 +115,7 @@ class NyquistCount:
     contour_points: int
 
 
-@dataclass(slots=True)
+@dataclass(frozen=True, slots=True)
 class _Piece:
     """Part of the contour: ``s = j·t`` (lin), ``s = j·e^t`` (log), ``c + ρ·e^{jt}`` (arc)."""
 
@@ -160,7 +160,6 @@ def _refine(piece: _Piece, fn: Callable[[ComplexArray], ComplexArray]) -> Comple
         bad = ((np.abs(np.diff(f)) > _STEP_RTOL * near) & (near > MARGINAL_RETURN_DIFFERENCE)
                & (dt > 1e-13 * np.maximum(1.0, np.abs(t[:-1]))))
         if not bad.any():
-            piece.t = t
             return f
         mid = 0.5 * (t[:-1][bad] + t[1:][bad])
         t = np.concatenate([t, mid])
@@ -286,9 +285,11 @@ def nyquist_count(loop: Loop) -> NyquistCount:
     values = np.concatenate([_refine(p, fn) for p in pieces])
     min_rd = float(np.min(np.abs(values)))
     with np.errstate(divide="ignore", invalid="ignore"):
-        half = float(np.sum(np.angle(values[1:] / values[:-1])))
+        half = float(np.nansum(np.angle(values[1:] / values[:-1])))
     winding = (2.0 * half - 2.0 * float(np.angle(values[-1] / c))) / (2.0 * math.pi)
-    if min_rd > 0 and abs(winding - round(winding)) > 1e-6:
+    # With 1 + L vanishing on the contour (a root on the axis) the count is ambiguous and
+    # the loop marginal; otherwise the refined contour must give an integer.
+    if min_rd > MARGINAL_RETURN_DIFFERENCE and abs(winding - round(winding)) > 1e-6:
         raise AnalysisError(f"Nyquist winding number {winding:.6f} is not an integer")
     n_cw = -int(round(winding))
     return NyquistCount(
