@@ -11,7 +11,9 @@ step is ``h = delay/N`` with integer N so that the delay is exactly N samples of
 and the delay-free part is discretised exactly for an input that is linear over each step
 (first-order hold on the delayed signal; the reference step and ramp are represented
 exactly).  Jumps of the controller output (a proportional path seeing the reference step)
-are kept as left and right values, so the delayed jump is not smeared over a step.
+are kept as left and right values, so the delayed jump is not smeared over a step.  The
+samples are advanced 64 at a time by one linear solve, which gives the same numbers as a
+step-by-step loop at a small fraction of the cost.
 
 A Padé copy of the delay is used only to estimate how long to simulate; the horizon is
 extended when the simulated response has not clearly settled.
@@ -166,7 +168,27 @@ def _foh_discretise(a: NDArray[np.float64], b: NDArray[np.float64], h: float,
     return e[:n, :n], e[:n, n:n + m], e[:n, n + m:]
 
 
-def _delay_block_solver(split: StateSpace, n_delay: int, h: float, block: int):
+@dataclass(frozen=True)
+class _BlockMaps:
+    """Linear maps of one block of the sampled delay loop (see :func:`_delay_block_maps`).
+
+    ``hu[k]``/``hy[k]``: block × block lower-triangular Toeplitz maps from an input
+    direction k ("r0", "r1", "w0", "w1") to u and y at the block's samples; ``cu_pow``,
+    ``cy_pow``: from the block's initial state; ``end[k]``, ``phi_b``: to the state at the
+    block's end; ``solve``: inverse of the coupling of the block's own u samples.
+    """
+
+    phi_b: NDArray[np.float64]
+    hu: dict[str, NDArray[np.float64]]
+    hy: dict[str, NDArray[np.float64]]
+    cu_pow: NDArray[np.float64]
+    cy_pow: NDArray[np.float64]
+    end: dict[str, NDArray[np.float64]]
+    solve: NDArray[np.float64]
+    d: NDArray[np.float64]                 # [[Dyr, Dyw], [Dur, Duw]]
+
+
+def _delay_block_maps(split: StateSpace, n_delay: int, h: float, block: int) -> _BlockMaps:
     """Matrices advancing the sampled delay loop by ``block`` steps at once.
 
     The discrete equations are those of a step-by-step simulation: the state advances by
@@ -208,8 +230,7 @@ def _delay_block_solver(split: StateSpace, n_delay: int, h: float, block: int):
         return sel
 
     s_p, s_m, s_ps = select(i - n_delay), select(i + 1 - n_delay), select(i + 1 - n_delay)
-    dyr, dyw = split.d[0]
-    dur, duw = split.d[1]
+    duw = split.d[1, 1]
     eye = np.eye(block)
     m = np.block([[(hu["w1"] + duw * eye) @ s_m, hu["w0"] @ s_p],
                   [hu["w1"] @ s_m, hu["w0"] @ s_p + duw * s_ps]])
@@ -217,8 +238,8 @@ def _delay_block_solver(split: StateSpace, n_delay: int, h: float, block: int):
     # strictly causal), so its inverse is well conditioned; one product per block is cheaper
     # than a triangular solve call.
     solve = np.linalg.inv(np.eye(2 * block) - m)
-    return {"phi_b": powers[block], "hu": hu, "hy": hy, "cu_pow": cu_pow, "cy_pow": cy_pow,
-            "end": end, "solve": solve, "dyr": dyr, "dyw": dyw, "dur": dur, "duw": duw}
+    return _BlockMaps(phi_b=powers[block], hu=hu, hy=hy, cu_pow=cu_pow, cy_pow=cy_pow,
+                      end=end, solve=solve, d=split.d)
 
 
 def _simulate_delay(split: StateSpace, delay_s: float, h: float, steps: int,
@@ -231,9 +252,9 @@ def _simulate_delay(split: StateSpace, delay_s: float, h: float, steps: int,
     n_delay = round(delay_s / h)
     block = DELAY_BLOCK
     steps = math.ceil(steps / block) * block
-    mats = _delay_block_solver(split, n_delay, h, block)
-    hu, hy, end = mats["hu"], mats["hy"], mats["end"]
-    dyr, dyw, dur, duw = mats["dyr"], mats["dyw"], mats["dur"], mats["duw"]
+    maps = _delay_block_maps(split, n_delay, h, block)
+    hu, hy, end = maps.hu, maps.hy, maps.end
+    (dyr, dyw), (dur, duw) = maps.d
     t = np.arange(steps + 1) * h
     r_plus = np.column_stack([np.ones(steps + 1), t])      # columns: step run, ramp run
     r_minus = r_plus.copy()
@@ -261,10 +282,10 @@ def _simulate_delay(split: StateSpace, delay_s: float, h: float, steps: int,
         kp = known(u_plus, k0, i - n_delay)
         km = known(u_minus, k0, i + 1 - n_delay)
         kps = known(u_plus, k0, i + 1 - n_delay)
-        c = mats["cu_pow"] @ x + hu["r0"] @ rp0 + hu["r1"] @ rm1
+        c = maps.cu_pow @ x + hu["r0"] @ rp0 + hu["r1"] @ rm1
         rhs_m = c + hu["w0"] @ kp + hu["w1"] @ km + duw * km + dur * rm1
         rhs_p = c + hu["w0"] @ kp + hu["w1"] @ km + duw * kps + dur * rp1
-        sol = mats["solve"] @ np.vstack([rhs_m, rhs_p])
+        sol = maps.solve @ np.vstack([rhs_m, rhs_p])
         um, up = sol[:block], sol[block:]
         u_minus[k0 + 1:k0 + block + 1] = um
         u_plus[k0 + 1:k0 + block + 1] = up
@@ -272,9 +293,9 @@ def _simulate_delay(split: StateSpace, delay_s: float, h: float, steps: int,
         wp = known(u_plus, k0, i - n_delay) + _inside(up, i - n_delay)
         wm = known(u_minus, k0, i + 1 - n_delay) + _inside(um, i + 1 - n_delay)
         wps = known(u_plus, k0, i + 1 - n_delay) + _inside(up, i + 1 - n_delay)
-        y[k0 + 1:k0 + block + 1] = (mats["cy_pow"] @ x + hy["r0"] @ rp0 + hy["r1"] @ rm1
+        y[k0 + 1:k0 + block + 1] = (maps.cy_pow @ x + hy["r0"] @ rp0 + hy["r1"] @ rm1
                                     + hy["w0"] @ wp + hy["w1"] @ wm + dyr * rp1 + dyw * wps)
-        x = (mats["phi_b"] @ x + end["r0"] @ rp0 + end["r1"] @ rm1 + end["w0"] @ wp
+        x = (maps.phi_b @ x + end["r0"] @ rp0 + end["r1"] @ rm1 + end["w0"] @ wp
              + end["w1"] @ wm)
     return t, y[:, 0], t - y[:, 1]
 
