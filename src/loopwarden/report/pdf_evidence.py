@@ -1,0 +1,345 @@
+"""PDF review sections 2 and 3: the evidence of each plant variant and the integral-action
+alternative beside the current design.  Every number is read from the LoopAnalysis."""
+
+from __future__ import annotations
+
+import io
+import math
+from typing import Any
+
+from reportlab.lib.units import inch, mm
+from reportlab.platypus import (
+    Image,
+    KeepTogether,
+    Paragraph,
+    Preformatted,
+    Spacer,
+    Table,
+    TableStyle,
+)
+
+from ..analysis.results import IntegralAlternative, LoopAnalysis, Margins
+from .pdf_style import (
+    FRAME_W,
+    HEAD_BG,
+    RULE,
+    ZEBRA,
+    cplx,
+    grid_style,
+    num,
+    text,
+    widths,
+    zpk_text,
+)
+from .plots import FrequencyUnit, Plot, variant_plots
+from .review import Review
+
+__all__ = ["evidence_section", "alternative_section", "grid_table"]
+
+
+def grid_table(rows: list[list[str]], st: dict[str, Any], parts: tuple[float, ...],
+               *, head: bool = True) -> Table:
+    """A data table from rows of paragraph markup (first row is the header)."""
+    data = [[Paragraph(c, st["cell_head"] if head and i == 0 else st["cell"]) for c in row]
+            for i, row in enumerate(rows)]
+    table = Table(data, colWidths=widths(*parts), repeatRows=1 if head else 0)
+    style = grid_style()
+    if not head:
+        style.add("BACKGROUND", (0, 0), (-1, 0), None)
+    table.setStyle(style)
+    return table
+
+
+def _pairs_table(items: list[tuple[str, str]], st: dict[str, Any]) -> Table:
+    """Label/value pairs laid out in two column pairs (reads down, then across)."""
+    half = math.ceil(len(items) / 2)
+    left, right = items[:half], items[half:]
+    data = []
+    for i in range(half):
+        row = [Paragraph(text(left[i][0]), st["cell_head"]), Paragraph(left[i][1], st["cell"])]
+        if i < len(right):
+            row += [Paragraph(text(right[i][0]), st["cell_head"]),
+                    Paragraph(right[i][1], st["cell"])]
+        else:
+            row += ["", ""]
+        data.append(row)
+    table = Table(data, colWidths=widths(23, 27, 23, 27))
+    style = TableStyle([
+        ("VALIGN", (0, 0), (-1, -1), "TOP"),
+        ("LINEBELOW", (0, 0), (-1, -1), 0.35, RULE),
+        ("TOPPADDING", (0, 0), (-1, -1), 2.2),
+        ("BOTTOMPADDING", (0, 0), (-1, -1), 2.2),
+        ("LEFTPADDING", (0, 0), (-1, -1), 3),
+    ])
+    for i in range(0, half, 2):
+        style.add("BACKGROUND", (0, i), (-1, i), ZEBRA)
+    table.setStyle(style)
+    return table
+
+
+def _freq(w_rad_s: float | None, unit: FrequencyUnit) -> str:
+    if w_rad_s is None:
+        return "—"
+    return f"{num(unit.show(w_rad_s))} {unit.label}"
+
+
+def _figure(plot: Plot, st: dict[str, Any]) -> KeepTogether:
+    img = Image(io.BytesIO(plot.png), width=plot.width_in * inch, height=plot.height_in * inch)
+    return KeepTogether([img, Paragraph(text(plot.caption), st["caption"])])
+
+
+def _side_by_side(a: Plot, b: Plot, st: dict[str, Any]) -> Table:
+    cells = []
+    for p in (a, b):
+        cells.append([Image(io.BytesIO(p.png), width=p.width_in * inch,
+                            height=p.height_in * inch),
+                      Paragraph(text(p.caption), st["caption"])])
+    table = Table([cells], colWidths=[FRAME_W / 2, FRAME_W / 2])
+    table.setStyle(TableStyle([("VALIGN", (0, 0), (-1, -1), "TOP"),
+                               ("LEFTPADDING", (0, 0), (-1, -1), 2),
+                               ("RIGHTPADDING", (0, 0), (-1, -1), 2)]))
+    return table
+
+
+# --------------------------------------------------------------------------- section 2
+def _stability_text(a: LoopAnalysis) -> str:
+    s = a.stability
+    word = "<b>stable</b>" if s.closed_loop_stable else "<font color='#9b0019'><b>UNSTABLE" \
+                                                        "</b></font>"
+    if s.method == "nyquist":
+        how = (f"Nyquist count: N = {s.clockwise_encirclements} clockwise encirclements, "
+               f"P = {s.open_loop_rhp_poles} open-loop RHP poles, "
+               f"Z = {s.rhp_closed_loop_poles}")
+    else:
+        how = (f"{len(s.closed_loop_poles)} closed-loop poles, "
+               f"{s.rhp_closed_loop_poles} in the closed right half-plane")
+    extra = " (a pole on the stability boundary)" if s.marginal else ""
+    note = f" {text(s.note)}" if s.note else ""
+    return f"{word}: {how}{extra}.{note}"
+
+
+def _margin_items(m: Margins, unit: FrequencyUnit) -> list[tuple[str, str]]:
+    gm = f"{num(m.gain_margin_db)} dB"
+    if m.phase_crossover_rad_s is not None:
+        gm += f" @ {_freq(m.phase_crossover_rad_s, unit)}"
+    pm = f"{num(m.phase_margin_deg)}°"
+    if m.gain_crossover_rad_s is not None:
+        pm += f" @ {_freq(m.gain_crossover_rad_s, unit)}"
+    lower = "—" if m.gain_margin_lower_db is None else f"{num(m.gain_margin_lower_db)} dB"
+    return [("Gain margin", gm), ("Gain-reduction margin", lower), ("Phase margin", pm),
+            ("Delay margin", f"{num(m.delay_margin_s)} s"),
+            ("Crossings", f"{len(m.gain_crossings)} gain, {len(m.phase_crossings)} phase")]
+
+
+def _key_figures(a: LoopAnalysis, st: dict[str, Any], unit: FrequencyUnit) -> list[Any]:
+    sens, tr = a.sensitivity, a.tracking
+    items = _margin_items(a.margins, unit)
+    items += [
+        ("Peak sensitivity Ms", f"{num(sens.peak_sensitivity)} "
+                                f"({num(20 * math.log10(sens.peak_sensitivity))} dB) @ "
+                                f"{_freq(sens.peak_sensitivity_rad_s, unit)}"),
+        ("Peak compl. Mt", f"{num(sens.peak_complementary)} @ "
+                           f"{_freq(sens.peak_complementary_rad_s, unit)}"),
+        ("Disk margin α", f"{num(sens.disk_margin)}: gain {num(sens.disk_gain_low, 3)}–"
+                          f"{num(sens.disk_gain_high, 3)}×, phase ±{num(sens.disk_phase_deg, 3)}°"),
+        ("System type", str(tr.system_type)),
+        ("Kp / Kv / Ka", f"{num(tr.kp)} / {num(tr.kv)} 1/s / {num(tr.ka)} 1/s²"),
+        ("Steady-state errors", f"step {num(tr.step_error)}, ramp {num(tr.ramp_error)}, "
+                                f"parabola {num(tr.parabola_error)}"),
+    ]
+    if a.step is not None:
+        sm = a.step
+        items += [
+            ("Step overshoot", f"{num(sm.overshoot_pct)} %"
+                               + (f" @ {num(sm.peak_time_s)} s" if sm.peak_time_s else "")),
+            ("Rise time 10–90 %", "—" if sm.rise_time_s is None else f"{num(sm.rise_time_s)} s"),
+            ("Settling time", f"{num(sm.settling_time_s)} s ({100 * sm.settling_band:g} % band, "
+                              f"{num(sm.horizon_s)} s simulated"
+                              + (", delay exact" if sm.exact_delay else "") + ")"),
+        ]
+    if a.slow_tail is not None:
+        items.append(("Settling without tail",
+                      f"{num(a.slow_tail.settling_time_without_tail_s)} s (with: "
+                      f"{num(a.slow_tail.settling_time_s)} s)"))
+    out: list[Any] = [Paragraph(f"Closed loop: {_stability_text(a)}", st["body"])]
+    intern = a.internal
+    if not intern.internally_stable:
+        canc = "; ".join(f"pole {cplx(c.pole)} of {text(c.pole_block)} against zero "
+                         f"{cplx(c.zero)} of {text(c.zero_block)}" for c in intern.cancellations)
+        out.append(Paragraph(f"<font color='#9b0019'><b>Not internally stable</b></font>: "
+                             f"{canc}.", st["body"]))
+    out.append(_pairs_table(items, st))
+    return out
+
+
+#: Phase crossings listed in full up to this many; beyond, the smallest margins only.
+MAX_LISTED_PHASE = 8
+
+
+def _crossings(a: LoopAnalysis, st: dict[str, Any], unit: FrequencyUnit) -> list[Any]:
+    m = a.margins
+    rows = [["Crossing", f"Frequency ({text(unit.label)})", "Margin", "Delay margin",
+             "Sets the figure"]]
+    phases = list(m.phase_crossings)
+    note = None
+    if len(phases) > MAX_LISTED_PHASE:
+        # A delay makes the phase cross −180° without end; the far ones have huge margins.
+        keep = sorted(phases, key=lambda p: (p.frequency_rad_s != m.phase_crossover_rad_s,
+                                             abs(p.gain_margin_db)))[:MAX_LISTED_PHASE]
+        rest = [p for p in phases if p not in keep]
+        phases = sorted(keep, key=lambda p: p.frequency_rad_s)
+        note = (f"{len(rest)} further phase crossings not listed, between "
+                f"{_freq(min(p.frequency_rad_s for p in rest), unit)} and "
+                f"{_freq(max(p.frequency_rad_s for p in rest), unit)}; their gain margins "
+                f"are all at least {num(min(abs(p.gain_margin_db) for p in rest), 3)} dB.")
+    for g in m.gain_crossings:
+        rows.append(["gain, |L| = 1", num(unit.show(g.frequency_rad_s)),
+                     f"PM {num(g.phase_margin_deg)}°", f"{num(g.delay_margin_s)} s",
+                     "yes" if g.frequency_rad_s == m.gain_crossover_rad_s else ""])
+    for p in phases:
+        rows.append(["phase, ∠L = −180°", num(unit.show(p.frequency_rad_s)),
+                     f"GM {num(p.gain_margin_db)} dB (|L| = {num(p.magnitude)})", "",
+                     "yes" if p.frequency_rad_s == m.phase_crossover_rad_s else ""])
+    if len(rows) == 1:
+        return []
+    out: list[Any] = [Paragraph("Every crossing", st["h3"]),
+                      grid_table(rows, st, (28, 22, 32, 18, 14))]
+    if note:
+        out.append(Paragraph(text(note), st["small"]))
+    return out
+
+
+def _slow_pairs(a: LoopAnalysis, st: dict[str, Any]) -> list[Any]:
+    if a.slow_tail is None or not a.slow_tail.pairs:
+        return []
+    rows = [["Slow pole", "Nearby zero", "Step residue", "Time constant", "Tail time",
+             "Ramp residue", "Ramp tail"]]
+    for p in a.slow_tail.pairs:
+        rows.append([cplx(p.pole), cplx(p.zero), num(p.residue), f"{num(p.time_constant_s)} s",
+                     f"{num(p.tail_time_s)} s", num(p.ramp_residue),
+                     f"{num(p.ramp_tail_time_s)} s"])
+    return [Paragraph("Slow pole-zero pairs", st["h3"]),
+            Paragraph(text(a.slow_tail.criteria), st["small"]), Spacer(1, 1.5 * mm),
+            grid_table(rows, st, (16, 16, 13, 14, 12, 13, 12))]
+
+
+def _boosts(a: LoopAnalysis, st: dict[str, Any], unit: FrequencyUnit) -> list[Any]:
+    if not a.boosts:
+        return []
+    rows = [["Stage", "Zero / pole", "DC boost", "≥ 2× below", "≥ 3 dB below",
+             "At reference band", "Phase cost at crossover"]]
+    for b in a.boosts:
+        cost = "; ".join(f"{num(c.phase_cost_deg, 3)}° @ {_freq(c.crossover_rad_s, unit)} "
+                         f"(zero at {num(c.zero_ratio, 3)}× ωc)" for c in b.costs) or "—"
+        at_ref = ("—" if b.improvement_at_reference_band is None
+                  else f"{num(b.improvement_at_reference_band, 3)}× smaller error")
+        rows.append([text(b.stage_name), f"{_freq(b.zero_rad_s, unit)} / "
+                                         f"{_freq(b.pole_rad_s, unit)}",
+                     f"{num(b.dc_boost, 3)}×", _freq(b.band_2x_rad_s, unit),
+                     _freq(b.band_3db_rad_s, unit), at_ref, cost])
+    return [Paragraph("Low-frequency boost stages", st["h3"]),
+            grid_table(rows, st, (18, 20, 10, 13, 13, 14, 26))]
+
+
+def evidence_section(review: Review, a: LoopAnalysis, st: dict[str, Any],
+                     unit: FrequencyUnit, *, number: str) -> list[Any]:
+    """Section 2.n: the figures and plots of one plant variant."""
+    variant = next(v for v in review.design.variants if v.name == a.variant)
+    out: list[Any] = [Paragraph(f"{number}  Evidence: {text(a.variant)}", st["h1"])]
+    plant = zpk_text(variant.model.zeros, variant.model.poles, variant.model.gain)
+    delay = f", transport delay {num(variant.delay_s)} s" if variant.delay_s else ""
+    where = "" if variant.where == "plant" else f" ({text(variant.where)})"
+    out.append(Paragraph(f"Plant{where}: P(s) = "
+                         f"<font name='LW-Mono' size='7.6'>{text(plant)}</font>{delay}.",
+                         st["body"]))
+    out += _key_figures(a, st, unit)
+    out += _crossings(a, st, unit)
+    out += _slow_pairs(a, st)
+    out += _boosts(a, st, unit)
+    if a.errors:
+        out.append(Paragraph("Not computed", st["h3"]))
+        for part, why in sorted(a.errors.items()):
+            out.append(Paragraph(f"<b>{text(part)}</b>: {text(why)}", st["small"]))
+    out.append(Spacer(1, 3 * mm))
+    plots = variant_plots(review.design, a)
+    # The square pair first: it fits under the tables more often than the tall Bode plot.
+    out.append(_side_by_side(plots["nyquist"], plots["poles"], st))
+    out.append(_figure(plots["bode"], st))
+    out.append(_figure(plots["time"], st))
+    out.append(_figure(plots["sensitivity"], st))
+    return out
+
+
+# --------------------------------------------------------------------------- section 3
+def _compare_rows(a: LoopAnalysis, alt: IntegralAlternative) -> list[list[str]]:
+    cur_m, alt_m = a.margins, alt.margins
+    cur_tail = a.slow_tail.pairs if a.slow_tail is not None else ()
+
+    def tail(pairs: tuple[Any, ...]) -> str:
+        if not pairs:
+            return "none"
+        worst = max(pairs, key=lambda p: p.tail_time_s)
+        return f"{len(pairs)}; longest tail {num(worst.tail_time_s)} s"
+
+    def step(m: Any, attr: str, unit: str) -> str:
+        return "—" if m is None else f"{num(getattr(m, attr))}{unit}"
+
+    return [
+        ["Figure", "Current design", "Integral alternative"],
+        ["Closed loop", "stable" if a.stability.closed_loop_stable else "UNSTABLE",
+         "stable" if alt.closed_loop_stable else "UNSTABLE"],
+        ["Phase margin", f"{num(cur_m.phase_margin_deg)}°", f"{num(alt_m.phase_margin_deg)}°"],
+        ["Gain margin", f"{num(cur_m.gain_margin_db)} dB", f"{num(alt_m.gain_margin_db)} dB"],
+        ["Delay margin", f"{num(cur_m.delay_margin_s)} s", f"{num(alt_m.delay_margin_s)} s"],
+        ["Ms / Mt", f"{num(a.sensitivity.peak_sensitivity)} / "
+                    f"{num(a.sensitivity.peak_complementary)}",
+         f"{num(alt.sensitivity.peak_sensitivity)} / {num(alt.sensitivity.peak_complementary)}"],
+        ["System type", str(a.tracking.system_type), str(alt.tracking.system_type)],
+        ["Kv (1/s)", num(a.tracking.kv), num(alt.tracking.kv)],
+        ["Steady ramp error", num(a.tracking.ramp_error), num(alt.tracking.ramp_error)],
+        ["Step overshoot", step(a.step, "overshoot_pct", " %"),
+         step(alt.step, "overshoot_pct", " %")],
+        ["Settling time", step(a.step, "settling_time_s", " s"),
+         step(alt.step, "settling_time_s", " s")],
+        ["Slow pairs", tail(cur_tail), tail(alt.slow_pairs)],
+        ["Overall gain factor", "1", num(alt.gain_factor)],
+    ]
+
+
+def alternative_section(review: Review, st: dict[str, Any],
+                        unit: FrequencyUnit) -> list[Any]:
+    """Section 3: each boost stage replaced by integral action, figures side by side."""
+    out: list[Any] = [
+        Paragraph("3  Integral action instead of the low-frequency boost", st["h1"]),
+        Paragraph("For each low-frequency boost stage the analysis moved the stage's pole to "
+                  "the origin (integral action) and re-tuned the loop by one overall gain "
+                  "factor so that the phase margin is kept. The table sets the result beside "
+                  "the current design on the same plant variant; the snippet replaces the "
+                  "stage in the design file.", st["body"]),
+    ]
+    shown: dict[int, str] = {}
+    for a in review.analyses:
+        for alt in a.integral_alternatives:
+            stage = next((s for s in review.design.controller if s.index == alt.stage), None)
+            name = stage.name if stage is not None else f"controller[{alt.stage}]"
+            out.append(Paragraph(f"{text(a.variant)}: {text(name)} → integral action",
+                                 st["h2"]))
+            table = grid_table(_compare_rows(a, alt), st, (30, 35, 35))
+            table.setStyle(TableStyle([("BACKGROUND", (2, 1), (2, -1), HEAD_BG)]))
+            out.append(table)
+            out.append(Spacer(1, 2 * mm))
+            if shown.get(alt.stage) == alt.snippet_toml:
+                out.append(Paragraph("Snippet: the same as for the first variant above.",
+                                     st["small"]))
+                continue
+            shown[alt.stage] = alt.snippet_toml
+            out.append(Paragraph("Design-file snippet", st["h3"]))
+            snippet = Table([[Preformatted(alt.snippet_toml.rstrip("\n"), st["mono"])]],
+                            colWidths=[FRAME_W])
+            snippet.setStyle(TableStyle([("BOX", (0, 0), (-1, -1), 0.5, RULE),
+                                         ("BACKGROUND", (0, 0), (-1, -1), HEAD_BG),
+                                         ("LEFTPADDING", (0, 0), (-1, -1), 6),
+                                         ("TOPPADDING", (0, 0), (-1, -1), 5),
+                                         ("BOTTOMPADDING", (0, 0), (-1, -1), 5)]))
+            out.append(snippet)
+    return out

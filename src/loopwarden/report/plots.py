@@ -1,0 +1,652 @@
+"""Figures for the PDF review, drawn with matplotlib (Agg, no pyplot, no global state).
+
+Every curve and marker comes from the :class:`~loopwarden.analysis.results.LoopAnalysis`
+the analysis computed; nothing here solves for a margin, a crossing or a pole.  The only
+arithmetic is presentation: dB and degrees, the design's frequency unit, the pointwise
+S = 1/(1 + L) and T = L/(1 + L) of the stored open-loop curve, the conjugate half of the
+Nyquist curve, and the tail exponential r·e^(p·t) of a slow pair the analysis found.
+
+Each ``*_figure`` function returns a :class:`Plot`: PNG bytes (deterministic: fixed DPI,
+no metadata) with the size it is meant to be printed at.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+from matplotlib.axes import Axes
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+from numpy.typing import NDArray
+
+from ..analysis.results import GainCrossing, LoopAnalysis, Margins, PhaseCrossing, SlowPair
+from ..design.model import Design
+
+#: Print resolution of every figure (the issue asks for ≥ 200 dpi raster plots).
+DPI = 200
+#: Width of a full-width figure on an A4 page with 20 mm margins, in inches.
+FULL_WIDTH_IN = 6.7
+
+# One restrained palette for every figure (colour-blind safe: blue / orange / grey).
+C_MAIN = "#1f4e79"
+C_SECOND = "#c55a11"
+C_MARK = "#7f7f7f"
+C_FAIL = "#b00020"
+C_BAND = "#2e7d32"
+
+_RC = {
+    "font.size": 7.5,
+    "axes.titlesize": 8.5,
+    "axes.labelsize": 7.5,
+    "xtick.labelsize": 7,
+    "ytick.labelsize": 7,
+    "legend.fontsize": 6.8,
+    "axes.linewidth": 0.6,
+    "lines.linewidth": 1.2,
+    "svg.hashsalt": "loopwarden",
+}
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Plot:
+    """One rendered figure: PNG bytes and the size it is printed at."""
+
+    key: str                    # "bode", "nyquist", ...
+    png: bytes
+    width_in: float
+    height_in: float
+    caption: str
+
+
+@dataclass(frozen=True, slots=True)
+class FrequencyUnit:
+    """How frequencies are shown: rad/s internally, the design's unit on paper."""
+
+    label: str                  # "rad/s" or "Hz"
+    per_rad_s: float            # multiply a rad/s value by this to get the shown unit
+
+    @classmethod
+    def of(cls, design: Design) -> FrequencyUnit:
+        if design.frequency_unit.lower() == "hz":
+            return cls("Hz", 1.0 / (2.0 * math.pi))
+        return cls("rad/s", 1.0)
+
+    def show(self, w_rad_s: float) -> float:
+        return w_rad_s * self.per_rad_s
+
+
+# --------------------------------------------------------------------------- helpers
+def _figure(width_in: float, height_in: float) -> Figure:
+    # A bare Figure with its own Agg canvas: no pyplot figure registry, nothing global.
+    fig = Figure(figsize=(width_in, height_in), dpi=DPI)
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def _place(fig: Figure, *, left: float = 0.62, right: float = 0.14, top: float = 0.3,
+           bottom: float = 0.42, rows: int = 1, cols: int = 1, hgap: float = 0.1,
+           wgap: float = 0.6) -> None:
+    """Fixed margins and gaps in inches (tight_layout costs more than the drawing)."""
+    w, h = fig.get_size_inches()
+    axes_h = (h - top - bottom - (rows - 1) * hgap) / rows
+    axes_w = (w - left - right - (cols - 1) * wgap) / cols
+    fig.subplots_adjust(left=left / w, right=1 - right / w, top=1 - top / h,
+                        bottom=bottom / h, hspace=hgap / axes_h, wspace=wgap / axes_w)
+
+
+def _png(fig: Figure) -> bytes:
+    """Draw and encode as an RGB PNG with no text chunks (same figure, same bytes).
+
+    RGB rather than matplotlib's RGBA: the figures are opaque, and an alpha channel would
+    make reportlab write a second (mask) image for every figure.
+    """
+    from PIL import Image as PILImage
+
+    fig.canvas.draw()
+    rgba = np.asarray(fig.canvas.buffer_rgba())  # type: ignore[attr-defined]
+    buf = io.BytesIO()
+    PILImage.fromarray(np.ascontiguousarray(rgba[..., :3])).save(
+        buf, format="PNG", dpi=(DPI, DPI), compress_level=1)  # reportlab re-compresses
+    return buf.getvalue()
+
+
+_SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
+
+
+def _decade(x: float, _pos: int) -> str:
+    """Log-axis label 10ⁿ in plain text (mathtext costs more than the rest of the tick)."""
+    if x <= 0:
+        return ""
+    e = math.log10(x)
+    if abs(e - round(e)) > 1e-6:
+        return ""
+    return "10" + str(int(round(e))).translate(_SUPERSCRIPT)
+
+
+def _style(ax: Axes) -> None:
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+
+    # Minor ticks at 2× and 5× per decade only: each tick is an artist, and eight per
+    # decade over six decades made the figures slow to draw without reading any better.
+    for axis, scale in ((ax.xaxis, ax.get_xscale()), (ax.yaxis, ax.get_yscale())):
+        if scale == "log":
+            axis.set_major_locator(LogLocator(base=10.0, numticks=12))
+            axis.set_major_formatter(FuncFormatter(_decade))
+            axis.set_minor_locator(LogLocator(base=10.0, subs=(2.0, 5.0), numticks=12))
+            axis.set_minor_formatter(NullFormatter())
+    ax.grid(True, which="major", linewidth=0.45, color="#d0d0d0")
+    ax.grid(True, which="minor", linewidth=0.25, color="#ececec")
+    ax.tick_params(length=2.5, width=0.5)
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+
+
+def _no_data(ax: Axes, text: str) -> None:
+    ax.text(0.5, 0.5, text, ha="center", va="center", transform=ax.transAxes,
+            fontsize=8, color=C_MARK, wrap=True)
+    ax.set_xticks([])
+    ax.set_yticks([])
+
+
+def _db(x: NDArray[np.float64]) -> NDArray[np.float64]:
+    # Exact zeros of |L| would give -inf dB; clip far below any plotted range.
+    return 20.0 * np.log10(np.maximum(x, 1e-300))
+
+
+def _fmt(x: float, digits: int = 3) -> str:
+    if math.isinf(x):
+        return "∞" if x > 0 else "−∞"
+    if x == 0:
+        return "0"
+    mag = math.floor(math.log10(abs(x)))
+    if -3 <= mag < 5:
+        decimals = max(0, digits - 1 - mag)
+        text = f"{x:.{decimals}f}"
+    else:
+        text = f"{x:.{digits - 1}e}"
+    return text.replace("-", "−")
+
+
+def _phase_deg(analysis: LoopAnalysis) -> NDArray[np.float64]:
+    """Continuous phase of the stored L(jω) in degrees, on the branch that starts near
+    −90°·(system type) at the lowest plotted frequency (the usual Bode convention)."""
+    assert analysis.curves is not None
+    ph = np.degrees(np.unwrap(np.angle(analysis.curves.open_loop)))
+    target = -90.0 * analysis.tracking.system_type
+    ph = ph + 360.0 * round((target - ph[0]) / 360.0)
+    return ph
+
+
+def _label(ax: Axes, x: float, y: float, text: str, color: str) -> None:
+    """A margin label beside its arrow, on a white patch so the curve stays legible."""
+    lo, hi = ax.get_xlim()
+    right = math.log(x) < 0.5 * (math.log(lo) + math.log(hi)) if lo > 0 else True
+    ax.annotate(text, (x, y), textcoords="offset points", xytext=(5 if right else -5, 0),
+                ha="left" if right else "right", va="center", color=color, fontsize=6.8,
+                bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none",
+                      "alpha": 0.85})
+
+
+def _interp_log(w_rad_s: NDArray[np.float64], y: NDArray[np.float64], at_rad_s: float) -> float:
+    return float(np.interp(math.log(at_rad_s), np.log(w_rad_s), y))
+
+
+# --------------------------------------------------------------------------- open loop
+#: At most this many gain and phase crossings are marked in a figure (the ones with the
+#: smallest margins); a delay makes the phase cross −180° again and again at high frequency.
+MAX_MARKED = 4
+#: Phase crossings whose gain margin exceeds this are not drawn (unless one sets the
+#: figure): a factor of 30 in gain is far from deciding anything.
+MARK_GM_DB = 30.0
+
+
+def marked_crossings(m: Margins) -> tuple[tuple[GainCrossing, ...], tuple[PhaseCrossing, ...]]:
+    """The crossings worth drawing: those that set the figures, then the smallest margins.
+
+    Returned in frequency order.  Phase crossings at ω = 0 or ∞ and infinite margins are
+    left out (nothing to draw).
+    """
+    gains = sorted(m.gain_crossings, key=lambda g: (g.frequency_rad_s != m.gain_crossover_rad_s,
+                                                    abs(g.phase_margin_deg)))[:MAX_MARKED]
+    phases = [p for p in m.phase_crossings
+              if 0.0 < p.frequency_rad_s < math.inf and math.isfinite(p.gain_margin_db)
+              and (abs(p.gain_margin_db) <= MARK_GM_DB
+                   or p.frequency_rad_s == m.phase_crossover_rad_s
+                   or p.gain_margin_db == m.gain_margin_lower_db)]
+    phases = sorted(phases, key=lambda p: (p.frequency_rad_s != m.phase_crossover_rad_s,
+                                           abs(p.gain_margin_db)))[:MAX_MARKED]
+    return (tuple(sorted(gains, key=lambda g: g.frequency_rad_s)),
+            tuple(sorted(phases, key=lambda p: p.frequency_rad_s)))
+
+
+def bode_figure(analysis: LoopAnalysis, unit: FrequencyUnit, *,
+                width_in: float = FULL_WIDTH_IN, height_in: float = 4.3) -> Plot:
+    """Open-loop magnitude (dB) and phase (deg) with the deciding crossings marked."""
+    import matplotlib
+
+    with matplotlib.rc_context(_RC):
+        fig = _figure(width_in, height_in)
+        ax_m, ax_p = fig.subplots(2, 1, sharex=True)
+        curves = analysis.curves
+        if curves is None or curves.frequency_rad_s.size < 2:
+            _no_data(ax_m, "no frequency response was computed")
+            ax_p.set_visible(False)
+            return Plot(key="bode", png=_png(fig), width_in=width_in, height_in=height_in,
+                        caption="Open-loop frequency response (not available).")
+        w = curves.frequency_rad_s
+        f = w * unit.per_rad_s
+        mag = _db(np.abs(curves.open_loop))
+        ph = _phase_deg(analysis)
+        m = analysis.margins
+        gains, phases = marked_crossings(m)
+        ax_m.semilogx(f, mag, color=C_MAIN, label="|L(jω)|")
+        ax_m.axhline(0.0, color=C_MARK, linewidth=0.7, linestyle="--")
+        ax_p.semilogx(f, ph, color=C_MAIN, label="∠L(jω)")
+        ax_m.set_xlim(f[0], f[-1])
+
+        # Phase view: up to a decade past the last marked crossing.  Beyond it a delay's
+        # phase falls without bound and would squash the interesting part flat.
+        marks = [g.frequency_rad_s for g in gains] + [p.frequency_rad_s for p in phases]
+        upto = 10.0 * max(marks) if marks else w[-1]
+        view = ph[w <= upto] if np.any(w <= upto) else ph
+        lo, hi = float(np.min(view)) - 20.0, float(np.max(view)) + 20.0
+        lo = min(lo, min((_interp_log(w, ph, g.frequency_rad_s) - g.phase_margin_deg - 20.0
+                          for g in gains), default=lo))
+        ax_p.set_ylim(lo, hi)
+        for k in range(math.floor((lo + 180.0) / 360.0), math.ceil((hi + 180.0) / 360.0) + 1):
+            ref = -180.0 + 360.0 * k
+            if lo <= ref <= hi:
+                ax_p.axhline(ref, color=C_MARK, linewidth=0.7, linestyle="--")
+
+        for gc in gains:
+            fc = unit.show(gc.frequency_rad_s)
+            phi = _interp_log(w, ph, gc.frequency_rad_s)
+            col = C_SECOND if gc.frequency_rad_s == m.gain_crossover_rad_s else C_MARK
+            for ax in (ax_m, ax_p):
+                ax.axvline(fc, color=col, linewidth=0.6, linestyle=":")
+            ax_p.annotate("", xy=(fc, phi), xytext=(fc, phi - gc.phase_margin_deg),
+                          arrowprops={"arrowstyle": "<->", "color": col, "lw": 1.0})
+            _label(ax_p, fc, phi - gc.phase_margin_deg / 2.0,
+                   f"PM {_fmt(gc.phase_margin_deg)}°\n@ {_fmt(fc)} {unit.label}", col)
+        for pc in phases:
+            fp = unit.show(pc.frequency_rad_s)
+            col = C_SECOND if pc.frequency_rad_s == m.phase_crossover_rad_s else C_MARK
+            for ax in (ax_m, ax_p):
+                ax.axvline(fp, color=col, linewidth=0.6, linestyle=":")
+            ax_m.annotate("", xy=(fp, -pc.gain_margin_db), xytext=(fp, 0.0),
+                          arrowprops={"arrowstyle": "<->", "color": col, "lw": 1.0})
+            _label(ax_m, fp, -pc.gain_margin_db / 2.0,
+                   f"GM {_fmt(pc.gain_margin_db)} dB\n@ {_fmt(fp)} {unit.label}", col)
+
+        # Magnitude view: clip the steep ends, but never hide a marked gain-margin arrow.
+        need = [0.0] + [-pc.gain_margin_db for pc in phases]
+        top = max(min(float(np.max(mag)), 60.0), max(need) + 10.0)
+        bottom = min(max(float(np.min(mag)), -60.0), min(need) - 10.0)
+        ax_m.set_ylim(bottom, top)
+        ax_m.set_ylabel("magnitude (dB)")
+        ax_p.set_ylabel("phase (deg)")
+        ax_p.set_xlabel(f"frequency ({unit.label})")
+        ax_p.yaxis.set_major_locator(matplotlib.ticker.MultipleLocator(
+            90.0 if hi - lo <= 720 else 180.0 * math.ceil((hi - lo) / 1440.0)))
+        for ax in (ax_m, ax_p):
+            _style(ax)
+        ax_m.set_title(f"Open loop L = C·P·H — {analysis.variant}", loc="left")
+        _place(fig, rows=2, hgap=0.08)
+        gm = "∞" if math.isinf(m.gain_margin_db) else f"{_fmt(m.gain_margin_db)} dB"
+        pm = "∞" if math.isinf(m.phase_margin_deg) else f"{_fmt(m.phase_margin_deg)}°"
+        omitted = (len(m.gain_crossings) - len(gains)
+                   + sum(1 for p in m.phase_crossings if 0 < p.frequency_rad_s < math.inf)
+                   - len(phases))
+        caption = (f"Open-loop magnitude and phase, {analysis.variant}. Marked crossings "
+                   f"carry their phase or gain margin; the ones that set the figures are "
+                   f"orange: PM {pm}, GM {gm}.")
+        if omitted > 0:
+            caption += (f" {omitted} further crossing{'s' if omitted != 1 else ''} with larger "
+                        "margins not drawn (see the table of crossings).")
+        return Plot(key="bode", png=_png(fig), width_in=width_in, height_in=height_in,
+                    caption=caption)
+
+
+def nyquist_figure(analysis: LoopAnalysis, *, width_in: float = 3.3,
+                   height_in: float = 3.3) -> Plot:
+    """Nyquist curve near −1 with the unit circle and the Ms circle (centre −1, radius 1/Ms)."""
+    import matplotlib
+
+    with matplotlib.rc_context(_RC):
+        fig = _figure(width_in, height_in)
+        ax = fig.subplots()
+        curves = analysis.curves
+        ms = analysis.sensitivity.peak_sensitivity
+        if curves is None or curves.open_loop.size < 2:
+            _no_data(ax, "no frequency response was computed")
+        else:
+            L = curves.open_loop
+            theta = np.linspace(0.0, 2.0 * math.pi, 361)
+            ax.plot(np.cos(theta), np.sin(theta), color=C_MARK, linewidth=0.6,
+                    linestyle="--", label="unit circle")
+            if math.isfinite(ms) and ms > 0:
+                r = 1.0 / ms
+                ax.fill(-1.0 + r * np.cos(theta), r * np.sin(theta), color=C_FAIL, alpha=0.10,
+                        linewidth=0)
+                ax.plot(-1.0 + r * np.cos(theta), r * np.sin(theta), color=C_FAIL,
+                        linewidth=0.8, label=f"Ms circle, radius 1/Ms = {_fmt(r)}")
+            ax.plot(L.real, L.imag, color=C_MAIN, label="L(jω), ω > 0")
+            ax.plot(L.real, -L.imag, color=C_MAIN, linewidth=0.7, linestyle="--",
+                    label="L(−jω)")
+            _direction_arrows(ax, L)
+            ax.plot([-1.0], [0.0], marker="+", color=C_FAIL, markersize=8, mew=1.4)
+            gains, phases = marked_crossings(analysis.margins)
+            for gc in gains:
+                phi = math.radians(gc.phase_margin_deg - 180.0)
+                ax.plot([math.cos(phi)], [math.sin(phi)], "o", color=C_SECOND, markersize=3)
+            for pc in phases:
+                ax.plot([-pc.magnitude], [0.0], "s", color=C_SECOND, markersize=3)
+            ax.set_xlim(-3.0, 1.5)
+            ax.set_ylim(-2.25, 2.25)
+            ax.set_aspect("equal")
+            ax.set_xlabel("Re L")
+            ax.set_ylabel("Im L")
+            ax.legend(loc="lower right", frameon=True, framealpha=0.9, edgecolor="none",
+                      fontsize=6.2)
+        _style(ax)
+        ax.set_title(f"Nyquist — {analysis.variant}", loc="left")
+        _place(fig, left=0.5)
+        caption = (f"Nyquist curve near −1, {analysis.variant}. The shaded disc (centre −1, "
+                   f"radius 1/Ms) is the closest the curve comes to −1: Ms = {_fmt(ms)}. "
+                   "Dots: gain crossings on the unit circle; squares: phase crossings.")
+        return Plot(key="nyquist", png=_png(fig), width_in=width_in, height_in=height_in,
+                    caption=caption)
+
+
+def _direction_arrows(ax: Axes, L: NDArray[np.complex128]) -> None:
+    """Small arrows along the ω > 0 branch, where it is inside the view."""
+    inside = np.flatnonzero(np.abs(L + 1.0) < 2.5)
+    if inside.size < 4:
+        return
+    for idx in inside[[inside.size // 3, (2 * inside.size) // 3]]:
+        j = min(idx + 1, L.size - 1)
+        if j == idx:
+            continue
+        ax.annotate("", xy=(L[j].real, L[j].imag), xytext=(L[idx].real, L[idx].imag),
+                    arrowprops={"arrowstyle": "-|>", "color": C_MAIN, "lw": 0.8,
+                                "mutation_scale": 8})
+
+
+# --------------------------------------------------------------------------- closed loop
+def sensitivity_figure(analysis: LoopAnalysis, unit: FrequencyUnit, *,
+                       reference_band_rad_s: float | None,
+                       width_in: float = FULL_WIDTH_IN, height_in: float = 3.9) -> Plot:
+    """|S| and |T| in dB with each boost stage's band shaded; improvement factor below."""
+    import matplotlib
+
+    with matplotlib.rc_context(_RC):
+        fig = _figure(width_in, height_in)
+        has_boost = bool(analysis.boosts) and analysis.curves is not None
+        if has_boost:
+            ax_s, ax_i = fig.subplots(2, 1, sharex=True, height_ratios=(3, 2))
+        else:
+            ax_s, ax_i = fig.subplots(), None
+        curves = analysis.curves
+        sens = analysis.sensitivity
+        if curves is None or curves.open_loop.size < 2:
+            _no_data(ax_s, "no frequency response was computed")
+            return Plot(key="sensitivity", png=_png(fig), width_in=width_in,
+                        height_in=height_in, caption="Sensitivity (not available).")
+        w = curves.frequency_rad_s
+        f = w * unit.per_rad_s
+        L = curves.open_loop
+        S = 1.0 / (1.0 + L)
+        T = L / (1.0 + L)
+        shades = ("#c8e6c9", "#e8f5e9")
+        for b in analysis.boosts:
+            for edge, shade, label in ((b.band_3db_rad_s, shades[1], "≥ 3 dB"),
+                                       (b.band_2x_rad_s, shades[0], "≥ 2×")):
+                if edge is not None and edge > w[0]:
+                    for ax in (ax_s, ax_i):
+                        if ax is not None:
+                            ax.axvspan(f[0], unit.show(edge), color=shade, linewidth=0,
+                                       label=(f"{b.stage_name}: tracking error {label} "
+                                              "smaller" if ax is ax_s else None))
+        ax_s.semilogx(f, _db(np.abs(S)), color=C_MAIN, label="|S| (error / reference)")
+        ax_s.semilogx(f, _db(np.abs(T)), color=C_SECOND, label="|T| (output / reference)")
+        ax_s.axhline(0.0, color=C_MARK, linewidth=0.6, linestyle="--")
+        for peak, at, col, name in ((sens.peak_sensitivity, sens.peak_sensitivity_rad_s,
+                                     C_MAIN, "Ms"),
+                                    (sens.peak_complementary, sens.peak_complementary_rad_s,
+                                     C_SECOND, "Mt")):
+            if math.isfinite(peak) and peak > 0 and w[0] <= at <= w[-1]:
+                ax_s.plot([unit.show(at)], [20.0 * math.log10(peak)], "v", color=col,
+                          markersize=4)
+                ax_s.annotate(f"{name} {_fmt(peak)} ({_fmt(20 * math.log10(peak))} dB)",
+                              (unit.show(at), 20.0 * math.log10(peak)),
+                              textcoords="offset points",
+                              xytext=(6, 4) if name == "Ms" else (-6, 4),
+                              ha="left" if name == "Ms" else "right", color=col,
+                              fontsize=6.8)
+        if reference_band_rad_s is not None:
+            for ax in (ax_s, ax_i):
+                if ax is not None:
+                    ax.axvline(unit.show(reference_band_rad_s), color=C_BAND, linewidth=0.9,
+                               linestyle="-.",
+                               label="reference band" if ax is ax_s else None)
+        ax_s.set_ylim(max(float(np.min(_db(np.abs(S)))), -80.0) - 3.0,
+                      max(10.0, 20.0 * math.log10(max(sens.peak_sensitivity,
+                                                      sens.peak_complementary, 1.0))) + 6.0)
+        ax_s.set_ylabel("magnitude (dB)")
+        # Legend in a row above the axes: below, it would sit on the curves.
+        ax_s.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), frameon=False, ncol=3,
+                    borderaxespad=0.2)
+        _style(ax_s)
+        bottom = ax_s
+        if ax_i is not None:
+            for i, b in enumerate(analysis.boosts):
+                imp = curves.improvement.get(b.stage)
+                if imp is None or imp.size != w.size:
+                    continue
+                ax_i.semilogx(f, imp, color=(C_MAIN, C_SECOND, C_MARK)[i % 3],
+                              label=f"{b.stage_name}: improvement factor")
+            ax_i.axhline(2.0, color=C_MARK, linewidth=0.6, linestyle="--")
+            ax_i.axhline(math.sqrt(2.0), color=C_MARK, linewidth=0.6, linestyle=":")
+            ax_i.axhline(1.0, color=C_MARK, linewidth=0.5)
+            ax_i.set_yscale("log")
+            ax_i.set_ylabel("error ratio\n|S without| / |S|")
+            ax_i.legend(loc="upper right", frameon=False)
+            _style(ax_i)
+            bottom = ax_i
+        bottom.set_xlabel(f"frequency ({unit.label})")
+        ax_s.set_xlim(f[0], f[-1])
+        _place(fig, top=0.42, left=0.66, rows=2 if ax_i is not None else 1,
+               hgap=0.08)
+        caption = (f"Sensitivity and complementary sensitivity, {analysis.variant}: "
+                   f"Ms = {_fmt(sens.peak_sensitivity)}, Mt = {_fmt(sens.peak_complementary)}.")
+        if analysis.boosts:
+            caption += (" Shaded: the reference frequencies where each low-frequency boost "
+                        "stage makes the tracking error at least 2× (darker) or 3 dB "
+                        "(lighter) smaller than the same loop without it.")
+        return Plot(key="sensitivity", png=_png(fig), width_in=width_in, height_in=height_in,
+                    caption=caption)
+
+
+def time_figure(analysis: LoopAnalysis, *, width_in: float = FULL_WIDTH_IN,
+                height_in: float = 4.6) -> Plot:
+    """Step response, its distance to the final value on a log scale (the slow tail), and
+    the ramp-tracking error."""
+    import matplotlib
+
+    with matplotlib.rc_context(_RC):
+        fig = _figure(width_in, height_in)
+        grid = fig.add_gridspec(2, 2, height_ratios=(1, 1))
+        ax_y = fig.add_subplot(grid[0, 0])
+        ax_log = fig.add_subplot(grid[0, 1])
+        ax_r = fig.add_subplot(grid[1, :])
+        curves = analysis.curves
+        metrics = analysis.step
+        if curves is None or metrics is None or curves.step.time_s.size < 2:
+            why = analysis.errors.get("step", "no step response was computed")
+            for ax in (ax_y, ax_log, ax_r):
+                _no_data(ax, why)
+            _place(fig, rows=2, cols=2, hgap=0.62, wgap=0.72)
+            return Plot(key="time", png=_png(fig), width_in=width_in, height_in=height_in,
+                        caption=f"Closed-loop responses, {analysis.variant}: {why}.")
+        t = curves.step.time_s
+        y = curves.step.value
+        yf = metrics.final_value
+        band = metrics.settling_band * abs(yf)
+        ax_y.plot(t, y, color=C_MAIN, label="y(t), r = 1(t)")
+        ax_y.axhspan(yf - band, yf + band, color="#e3ecf5", linewidth=0,
+                     label=f"±{100 * metrics.settling_band:g} % band")
+        ax_y.axhline(yf, color=C_MARK, linewidth=0.5)
+        if math.isfinite(metrics.settling_time_s):
+            ax_y.axvline(metrics.settling_time_s, color=C_SECOND, linewidth=0.8, linestyle=":",
+                         label=f"settled {_fmt(metrics.settling_time_s)} s")
+        if metrics.peak_time_s is not None and metrics.overshoot_pct > 0:
+            ax_y.plot([metrics.peak_time_s], [yf * (1 + metrics.overshoot_pct / 100.0)], "v",
+                      color=C_SECOND, markersize=4,
+                      label=f"overshoot {_fmt(metrics.overshoot_pct)} %")
+        ax_y.set_xlabel("time (s)")
+        ax_y.set_ylabel("output y")
+        ax_y.set_xlim(t[0], t[-1])
+        ax_y.legend(loc="lower right", frameon=False)
+        ax_y.set_title("Reference step", loc="left")
+
+        dist = np.abs(y - yf)
+        floor = band / 300.0 if band > 0 else 1e-9
+        ax_log.semilogy(t, np.maximum(dist, floor), color=C_MAIN, label="|y(t) − y∞|")
+        ax_log.axhline(band, color=C_SECOND, linewidth=0.8, linestyle="--",
+                       label="settling band")
+        tail_pairs: Sequence[SlowPair] = (analysis.slow_tail.pairs
+                                          if analysis.slow_tail is not None else ())
+        for pair in tail_pairs:
+            rate = abs(pair.pole.real)
+            ax_log.semilogy(t, np.maximum(abs(pair.residue) * np.exp(-rate * t), floor),
+                            color=C_FAIL, linewidth=0.9, linestyle="--",
+                            label=f"slow-pair tail, pole {_fmt(pair.pole.real)}")
+            if math.isfinite(pair.tail_time_s) and pair.tail_time_s > 0:
+                ax_log.axvline(pair.tail_time_s, color=C_FAIL, linewidth=0.6, linestyle=":")
+        ax_log.set_ylim(floor, max(float(np.max(dist)), band) * 3.0)
+        ax_log.set_xlim(t[0], t[-1])
+        ax_log.set_xlabel("time (s)")
+        ax_log.set_ylabel("distance to final value")
+        ax_log.legend(loc="upper right", frameon=False)
+        ax_log.set_title("Step error, log scale (slow tail)", loc="left")
+
+        tr = curves.ramp_error.time_s
+        er = curves.ramp_error.value
+        if tr.size >= 2:
+            ax_r.plot(tr, er, color=C_MAIN, label="e(t) = t − y(t), r = t")
+            final = metrics.ramp_error_final
+            ax_r.axhline(final, color=C_MARK, linewidth=0.6, linestyle="--",
+                         label=f"e at end of run {_fmt(final)}")
+            if math.isfinite(analysis.tracking.ramp_error):
+                ax_r.axhline(analysis.tracking.ramp_error, color=C_SECOND, linewidth=0.8,
+                             linestyle=":",
+                             label=f"steady state 1/Kv = {_fmt(analysis.tracking.ramp_error)}")
+            ax_r.set_xlim(tr[0], tr[-1])
+            ax_r.legend(loc="upper right", frameon=False)
+        else:
+            _no_data(ax_r, analysis.errors.get("ramp", "no ramp response was computed"))
+        ax_r.set_xlabel("time (s)")
+        ax_r.set_ylabel("tracking error (per unit slope)")
+        ax_r.set_title("Reference ramp: tracking error", loc="left")
+        for ax in (ax_y, ax_log, ax_r):
+            _style(ax)
+        _place(fig, rows=2, cols=2, hgap=0.62, wgap=0.72)
+        caption = (f"Closed-loop responses, {analysis.variant}. Settling ("
+                   f"{100 * metrics.settling_band:g} % band) after "
+                   f"{_fmt(metrics.settling_time_s)} s, overshoot "
+                   f"{_fmt(metrics.overshoot_pct)} %.")
+        if tail_pairs:
+            caption += (" The dashed red line is the slow pair's own term |r|·e^(p·t): while "
+                        "it lies above the band, the tail alone keeps the output unsettled.")
+        return Plot(key="time", png=_png(fig), width_in=width_in, height_in=height_in,
+                    caption=caption)
+
+
+def pole_zero_figure(analysis: LoopAnalysis, zeros: NDArray[np.complex128], *,
+                     width_in: float = 3.3, height_in: float = 3.3) -> Plot:
+    """Closed-loop poles and zeros; each slow pair ringed, with a zoomed view when small.
+
+    ``zeros`` are the closed-loop zeros from reference to output as read from the model
+    (zeros of C·P and poles of the sensor); the poles are the analysis's closed-loop poles.
+    """
+    import matplotlib
+
+    with matplotlib.rc_context(_RC):
+        fig = _figure(width_in, height_in)
+        poles = np.asarray(analysis.stability.closed_loop_poles, dtype=complex)
+        pairs = analysis.slow_tail.pairs if analysis.slow_tail is not None else ()
+        if poles.size == 0:
+            ax = fig.subplots()
+            _no_data(ax, "closed-loop poles are not computed\nfor a loop with transport "
+                         "delay;\nstability follows from the Nyquist count")
+            ax.set_title(f"Closed-loop poles — {analysis.variant}", loc="left")
+            _place(fig, left=0.2, right=0.2, bottom=0.2)
+            return Plot(key="poles", png=_png(fig), width_in=width_in, height_in=height_in,
+                        caption=f"Pole-zero map, {analysis.variant}: not available "
+                                "(transport delay).")
+        span = float(np.max(np.abs(np.concatenate([poles, zeros])))) or 1.0
+        zoom = None
+        if pairs:
+            near = max(max(abs(p.pole), abs(p.zero)) for p in pairs)
+            if near < 0.2 * span:
+                zoom = 2.5 * near
+        if zoom is not None:
+            ax_all, ax_zoom = fig.subplots(2, 1, height_ratios=(1, 1))
+            views = ((ax_all, 1.15 * span), (ax_zoom, zoom))
+        else:
+            ax_all = fig.subplots()
+            views = ((ax_all, 1.15 * span),)
+        for ax, r in views:
+            ax.axhline(0.0, color=C_MARK, linewidth=0.5)
+            ax.axvline(0.0, color=C_MARK, linewidth=0.5)
+            ax.plot(poles.real, poles.imag, "x", color=C_MAIN, markersize=5, mew=1.2,
+                    label="closed-loop poles")
+            if zeros.size:
+                ax.plot(zeros.real, zeros.imag, "o", mfc="none", color=C_SECOND,
+                        markersize=5, mew=1.0, label="closed-loop zeros")
+            for pair in pairs:
+                # A ring marker stays round whatever the axes' aspect ratio.
+                cx = (pair.pole.real + pair.zero.real) / 2.0
+                cy = (pair.pole.imag + pair.zero.imag) / 2.0
+                ax.plot([cx], [cy], "o", mfc="none", color=C_FAIL, markersize=15, mew=1.0)
+            ax.set_xlim(-r, max(0.25 * r, 1.15 * float(np.max(poles.real)) if
+                                np.max(poles.real) > 0 else 0.25 * r))
+            ax.set_ylim(-0.75 * r, 0.75 * r)
+            ax.set_ylabel("Im s (rad/s)")
+            _style(ax)
+        views[-1][0].set_xlabel("Re s (1/s)")
+        ax_all.set_title(f"Closed-loop poles and zeros — {analysis.variant}", loc="left")
+        ax_all.legend(loc="upper left", frameon=False)
+        if zoom is not None:
+            views[-1][0].set_title("near the origin (slow pairs ringed)", loc="left")
+        _place(fig, left=0.55, rows=2 if zoom is not None else 1, hgap=0.6)
+        caption = f"Closed-loop poles (×) and zeros (○), {analysis.variant}."
+        if pairs:
+            caption += (" Red rings: slow closed-loop poles nearly cancelled by a zero; "
+                        "their small residue decays slowly.")
+        return Plot(key="poles", png=_png(fig), width_in=width_in, height_in=height_in,
+                    caption=caption)
+
+
+def closed_loop_zeros(design: Design, variant_name: str) -> NDArray[np.complex128]:
+    """Zeros of r → y as read from the model: zeros of C·P and the sensor's poles."""
+    variant = next(v for v in design.variants if v.name == variant_name)
+    loop = design.loop(variant)
+    return np.concatenate([loop.forward.zeros, loop.sensor.poles]).astype(complex)
+
+
+def variant_plots(design: Design, analysis: LoopAnalysis) -> dict[str, Plot]:
+    """Every figure of one variant, keyed by name, in page order."""
+    unit = FrequencyUnit.of(design)
+    return {
+        "bode": bode_figure(analysis, unit),
+        "nyquist": nyquist_figure(analysis),
+        "poles": pole_zero_figure(analysis, closed_loop_zeros(design, analysis.variant)),
+        "time": time_figure(analysis),
+        "sensitivity": sensitivity_figure(
+            analysis, unit, reference_band_rad_s=design.requirements.reference_band_rad_s),
+    }

@@ -1,0 +1,246 @@
+"""Keys, PAdES signing and verification: a signed review verifies; every tampering fails."""
+
+from __future__ import annotations
+
+import functools
+import io
+import os
+import stat
+from pathlib import Path
+
+import pytest
+
+import loopwarden
+from loopwarden.errors import SigningError, UsageError
+from loopwarden.report import renderer
+from loopwarden.report.pdf import render_pdf
+from loopwarden.signing.keys import (
+    PASSPHRASE_ENV,
+    make_key,
+    read_passphrase,
+    signer_name,
+)
+from loopwarden.signing.sign import sign_pdf
+from loopwarden.signing.verify import verify_pdf
+
+ROOT = Path(__file__).resolve().parents[1]
+DESIGN = ROOT / "sample_designs" / "hoist_lag_tail.toml"
+PASS = b"correct horse"
+
+
+@pytest.fixture(scope="session")
+def keys(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
+    folder = tmp_path_factory.mktemp("keys")
+    out = {}
+    for who, name in (("alice", "Alice Reviewer"), ("mallory", "Mallory Other")):
+        make_key(folder / f"{who}.p12", name, PASS)
+        out[who] = folder / f"{who}.p12"
+    return out
+
+
+@functools.lru_cache(maxsize=1)
+def _unsigned() -> tuple[bytes, str, str]:
+    import dataclasses
+
+    review = loopwarden.review(loopwarden.load_design(str(DESIGN)), today="2026-01-15")
+    review = dataclasses.replace(review, run=dataclasses.replace(review.run,
+                                                                 signer="Alice Reviewer"))
+    files = {"review.json": renderer("json").render(review),
+             "design.toml": review.design.text.encode("utf-8"),
+             "rules.toml": review.ruleset.text.encode("utf-8")}
+    return render_pdf(review, embedded=files), review.ruleset.path, review.verdict
+
+
+@pytest.fixture(scope="session")
+def signed(keys: dict[str, Path], tmp_path_factory: pytest.TempPathFactory) -> Path:
+    pdf, _, _ = _unsigned()
+    path = tmp_path_factory.mktemp("signed") / "review.pdf"
+    path.write_bytes(sign_pdf(pdf, keys["alice"], PASS))
+    return path
+
+
+def _write(tmp_path: Path, data: bytes, name: str = "tampered.pdf") -> Path:
+    p = tmp_path / name
+    p.write_bytes(data)
+    return p
+
+
+def _failed(report) -> set[str]:  # type: ignore[no-untyped-def]
+    return {c.name for c in report.checks if not c.passed}
+
+
+# --------------------------------------------------------------------------- keys
+def test_make_key_writes_a_p256_signing_key_and_refuses_to_overwrite(tmp_path: Path) -> None:
+    from cryptography import x509
+    from cryptography.hazmat.primitives.asymmetric import ec
+
+    cert_path = make_key(tmp_path / "k.p12", "Test Signer", None)
+    assert cert_path == tmp_path / "k.pem"
+    for p in (tmp_path / "k.p12", cert_path):
+        assert stat.S_IMODE(os.stat(p).st_mode) == 0o600
+    cert = x509.load_pem_x509_certificate(cert_path.read_bytes())
+    assert isinstance(cert.public_key().curve, ec.SECP256R1)
+    usage = cert.extensions.get_extension_for_class(x509.KeyUsage).value
+    assert usage.digital_signature and usage.content_commitment and not usage.key_cert_sign
+    assert cert.issuer == cert.subject                       # self-signed
+    before = (tmp_path / "k.p12").read_bytes()
+    with pytest.raises(UsageError, match="exists already"):
+        make_key(tmp_path / "k.p12", "Someone Else", None)
+    assert (tmp_path / "k.p12").read_bytes() == before
+    assert signer_name(tmp_path / "k.p12", None) == "Test Signer"
+
+
+def test_make_key_refuses_when_only_the_certificate_exists(tmp_path: Path) -> None:
+    (tmp_path / "k.pem").write_text("keep me")
+    with pytest.raises(UsageError):
+        make_key(tmp_path / "k.p12", "X", None)
+    assert not (tmp_path / "k.p12").exists()
+    assert (tmp_path / "k.pem").read_text() == "keep me"
+
+
+def test_read_passphrase_sources_in_order(tmp_path: Path) -> None:
+    f = tmp_path / "pw"
+    f.write_bytes(b"from file\r\nsecond line\n")
+    env = {PASSPHRASE_ENV: "from env"}
+    assert read_passphrase(f, environ=env, interactive=False) == b"from file"
+    assert read_passphrase(None, environ=env, interactive=False) == b"from env"
+    assert read_passphrase(None, environ={}, interactive=False) is None
+    assert read_passphrase(None, environ={PASSPHRASE_ENV: ""}, interactive=False) is None
+    with pytest.raises(UsageError):
+        read_passphrase(tmp_path / "missing", environ={}, interactive=False)
+
+
+def test_wrong_passphrase_is_a_signing_error(keys: dict[str, Path]) -> None:
+    pdf, _, _ = _unsigned()
+    with pytest.raises(SigningError, match="passphrase"):
+        sign_pdf(pdf, keys["alice"], b"wrong")
+    with pytest.raises(SigningError):
+        sign_pdf(pdf, keys["alice"], None)
+
+
+# --------------------------------------------------------------------------- verify
+def test_signed_review_verifies(signed: Path, keys: dict[str, Path]) -> None:
+    _, rules_path, verdict = _unsigned()
+    report = verify_pdf(signed, trust=keys["alice"].with_suffix(".pem"), design=DESIGN,
+                        rules=rules_path)
+    assert report.ok, report.checks
+    assert report.signer == "Alice Reviewer" and report.verdict == verdict
+    names = {c.name for c in report.checks}
+    assert {"exactly one signature", "signature intact", "trusted signer",
+            "covers entire file", "embedded evidence", "embedded inputs match evidence",
+            "design file matches", "rule-set file matches"} <= names
+
+
+def test_flipped_byte_fails(signed: Path, keys: dict[str, Path], tmp_path: Path) -> None:
+    data = bytearray(signed.read_bytes())
+    i = data.index(b'"schema"')            # inside the embedded evidence, uncompressed
+    data[i + 1] ^= 0x01
+    report = verify_pdf(_write(tmp_path, bytes(data)), trust=keys["alice"].with_suffix(".pem"))
+    assert not report.ok and "signature intact" in _failed(report)
+
+
+def test_swapped_evidence_in_place_fails(signed: Path, keys: dict[str, Path],
+                                          tmp_path: Path) -> None:
+    # The hoist review fails; an edit of the same length turns the evidence into a pass.
+    data = signed.read_bytes()
+    assert data.count(b'"verdict": "fail"') == 1
+    forged = data.replace(b'"verdict": "fail"', b'"verdict": "pass"')
+    report = verify_pdf(_write(tmp_path, forged), trust=keys["alice"].with_suffix(".pem"))
+    assert not report.ok and "signature intact" in _failed(report)
+
+
+def test_appended_bytes_fail(signed: Path, keys: dict[str, Path], tmp_path: Path) -> None:
+    path = _write(tmp_path, signed.read_bytes() + b"\n% appended after signing\n")
+    report = verify_pdf(path, trust=keys["alice"].with_suffix(".pem"))
+    assert _failed(report) == {"covers entire file"}
+    assert not report.ok
+
+
+def test_extra_incremental_update_fails(signed: Path, keys: dict[str, Path],
+                                         tmp_path: Path) -> None:
+    from pyhanko.pdf_utils import generic
+    from pyhanko.pdf_utils.incremental_writer import IncrementalPdfFileWriter
+
+    writer = IncrementalPdfFileWriter(io.BytesIO(signed.read_bytes()))
+    writer.add_object(generic.DictionaryObject({generic.NameObject("/Note"):
+                                                generic.TextStringObject("added later")}))
+    buf = io.BytesIO()
+    writer.write(buf)
+    report = verify_pdf(_write(tmp_path, buf.getvalue()), trust=keys["alice"].with_suffix(".pem"))
+    assert "covers entire file" in _failed(report) and not report.ok
+
+
+def test_evidence_swapped_by_incremental_update_fails(signed: Path, keys: dict[str, Path],
+                                                      tmp_path: Path) -> None:
+    # An attacker appends a new revision whose review.json says "pass".  Coverage fails,
+    # and the evidence is still read from the signed revision (it still says "fail").
+    from pyhanko.pdf_utils import generic
+    from pyhanko.pdf_utils.incremental_writer import IncrementalPdfFileWriter
+
+    writer = IncrementalPdfFileWriter(io.BytesIO(signed.read_bytes()))
+    names = writer.root["/Names"]["/EmbeddedFiles"]["/Names"]
+    keys_ = [str(names[i]) for i in range(0, len(names), 2)]
+    spec = names[keys_.index("review.json") * 2 + 1]
+    forged = generic.StreamObject(stream_data=b'{"schema": "loopwarden-review/1", '
+                                              b'"verdict": "pass"}')
+    spec["/EF"] = generic.DictionaryObject({generic.NameObject("/F"):
+                                            writer.add_object(forged)})
+    writer.update_container(spec)
+    buf = io.BytesIO()
+    writer.write(buf)
+    report = verify_pdf(_write(tmp_path, buf.getvalue()), trust=keys["alice"].with_suffix(".pem"))
+    assert "covers entire file" in _failed(report) and not report.ok
+    assert report.verdict == "fail"
+
+
+def test_wrong_trust_certificate_fails(signed: Path, keys: dict[str, Path]) -> None:
+    report = verify_pdf(signed, trust=keys["mallory"].with_suffix(".pem"))
+    assert _failed(report) == {"trusted signer"} and not report.ok
+
+
+def test_no_trust_anchor_fails_with_a_clear_reason(signed: Path) -> None:
+    report = verify_pdf(signed)
+    failed = [c for c in report.checks if not c.passed]
+    assert [c.name for c in failed] == ["trusted signer"] and not report.ok
+    assert "no trust anchor given" in failed[0].detail
+
+
+def test_mismatching_design_file_fails(signed: Path, keys: dict[str, Path],
+                                       tmp_path: Path) -> None:
+    other = tmp_path / "design.toml"
+    other.write_bytes(DESIGN.read_bytes() + b"\n# edited after the review\n")
+    report = verify_pdf(signed, trust=keys["alice"].with_suffix(".pem"), design=other)
+    assert _failed(report) == {"design file matches"} and not report.ok
+
+
+def test_unsigned_and_twice_signed_fail(keys: dict[str, Path], tmp_path: Path) -> None:
+    pdf, _, _ = _unsigned()
+    trust = keys["alice"].with_suffix(".pem")
+    report = verify_pdf(_write(tmp_path, pdf, "unsigned.pdf"), trust=trust)
+    assert not report.ok and "exactly one signature" in _failed(report)
+    once = sign_pdf(pdf, keys["alice"], PASS)
+    with pytest.raises(SigningError, match="filled already"):
+        sign_pdf(once, keys["alice"], PASS)           # loopwarden refuses to sign twice
+    # A second signature in another field, made with pyHanko directly, must not pass.
+    from pyhanko.pdf_utils.incremental_writer import IncrementalPdfFileWriter
+    from pyhanko.sign import signers
+
+    signer = signers.SimpleSigner.load_pkcs12_data(keys["alice"].read_bytes(), (), PASS)
+    out = signers.sign_pdf(IncrementalPdfFileWriter(io.BytesIO(once)),
+                           signers.PdfSignatureMetadata(field_name="second"), signer=signer)
+    report = verify_pdf(_write(tmp_path, out.getvalue(), "twice.pdf"), trust=trust)
+    assert not report.ok and "exactly one signature" in _failed(report)
+
+
+def test_unreadable_input_is_a_usage_error(signed: Path, tmp_path: Path) -> None:
+    with pytest.raises(UsageError):
+        verify_pdf(tmp_path / "missing.pdf")
+    with pytest.raises(UsageError, match="not a PDF"):
+        verify_pdf(_write(tmp_path, b"hello", "x.pdf"))
+    with pytest.raises(UsageError, match="certificate"):
+        verify_pdf(signed, trust=_write(tmp_path, b"not a cert", "t.pem"))
+
+
+def test_damaged_pdf_is_a_failed_check_not_a_pass(tmp_path: Path) -> None:
+    report = verify_pdf(_write(tmp_path, b"%PDF-1.4\n garbage without structure\n"))
+    assert not report.ok and report.checks and not report.checks[0].passed
