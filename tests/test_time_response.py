@@ -297,3 +297,16 @@ def test_bad_band_and_zero_dc_gain_raise():
     loop = make_loop(Zpk([], [-1.0, -2.0], 4.0), Zpk([0.0], [-3.0], 1.0))
     with pytest.raises(AnalysisError, match="zero DC gain"):
         step_response(loop, BAND)
+
+
+def test_unstable_rational_loop_raises():
+    # 10/(s(s+1)(s+2)): gain margin 6/10 < 1, closed loop unstable [derived: Routh]
+    with pytest.raises(AnalysisError, match="not stable"):
+        step_response(make_loop(Zpk([], [0.0, -1.0, -2.0], 10.0)), BAND)
+
+
+def test_static_loop():
+    # a pure gain 3 under unity feedback: y = 3/4 at once, nothing to settle [derived]
+    m = step_response(make_loop(Zpk.constant(3.0)), BAND).metrics
+    assert m.final_value == pytest.approx(0.75)
+    assert m.settling_time_s == 0.0 and m.overshoot_pct == 0.0 and m.rise_time_s == 0.0

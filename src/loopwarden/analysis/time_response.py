@@ -528,13 +528,16 @@ def step_response(loop: Loop, band: float) -> StepResult:
     Raises
     ------
     AnalysisError
-        When the final value is zero or not finite, when the response has not settled
+        When a rational closed loop has a pole with Re ≥ 0 (hidden modes included), when
+        the final value is zero or not finite, when the response has not settled
         after extending the horizon, or when the delay is too short compared with the
         horizon to be held as a whole number of steps.
     """
     if not band > 0:
         raise AnalysisError(f"settling band must be positive, got {band}")
     ss = closed_loop(loop)
+    if not loop.has_delay and ss.order and np.max(linalg.eigvals(ss.a).real) >= 0:
+        raise AnalysisError("the closed loop is not stable: no settled step response")
     rational = RationalResponse(ss.a, ss.b, ss.c[0:1, :], float(ss.d[0, 0]))
     try:
         final = rational.final_value
