@@ -1,8 +1,17 @@
-"""Markdown summary (for pull requests and wikis): verdict, findings table, cautions."""
+"""Markdown summary (for merge requests and wikis): verdict, findings table, cautions.
+
+With a baseline, a "Changes against the baseline" table per variant follows the findings:
+every figure of :data:`loopwarden.analysis.regression.FIGURES` with its baseline and
+candidate values, the change, the worsening each ``regression`` rule allows and the status
+those rules gave it (read from the findings' per-figure details, never re-judged here).
+"""
 
 from __future__ import annotations
 
-from ..ruleset.checks import fmt
+from ..analysis.regression import FigureChange
+from ..analysis.regression import compare as compare_figures
+from ..analysis.results import LoopAnalysis
+from ..ruleset.checks import fmt, worsening_pct
 from ..ruleset.model import Finding, Status
 from . import CAUTIONS
 from .review import Review
@@ -57,5 +66,80 @@ def render(review: Review) -> bytes:
             f.rule, f.variant or "(design)", status, fmt(f.measured, f.unit)
             if f.measured is not None else "", limit_text(f), f.limit_source, f.message))
             + " |")
+    lines += _changes(review)
     lines += ["", f"> **Caution.** {CAUTIONS}", ""]
     return "\n".join(lines).encode("utf-8")
+
+
+# --------------------------------------------------------------------------- baseline
+#: How a figure's status ranks when several regression rules judge it (worst shown).
+_RANK = {Status.ERROR: 5, Status.FAIL: 4, Status.WARN: 3, Status.WAIVED: 2, Status.PASS: 1,
+         Status.NA: 0}
+
+
+def _status_text(status: Status) -> str:
+    return status.value.upper() if status.blocks else status.value
+
+
+def _allowed(f: Finding) -> str:
+    """The worsening one regression rule allows, e.g. ``≤ 20 % (regression.phase_margin)``."""
+    severity = str(f.details.get("severity", "fail"))
+    parts = []
+    hard, warn = f.details.get("limit.max"), f.details.get("limit.warn_max")
+    if isinstance(hard, float | int):
+        parts.append(f"≤ {fmt(hard, '%')}" if severity == "fail"
+                     else f"{'warn' if severity == 'warn' else 'noted'} above {fmt(hard, '%')}")
+    if isinstance(warn, float | int) and severity != "info":
+        parts.append(f"warn above {fmt(warn, '%')}")
+    return f"{', '.join(parts) or 'no limit'} ({f.rule})"
+
+
+def _change_cell(c: FigureChange) -> str:
+    if c.change is None:
+        return "n/a"
+    if c.change == 0.0:
+        return "unchanged"
+    sign = "+" if c.change > 0 else "−"
+    text = f"{sign}{fmt(abs(c.change), c.unit)}"
+    pct = worsening_pct(c)
+    return f"{text} ({fmt(pct, '%')} worse)" if pct > 0 else f"{text} (better)"
+
+
+def _variant_changes(base: LoopAnalysis, cand: LoopAnalysis,
+                     rules: list[Finding]) -> list[str]:
+    lines = ["| Figure | Baseline | Candidate | Change | Allowed worsening | Status |",
+             "|---|---|---|---|---|---|"]
+    for c in compare_figures(base, cand):
+        judged = [(f, f.details[f"{c.figure}.status"]) for f in rules
+                  if f"{c.figure}.status" in f.details]
+        statuses = [Status(str(s)) for _f, s in judged]
+        status = (_status_text(max(statuses, key=_RANK.__getitem__)) if statuses
+                  else "n/a" if c.change is None else "not judged")
+        allowed = "; ".join(_allowed(f) for f, _s in judged) or "no rule"
+        lines.append("| " + " | ".join(_cell(x) for x in (
+            f"`{c.figure}`", fmt(c.baseline, c.unit), fmt(c.candidate, c.unit),
+            _change_cell(c), allowed, status)) + " |")
+    return lines
+
+
+def _changes(review: Review) -> list[str]:
+    """The "Changes against the baseline" section; empty without a baseline."""
+    if review.baseline is None:
+        return []
+    b = review.baseline.design
+    lines = ["", "## Changes against the baseline", "",
+             f"Baseline `{b.path.rsplit('/', 1)[-1]}`"
+             + (f" (revision {b.revision})" if b.revision else "")
+             + f", SHA-256 `{b.sha256}`. Change = candidate − baseline; worse is in % of "
+             "the baseline value."]
+    base = {a.variant: a for a in review.baseline.analyses}
+    for a in review.analyses:
+        lines += ["", f"### {a.variant}", ""]
+        old = base.get(a.variant)
+        if old is None:
+            lines.append(f"The baseline has no plant variant named '{a.variant}'; nothing "
+                         "to compare.")
+            continue
+        rules = [f for f in review.findings if f.check == "regression" and f.variant == a.variant]
+        lines += _variant_changes(old, a, rules)
+    return lines

@@ -25,7 +25,7 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from types import MappingProxyType
 
-from ..analysis.regression import FigureChange
+from ..analysis.regression import FIGURE_NAMES, FigureChange
 from ..analysis.regression import compare as compare_figures
 from ..analysis.results import Boost, LoopAnalysis, StepMetrics
 from ..design.model import Design
@@ -58,6 +58,10 @@ class Measurement:
     ok: bool | None = None
     unit: str | None = None
     details: Details = field(default_factory=lambda: MappingProxyType({}))
+    # Named parts judged one by one against the same limits (regression: one per figure);
+    # evaluation records each part's status as details["<part>.status"].
+    parts: Mapping[str, Mapping[str, float]] = field(
+        default_factory=lambda: MappingProxyType({}))
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -569,26 +573,53 @@ def worsening_pct(change: FigureChange) -> float:
 
 
 @_check("regression", unit="%", limits=UPPER,
+        options={"figure": Option(kind=str, choices=FIGURE_NAMES,
+                                  help="judge only this figure (one rule per figure holds "
+                                       "its own allowed worsening); default every figure")},
         summary="candidate against a baseline design: the largest worsening of margins, "
                 "peaks, tracking and step figures, % of the baseline value")
 def regression(a: LoopAnalysis, rule: Rule, design: Design, *,
                baseline: LoopAnalysis | None = None) -> Measurement:
     if baseline is None:
         raise NotApplicable("no baseline given")
+    only = rule.options.get("figure")
+    changes = [c for c in compare_figures(baseline, a) if only is None or c.figure == only]
+    if only is not None and changes[0].change is None:
+        c = changes[0]
+        side = "baseline" if c.baseline is None else "candidate"
+        raise NotApplicable(f"{only} is not available for the {side}")
     details: dict[str, float | str | None] = {}
+    parts: dict[str, Mapping[str, float]] = {}
     worst: tuple[float, FigureChange | None] = (0.0, None)
-    for change in compare_figures(baseline, a):
+    for change in changes:
         pct = worsening_pct(change)
         details[f"{change.figure}.baseline"] = change.baseline
         details[f"{change.figure}.candidate"] = change.candidate
+        details[f"{change.figure}.change"] = change.change
+        details[f"{change.figure}.unit"] = change.unit
         details[f"{change.figure}.worse_pct"] = pct
+        if change.change is not None:
+            parts[change.figure] = {"max": pct, "warn_max": pct}
         if pct > worst[0]:
             worst = (pct, change)
     pct, ch = worst
     if ch is None:
-        text = "no figure worse than in the baseline"
+        text = (f"{only} not worse than in the baseline ({_change_text(changes[0])})"
+                if only is not None else "no figure worse than in the baseline")
     else:
         text = (f"{ch.figure} {fmt(ch.candidate, ch.unit)} against {fmt(ch.baseline, ch.unit)} "
-                f"in the baseline ({fmt(pct, '%')} worse)")
+                f"in the baseline ({_change_text(ch)}, {fmt(pct, '%')} worse)")
+        details |= {"figure": ch.figure, "baseline": ch.baseline, "candidate": ch.candidate,
+                    "change": ch.change}
     return Measurement(value=pct, text=text, compare={"max": pct, "warn_max": pct},
-                       details=details)
+                       details=details, parts=parts)
+
+
+def _change_text(c: FigureChange) -> str:
+    """``change −45°`` (signed, in the figure's unit)."""
+    if c.change is None:
+        return "no change computed"
+    if c.change == 0.0:
+        return "unchanged"
+    sign = "+" if c.change > 0 else "−"
+    return f"change {sign}{fmt(abs(c.change), c.unit)}"

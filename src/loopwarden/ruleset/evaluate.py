@@ -283,6 +283,13 @@ def evaluate_rule(rule: Rule, lim: Mapping[str, Limit], analysis: LoopAnalysis,
         return _finding(rule, variant, Status.NA, f"{m.text}; {reason}", unit=unit,
                         measured=m.value, details=details)
     details["limit_key"] = key
+    for part, compare in m.parts.items():
+        # Each part (a regression figure) against the same limits, so a report can say
+        # which figures breach and which do not, not only the worst one.
+        part_status, _key, _phrase = _judge(dataclasses.replace(m, compare=compare), lim,
+                                            rule.severity,
+                                            lambda k: check.limit_unit(k, rule.options))
+        details[f"{part}.status"] = part_status.value
     limit = lim[key]
     measured = m.compare[key]
     if key.endswith("_ratio"):
@@ -299,6 +306,12 @@ _WAIVER_RATIONALE = "A waiver that matches nothing is probably stale or misspelt
 
 def _waiver_text(w: Waiver) -> str:
     return f"{w.reason} (approved by {w.approved_by}, expires {w.expires.isoformat()})"
+
+
+def _waive_parts(f: Finding) -> Mapping[str, float | str | None]:
+    """The finding's details with every failing part's status turned into ``waived``."""
+    return MappingProxyType({k: Status.WAIVED.value if k.endswith(".status")
+                             and v == Status.FAIL.value else v for k, v in f.details.items()})
 
 
 def apply_waivers(findings: Sequence[Finding], waivers: Iterable[Waiver], *,
@@ -339,7 +352,7 @@ def apply_waivers(findings: Sequence[Finding], waivers: Iterable[Waiver], *,
                                 f"{w.expires.isoformat()}; it does not count")
             elif f.status is Status.FAIL:
                 out[i] = dataclasses.replace(
-                    f, status=Status.WAIVED, waiver=_waiver_text(w),
+                    f, status=Status.WAIVED, waiver=_waiver_text(w), details=_waive_parts(f),
                     message=f"{f.message}. Waived by {w.approved_by} until "
                             f"{w.expires.isoformat()}: {w.reason}")
             else:
