@@ -98,6 +98,9 @@ def test_missing_parts_render_an_explanation_not_a_crash() -> None:
         a, stability=dataclasses.replace(a.stability, closed_loop_poles=(), method="nyquist"),
         step=None, slow_tail=None, errors={"step": "closed loop is unstable"})
     assert "not available" in plots.pole_zero_figure(broken, np.zeros(0, complex)).caption
+    with_model = plots.pole_zero_figure(broken, np.array([-0.5 + 0j]),
+                                        open_loop_poles=np.array([-2.0 + 0j, -20.0 + 0j]))
+    assert "Nyquist count" in with_model.caption
     assert "unstable" in plots.time_figure(broken).caption
 
 

@@ -34,8 +34,10 @@ from .pdf_style import (
     PAGE_W,
     RULE,
     SANS,
+    SANS_BOLD,
     STATUS_LOOK,
     VERDICT_LOOK,
+    fit_widths,
     grid_style,
     hexcolor,
     num,
@@ -108,6 +110,7 @@ def _layout(review: Review, embedded: Mapping[str, bytes]) -> bytes:
     story.append(PageBreak())
     story += closing_page(review, st, embedded, CAUTION)
 
+    story = _no_orphan_headings(story)
     buf = io.BytesIO()
     doc = SimpleDocTemplate(
         buf, pagesize=A4, leftMargin=MARGIN_X, rightMargin=MARGIN_X, topMargin=MARGIN_TOP,
@@ -121,6 +124,21 @@ def _layout(review: Review, embedded: Mapping[str, bytes]) -> bytes:
     )
     doc.build(story, canvasmaker=_canvas_class(review))
     return buf.getvalue()
+
+
+def _no_orphan_headings(story: list[Any]) -> list[Any]:
+    """A conditional page break before each sub-heading, so none ends a page alone.
+
+    (reportlab's keepWithNext would move a heading *and* a long table to the next page.)
+    """
+    from reportlab.platypus import CondPageBreak
+
+    out: list[Any] = []
+    for item in story:
+        if isinstance(item, Paragraph) and item.style.name in ("h2", "h3"):
+            out.append(CondPageBreak(30 * mm))
+        out.append(item)
+    return out
 
 
 def _canvas_class(review: Review) -> Callable[..., Canvas]:
@@ -306,18 +324,15 @@ def _limit_text(review: Review, f: Finding, unit: FrequencyUnit) -> str:
     return shown
 
 
-def _finding_widths(review: Review) -> list[float]:
-    """Column widths with the rule column wide enough that no rule id is broken."""
-    from reportlab.pdfbase.pdfmetrics import stringWidth
-
-    from .pdf_style import SANS_BOLD
-
-    base = widths(34, 22, 24, 24, 16, 54)
-    longest = max((stringWidth(f.rule, SANS_BOLD, 7.6) for f in review.findings), default=0.0)
-    rule_w = min(max(base[0], longest + 8.0), 0.36 * FRAME_W)   # 2 × 3 pt padding + slack
-    base[5] -= rule_w - base[0]
-    base[0] = rule_w
-    return base
+def _finding_widths(review: Review, unit: FrequencyUnit) -> list[float]:
+    """Column widths wide enough that no rule id or limit source word is broken."""
+    fs = review.findings
+    cols = [[f.rule for f in fs], [f.variant or "design" for f in fs],
+            [value_text(f.measured, f.unit, unit) for f in fs],
+            [_limit_text(review, f, unit) for f in fs], ["WAIVED"],
+            [f.limit_source for f in fs]]
+    return fit_widths(cols, (34, 22, 24, 24, 16, 54),
+                      fonts=(SANS_BOLD, SANS, SANS, SANS, SANS_BOLD, SANS))
 
 
 def _findings(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[Any]:
@@ -364,7 +379,7 @@ def _findings(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[A
         style.add("SPAN", (0, row + 1), (-1, row + 1))
         style.add("LINEBELOW", (0, row), (-1, row), 0, HEAD_BG)
         style.add("TOPPADDING", (0, row + 1), (-1, row + 1), 0)
-    table = Table(data, colWidths=_finding_widths(review), repeatRows=1)
+    table = Table(data, colWidths=_finding_widths(review, unit), repeatRows=1)
     table.setStyle(style)
     out.append(table)
     out.append(Spacer(1, 3 * mm))

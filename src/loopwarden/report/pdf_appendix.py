@@ -10,7 +10,7 @@ from reportlab.lib.units import mm
 from reportlab.platypus import CondPageBreak, Paragraph, Preformatted, Spacer, Table, TableStyle
 
 from .pdf_evidence import grid_table
-from .pdf_style import FRAME_W, HEAD_BG, RULE, num, text, zpk_text
+from .pdf_style import FRAME_W, HEAD_BG, SANS, SANS_BOLD, num, text, zpk_text
 from .plots import FrequencyUnit
 from .review import Review
 
@@ -119,25 +119,23 @@ def appendix(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[An
                          f"{rs.sha256}</font>); it is embedded in this PDF as rules.toml.",
                          st["body"]))
     rows = [["Rule", "Check", "Limits", "Breach is", "Why, and where the number comes from"]]
+    cols: list[list[str]] = [[r.id for r in rs.rules], [r.check for r in rs.rules],
+                             ["warn_max_lower"], ["Breach"], ["number"]]
     for r in rs.rules:
         limits = ", ".join(f"{k} = {num(float(v))}" for k, v in r.limits.items()) or "—"
         rows.append([f"<b>{text(r.id)}</b><br/><font size='6.4' color='#5f6368'>"
                      f"{text(r.origin)}</font>", text(r.check), text(limits), text(r.severity),
                      f"{text(r.rationale)}<br/><font color='#5f6368'>Source: "
                      f"{text(r.source)}</font>"])
-    out.append(grid_table(rows, st, (20, 17, 16, 9, 38)))
+    out.append(grid_table(rows, st, (20, 17, 16, 9, 38), fit=cols,
+                          fonts=(SANS_BOLD, SANS, SANS, SANS, SANS)))
     return out
 
 
-def _verbatim(body: str, st: dict[str, Any]) -> Table:
-    pre = Preformatted(body.rstrip("\n") or " ", st["mono"], maxLineLength=110,
-                       newLineChars="")
-    table = Table([[pre]], colWidths=[FRAME_W])
-    table.setStyle(TableStyle([("BOX", (0, 0), (-1, -1), 0.5, RULE),
-                               ("LEFTPADDING", (0, 0), (-1, -1), 6),
-                               ("TOPPADDING", (0, 0), (-1, -1), 4),
-                               ("BOTTOMPADDING", (0, 0), (-1, -1), 4)]))
-    return table
+def _verbatim(body: str, st: dict[str, Any]) -> Preformatted:
+    # A Preformatted flowable splits across pages (a boxed table would not).
+    return Preformatted(body.rstrip("\n") or " ", st["verbatim"], maxLineLength=112,
+                        newLineChars="")
 
 
 def closing_page(review: Review, st: dict[str, Any], embedded: Mapping[str, bytes],

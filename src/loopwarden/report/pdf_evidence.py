@@ -25,6 +25,7 @@ from .pdf_style import (
     RULE,
     ZEBRA,
     cplx,
+    fit_widths,
     grid_style,
     num,
     text,
@@ -38,11 +39,17 @@ __all__ = ["evidence_section", "alternative_section", "grid_table"]
 
 
 def grid_table(rows: list[list[str]], st: dict[str, Any], parts: tuple[float, ...],
-               *, head: bool = True) -> Table:
-    """A data table from rows of paragraph markup (first row is the header)."""
+               *, head: bool = True, fit: list[list[str]] | None = None,
+               fonts: tuple[str, ...] | None = None) -> Table:
+    """A data table from rows of paragraph markup (first row is the header).
+
+    ``fit`` gives each column's plain words that must not be broken (see
+    :func:`~loopwarden.report.pdf_style.fit_widths`).
+    """
     data = [[Paragraph(c, st["cell_head"] if head and i == 0 else st["cell"]) for c in row]
             for i, row in enumerate(rows)]
-    table = Table(data, colWidths=widths(*parts), repeatRows=1 if head else 0)
+    col_w = fit_widths(fit, parts, fonts=fonts) if fit else widths(*parts)
+    table = Table(data, colWidths=col_w, repeatRows=1 if head else 0)
     style = grid_style()
     if not head:
         style.add("BACKGROUND", (0, 0), (-1, 0), None)

@@ -81,6 +81,10 @@ def styles() -> dict[str, ParagraphStyle]:
                                     textColor=MUTED),
         "mono": ParagraphStyle("mono", parent=base, fontName=MONO, fontSize=7.0,
                                leading=8.8, spaceAfter=0),
+        "verbatim": ParagraphStyle("verbatim", parent=base, fontName=MONO, fontSize=6.8,
+                                   leading=8.4, backColor=ZEBRA, borderColor=RULE,
+                                   borderWidth=0.5, borderPadding=5, spaceBefore=4,
+                                   spaceAfter=8, leftIndent=5, rightIndent=5),
         "caption": ParagraphStyle("caption", parent=base, fontName=SANS_ITALIC, fontSize=7.4,
                                   leading=9.4, textColor=MUTED, spaceBefore=2, spaceAfter=8),
         "h1": ParagraphStyle("h1", parent=base, fontName=SANS_BOLD, fontSize=15, leading=19,
@@ -217,3 +221,27 @@ def value_text(value: float | str | None, unit_name: str, shown: object) -> str:
     if unit_name == "deg":
         return f"{num(float(value))}°"
     return f"{num(float(value))} {unit_name}".rstrip()
+
+
+def fit_widths(columns: list[list[str]], parts: tuple[float, ...], *,
+               fonts: tuple[str, ...] | None = None, size: float = 7.6) -> list[float]:
+    """Column widths from relative parts, widened so that no word in a column is broken.
+
+    ``columns`` holds the plain text of each column.  A column narrower than its longest
+    word grows, taking the room from columns with slack; when there is not enough slack the
+    plain proportional widths are kept (reportlab then breaks the longest words).
+    """
+    base = widths(*parts)
+    fonts = fonts or (SANS,) * len(parts)
+    pad = 7.0                                  # 2 × 3 pt cell padding and a little slack
+    need = [max((pdfmetrics.stringWidth(tok, font, size) for cell in col
+                 for tok in str(cell).split()), default=0.0) + pad
+            for col, font in zip(columns, fonts, strict=True)]
+    w = [max(b, n) for b, n in zip(base, need, strict=True)]
+    excess = sum(w) - FRAME_W
+    if excess <= 0:
+        return [wi - excess * b / FRAME_W for wi, b in zip(w, base, strict=True)]
+    slack = [max(0.0, wi - ni) for wi, ni in zip(w, need, strict=True)]
+    if sum(slack) < excess:
+        return base
+    return [wi - excess * s / sum(slack) for wi, s in zip(w, slack, strict=True)]

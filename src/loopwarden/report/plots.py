@@ -311,8 +311,8 @@ def bode_figure(analysis: LoopAnalysis, unit: FrequencyUnit, *,
                     caption=caption)
 
 
-def nyquist_figure(analysis: LoopAnalysis, *, width_in: float = 3.3,
-                   height_in: float = 3.3) -> Plot:
+def nyquist_figure(analysis: LoopAnalysis, *, width_in: float = 3.2,
+                   height_in: float = 3.15) -> Plot:
     """Nyquist curve near −1 with the unit circle and the Ms circle (centre −1, radius 1/Ms)."""
     import matplotlib
 
@@ -567,11 +567,14 @@ def time_figure(analysis: LoopAnalysis, *, width_in: float = FULL_WIDTH_IN,
 
 
 def pole_zero_figure(analysis: LoopAnalysis, zeros: NDArray[np.complex128], *,
-                     width_in: float = 3.3, height_in: float = 3.3) -> Plot:
+                     open_loop_poles: NDArray[np.complex128] | None = None,
+                     width_in: float = 3.2, height_in: float = 3.15) -> Plot:
     """Closed-loop poles and zeros; each slow pair ringed, with a zoomed view when small.
 
     ``zeros`` are the closed-loop zeros from reference to output as read from the model
     (zeros of C·P and poles of the sensor); the poles are the analysis's closed-loop poles.
+    For a loop with transport delay the analysis has no closed-loop poles; then the
+    open-loop poles of the rational part (``open_loop_poles``, as read) are drawn instead.
     """
     import matplotlib
 
@@ -580,14 +583,7 @@ def pole_zero_figure(analysis: LoopAnalysis, zeros: NDArray[np.complex128], *,
         poles = np.asarray(analysis.stability.closed_loop_poles, dtype=complex)
         pairs = analysis.slow_tail.pairs if analysis.slow_tail is not None else ()
         if poles.size == 0:
-            ax = fig.subplots()
-            _no_data(ax, "closed-loop poles are not computed\nfor a loop with transport "
-                         "delay;\nstability follows from the Nyquist count")
-            ax.set_title(f"Closed-loop poles — {analysis.variant}", loc="left")
-            _place(fig, left=0.2, right=0.2, bottom=0.2)
-            return Plot(key="poles", png=_png(fig), width_in=width_in, height_in=height_in,
-                        caption=f"Pole-zero map, {analysis.variant}: not available "
-                                "(transport delay).")
+            return _open_loop_map(fig, analysis, zeros, open_loop_poles, width_in, height_in)
         span = float(np.max(np.abs(np.concatenate([poles, zeros])))) or 1.0
         zoom = None
         if pairs:
@@ -632,11 +628,55 @@ def pole_zero_figure(analysis: LoopAnalysis, zeros: NDArray[np.complex128], *,
                     caption=caption)
 
 
+def _open_loop_map(fig: Figure, analysis: LoopAnalysis, zeros: NDArray[np.complex128],
+                   poles: NDArray[np.complex128] | None, width_in: float,
+                   height_in: float) -> Plot:
+    """The open-loop pole-zero map, for loops whose closed-loop poles are not computed."""
+    ax = fig.subplots()
+    if poles is None or poles.size + zeros.size == 0:
+        _no_data(ax, "closed-loop poles are not computed\nfor a loop with transport "
+                     "delay;\nstability follows from the Nyquist count")
+        ax.set_title(f"Closed-loop poles — {analysis.variant}", loc="left")
+        _place(fig, left=0.2, right=0.2, bottom=0.2)
+        return Plot(key="poles", png=_png(fig), width_in=width_in, height_in=height_in,
+                    caption=f"Pole-zero map, {analysis.variant}: not available "
+                            "(transport delay).")
+    r = 1.15 * (float(np.max(np.abs(np.concatenate([poles, zeros])))) or 1.0)
+    ax.axhline(0.0, color=C_MARK, linewidth=0.5)
+    ax.axvline(0.0, color=C_MARK, linewidth=0.5)
+    ax.plot(poles.real, poles.imag, "x", color=C_MARK, markersize=5, mew=1.2,
+            label="open-loop poles (C·P·H)")
+    if zeros.size:
+        ax.plot(zeros.real, zeros.imag, "o", mfc="none", color=C_SECOND, markersize=5,
+                mew=1.0, label="closed-loop zeros")
+    ax.set_xlim(-r, max(0.25 * r, 1.15 * float(np.max(poles.real))))
+    ax.set_ylim(-0.75 * r, 0.75 * r)
+    ax.set_xlabel("Re s (1/s)")
+    ax.set_ylabel("Im s (rad/s)")
+    ax.legend(loc="upper left", frameon=False)
+    ax.text(0.98, 0.03, "closed-loop poles not computed:\ntransport delay (Nyquist count)",
+            transform=ax.transAxes, ha="right", va="bottom", fontsize=6.5, color=C_MARK)
+    _style(ax)
+    ax.set_title(f"Open-loop poles and zeros — {analysis.variant}", loc="left")
+    _place(fig, left=0.55)
+    return Plot(key="poles", png=_png(fig), width_in=width_in, height_in=height_in,
+                caption=f"Open-loop poles (×) and closed-loop zeros (○) of the rational part, "
+                        f"{analysis.variant}. With a transport delay the closed loop has "
+                        "infinitely many poles; stability is decided by the Nyquist count "
+                        "instead.")
+
+
 def closed_loop_zeros(design: Design, variant_name: str) -> NDArray[np.complex128]:
     """Zeros of r → y as read from the model: zeros of C·P and the sensor's poles."""
     variant = next(v for v in design.variants if v.name == variant_name)
     loop = design.loop(variant)
     return np.concatenate([loop.forward.zeros, loop.sensor.poles]).astype(complex)
+
+
+def _open_loop_poles(design: Design, variant_name: str) -> NDArray[np.complex128]:
+    """Poles of C·P·H as read from the model (shown only for delay loops)."""
+    variant = next(v for v in design.variants if v.name == variant_name)
+    return np.asarray(design.loop(variant).rational.poles, dtype=complex)
 
 
 def variant_plots(design: Design, analysis: LoopAnalysis) -> dict[str, Plot]:
@@ -645,7 +685,8 @@ def variant_plots(design: Design, analysis: LoopAnalysis) -> dict[str, Plot]:
     return {
         "bode": bode_figure(analysis, unit),
         "nyquist": nyquist_figure(analysis),
-        "poles": pole_zero_figure(analysis, closed_loop_zeros(design, analysis.variant)),
+        "poles": pole_zero_figure(analysis, closed_loop_zeros(design, analysis.variant),
+                                  open_loop_poles=_open_loop_poles(design, analysis.variant)),
         "time": time_figure(analysis),
         "sensitivity": sensitivity_figure(
             analysis, unit, reference_band_rad_s=design.requirements.reference_band_rad_s),
