@@ -1,0 +1,473 @@
+"""Review many designs in parallel worker processes.
+
+The parent collects the inputs, checks every output path, hands chunks of designs to a
+:class:`concurrent.futures.ProcessPoolExecutor` (``spawn`` start method, so it behaves the
+same on every platform and a worker only imports what a review needs: no matplotlib, no
+reportlab) and writes ``summary.csv`` and ``summary.md`` once every design is done.  Each
+worker writes its designs' JSON reviews itself (atomically), so the evidence never travels
+through the pipe.
+
+Output folder policy: the folder is created when missing.  A file the batch would write
+may already exist only when loopwarden wrote it: a ``.json`` file whose top-level
+``schema`` is ``loopwarden-review/1``, a ``summary.csv`` starting with the batch header
+line, a ``summary.md`` starting with the batch title.  Anything else (a user's file, an
+input design) stops the batch before any design is reviewed.  The review of a design that
+can no longer be read is removed, so the folder never shows stale evidence for it.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import math
+import multiprocessing
+import os
+import time
+from collections.abc import Callable, Iterable, Sequence
+from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
+from pathlib import Path
+from typing import IO, Any
+
+from .errors import UsageError, UserError
+
+__all__ = ["COLUMNS", "BatchResult", "DesignOutcome", "Progress", "collect_inputs",
+           "default_jobs", "output_names", "review_file", "run_batch"]
+
+#: Columns of summary.csv, in order (one row per design and variant).
+COLUMNS = ("design", "file", "variant", "verdict", "closed_loop_stable", "gain_margin_db",
+           "phase_margin_deg", "delay_margin_s", "peak_sensitivity", "peak_complementary",
+           "disk_margin", "system_type", "kv", "overshoot_pct", "settling_time_s", "n_fail",
+           "n_warn", "error")
+SUMMARY_CSV = "summary.csv"
+SUMMARY_MD = "summary.md"
+MD_TITLE = "# loopwarden batch summary"
+_REVIEW_SCHEMA = "loopwarden-review/1"      # == report.json_out.SCHEMA (not imported here)
+_WORST = 3                                  # findings named per design in summary.md
+
+Row = dict[str, Any]
+
+
+@dataclasses.dataclass(frozen=True, slots=True, kw_only=True)
+class DesignOutcome:
+    """What one design gave: its summary rows, verdict, counts, worst findings or error.
+
+    ``verdict`` is ``"pass"``, ``"fail"``, ``"error"`` (bad input: the design file, its
+    limits or waivers, or its review could not be written) or ``"internal"`` (a bug in
+    loopwarden while reviewing it).
+    """
+
+    index: int
+    path: str
+    output: str
+    design: str | None
+    verdict: str
+    rows: tuple[Row, ...]
+    n_fail: int = 0
+    n_warn: int = 0
+    worst: tuple[str, ...] = ()
+    error: str | None = None
+
+
+@dataclasses.dataclass(frozen=True, slots=True, kw_only=True)
+class BatchResult:
+    outcomes: tuple[DesignOutcome, ...]     # in input order
+    out_dir: Path
+    seconds: float
+
+    def count(self, verdict: str) -> int:
+        return sum(1 for o in self.outcomes if o.verdict == verdict)
+
+    @property
+    def exit_code(self) -> int:
+        """3 a design hit an internal error, 2 one could not be read, 1 one fails, else 0."""
+        if self.count("internal"):
+            return 3
+        if self.count("error"):
+            return 2
+        return 1 if self.count("fail") else 0
+
+
+def default_jobs() -> int:
+    """``min(2, cpu count)``: the machines this runs on are small and shared."""
+    return max(1, min(2, os.cpu_count() or 1))
+
+
+# --------------------------------------------------------------------------- inputs
+def collect_inputs(specs: Sequence[str | os.PathLike[str]]) -> list[Path]:
+    """Design files from files and folders (every ``*.toml`` inside, not recursive, sorted).
+
+    A file named twice (directly or through its folder) is reviewed once, first place kept.
+
+    Raises
+    ------
+    UsageError
+        A path that does not exist, or no design file at all.
+    """
+    found: list[Path] = []
+    seen: set[Path] = set()
+    for spec in specs:
+        path = Path(spec)
+        if path.is_dir():
+            files = sorted(p for p in path.glob("*.toml") if p.is_file())
+        elif path.is_file():
+            files = [path]
+        else:
+            raise UsageError(f"{str(path)!r} is neither a design file nor a folder",
+                             hint="nothing was reviewed")
+        for f in files:
+            key = f.resolve()
+            if key not in seen:
+                seen.add(key)
+                found.append(f)
+    if not found:
+        raise UsageError("no design files (*.toml) in " + ", ".join(map(str, specs)))
+    return found
+
+
+def output_names(inputs: Sequence[Path]) -> list[str]:
+    """``<stem>.json`` per input; a repeated stem gets ``-2``, ``-3``… in input order.
+
+    Names are compared case-insensitively, so the folder works the same on file systems
+    that ignore case.
+    """
+    taken = {SUMMARY_CSV, SUMMARY_MD}
+    names = []
+    for p in inputs:
+        name, n = f"{p.stem}.json", 1
+        while name.casefold() in taken:
+            n += 1
+            name = f"{p.stem}-{n}.json"
+        taken.add(name.casefold())
+        names.append(name)
+    return names
+
+
+def _csv_header() -> str:
+    return ",".join(COLUMNS)
+
+
+def _ours(path: Path) -> bool:
+    """True when ``path`` holds a file this batch (or an earlier one) wrote."""
+    try:
+        if path.name == SUMMARY_CSV:
+            with path.open(encoding="utf-8") as fh:
+                return fh.readline().rstrip("\r\n") == _csv_header()
+        if path.name == SUMMARY_MD:
+            with path.open(encoding="utf-8") as fh:
+                return fh.readline().rstrip("\r\n") == MD_TITLE
+        doc = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError):
+        return False
+    return isinstance(doc, dict) and doc.get("schema") == _REVIEW_SCHEMA
+
+
+def check_out_dir(out_dir: Path, names: Iterable[str], inputs: Sequence[Path]) -> None:
+    """Refuse (UsageError) unless every output can be written without harm (see module)."""
+    if out_dir.exists() and not out_dir.is_dir():
+        raise UsageError(f"--out {out_dir} is a file, not a folder")
+    resolved_inputs = {p.resolve() for p in inputs}
+    for name in (*names, SUMMARY_CSV, SUMMARY_MD):
+        target = out_dir / name
+        if target.resolve() in resolved_inputs:
+            raise UsageError(f"--out {out_dir}: {name} would overwrite an input file",
+                             hint="choose another output folder; nothing was written")
+        if target.is_dir() or (target.exists() and not _ours(target)):
+            raise UsageError(
+                f"--out {out_dir}: {name} exists and was not written by loopwarden",
+                hint="use a new or empty folder, or one an earlier batch wrote; refusing "
+                     "to overwrite it, nothing was written")
+
+
+# --------------------------------------------------------------------------- one design
+_RULESETS: dict[str, Any] = {}             # per worker process: rule-set path → RuleSet
+
+
+def _ruleset(path: str) -> Any:
+    from .ruleset.loader import load_ruleset
+
+    if path not in _RULESETS:
+        _RULESETS[path] = load_ruleset(path)
+    return _RULESETS[path]
+
+
+def _number(x: Any) -> Any:
+    """Floats as they are (inf stays inf; pandas writes it as ``inf``), None for n/a."""
+    return None if x is None else float(x) if isinstance(x, float | int) else x
+
+
+def _rows(review: Any, file: str) -> tuple[Row, ...]:
+    rows = []
+    for a in review.analyses:
+        mine = [f for f in review.findings if f.variant == a.variant]
+        n_fail = sum(f.status.blocks for f in mine)
+        step = a.step
+        rows.append({
+            "design": review.design.name, "file": file, "variant": a.variant,
+            "verdict": "fail" if n_fail else "pass",
+            "closed_loop_stable": a.stability.closed_loop_stable,
+            "gain_margin_db": _number(a.margins.gain_margin_db),
+            "phase_margin_deg": _number(a.margins.phase_margin_deg),
+            "delay_margin_s": _number(a.margins.delay_margin_s),
+            "peak_sensitivity": _number(a.sensitivity.peak_sensitivity),
+            "peak_complementary": _number(a.sensitivity.peak_complementary),
+            "disk_margin": _number(a.sensitivity.disk_margin),
+            "system_type": a.tracking.system_type, "kv": _number(a.tracking.kv),
+            "overshoot_pct": None if step is None else _number(step.overshoot_pct),
+            "settling_time_s": None if step is None else _number(step.settling_time_s),
+            "n_fail": n_fail, "n_warn": sum(f.status.value == "warn" for f in mine),
+            "error": None,
+        })
+    return tuple(rows)
+
+
+def _worst(review: Any) -> tuple[str, ...]:
+    """Up to three blocking findings, else warnings: ``rule [variant]: measured (limit)``."""
+    from .report.markdown import limit_text
+    from .ruleset.checks import fmt
+
+    ranked = ([f for f in review.findings if f.status.blocks]
+              or [f for f in review.findings if f.status.value == "warn"])
+    out = []
+    for f in ranked[:_WORST]:
+        measured = fmt(f.measured, f.unit) if f.measured is not None else f.status.value
+        limit = limit_text(f)
+        out.append(f"{f.rule} [{f.variant or 'design'}]: {measured}"
+                   + (f" ({limit})" if limit else ""))
+    if len(ranked) > _WORST:
+        out.append(f"… {len(ranked) - _WORST} more")
+    return tuple(out)
+
+
+def _error_row(path: str, message: str, verdict: str) -> Row:
+    row: Row = dict.fromkeys(COLUMNS)
+    row |= {"file": path, "verdict": verdict, "error": message}
+    return row
+
+
+def review_file(index: int, path: str, output: str, ruleset_path: str, date: str,
+                tool_version: str | None = None) -> DesignOutcome:
+    """Review one design file and write its JSON review to ``output``.
+
+    Never raises for the design's own problems: bad input gives ``error``, a bug
+    ``internal``, each with the message in the outcome (and its summary row).
+    """
+    from .design.loader import load_design
+    from .report import renderer
+    from .report.atomic import write_outputs
+    from .review_run import run_review
+
+    try:
+        design = load_design(path)
+        review = run_review(design, _ruleset(ruleset_path), today=date,
+                            tool_version=tool_version)
+        write_outputs({Path(output): renderer("json").render(review)}, inputs=[Path(path)])
+    except UserError as exc:
+        msg = str(exc)
+        return DesignOutcome(index=index, path=path, output=output, design=None,
+                             verdict="error", error=msg,
+                             rows=(_error_row(path, msg, "error"),))
+    except Exception as exc:  # noqa: BLE001 - one broken design must not stop the batch
+        msg = f"internal error ({type(exc).__name__}: {exc}); please report it"
+        return DesignOutcome(index=index, path=path, output=output, design=None,
+                             verdict="internal", error=msg,
+                             rows=(_error_row(path, msg, "internal"),))
+    rows = _rows(review, path)
+    return DesignOutcome(index=index, path=path, output=output, design=design.name,
+                         verdict=review.verdict, rows=rows,
+                         n_fail=sum(r["n_fail"] for r in rows),
+                         n_warn=sum(1 for f in review.findings if f.status.value == "warn"),
+                         worst=_worst(review))
+
+
+def review_chunk(tasks: Sequence[tuple[int, str, str]], ruleset_path: str, date: str,
+                 tool_version: str | None) -> list[DesignOutcome]:
+    """Worker entry point (module level, so the ``spawn`` start method can pickle it)."""
+    return [review_file(i, p, o, ruleset_path, date, tool_version) for i, p, o in tasks]
+
+
+# --------------------------------------------------------------------------- progress
+class Progress:
+    """Progress on a stream: a redrawn text bar on a terminal, one line per design else."""
+
+    WIDTH = 30
+
+    def __init__(self, total: int, stream: IO[str] | None, *, bar: bool | None = None):
+        self.total, self.done, self.stream = total, 0, stream
+        self.bar = bool(stream is not None and stream.isatty()) if bar is None else bar
+        self.failed = self.not_reviewed = 0
+        self._last = 0.0
+
+    def update(self, outcome: DesignOutcome) -> None:
+        self.done += 1
+        self.failed += outcome.verdict == "fail"
+        self.not_reviewed += outcome.verdict in ("error", "internal")
+        if self.stream is None:
+            return
+        if not self.bar:
+            what = outcome.verdict if outcome.error is None else f"{outcome.verdict}: " \
+                                                                 f"{outcome.error}"
+            self.stream.write(f"[{self.done}/{self.total}] {outcome.path}: {what}\n")
+            self.stream.flush()
+            return
+        now = time.monotonic()
+        if now - self._last >= 0.1 or self.done == self.total:   # redraw ≤ 10 times a second
+            self._last = now
+            filled = self.WIDTH * self.done // max(self.total, 1)
+            self.stream.write(f"\r[{'#' * filled}{'.' * (self.WIDTH - filled)}] "
+                              f"{self.done}/{self.total} designs, {self.failed} fail, "
+                              f"{self.not_reviewed} not reviewed")
+            if self.done == self.total:
+                self.stream.write("\n")
+            self.stream.flush()
+
+
+# --------------------------------------------------------------------------- the run
+def _chunks(tasks: list[tuple[int, str, str]], jobs: int) -> list[list[tuple[int, str, str]]]:
+    # Several designs per round trip keep the pipe cheap; about eight chunks per worker
+    # keep the load balanced when some designs take much longer than others.
+    size = max(1, min(16, math.ceil(len(tasks) / (8 * jobs))))
+    return [tasks[i:i + size] for i in range(0, len(tasks), size)]
+
+
+def _in_parallel(tasks: list[tuple[int, str, str]], jobs: int, args: tuple[Any, ...],
+                 on_done: Callable[[DesignOutcome], None]) -> list[DesignOutcome]:
+    outcomes: list[DesignOutcome] = []
+    context = multiprocessing.get_context("spawn")
+    with ProcessPoolExecutor(max_workers=jobs, mp_context=context) as pool:
+        pending: set[Future[list[DesignOutcome]]] = {
+            pool.submit(review_chunk, chunk, *args) for chunk in _chunks(tasks, jobs)}
+        try:
+            while pending:
+                done, pending = wait(pending, return_when=FIRST_COMPLETED)
+                for fut in done:
+                    for outcome in fut.result():
+                        outcomes.append(outcome)
+                        on_done(outcome)
+        except BaseException:
+            pool.shutdown(wait=True, cancel_futures=True)
+            raise
+    return outcomes
+
+
+def run_batch(inputs: Sequence[Path], out_dir: Path, *, ruleset: str | None = None,
+              jobs: int | None = None, date: str | None = None,
+              progress: IO[str] | None = None, tool_version: str | None = None
+              ) -> BatchResult:
+    """Review every design of ``inputs`` into ``out_dir``; write the two summaries.
+
+    Parameters
+    ----------
+    inputs : sequence of Path
+        Design files (see :func:`collect_inputs`).
+    out_dir : Path
+        Output folder (created when missing; see the module for what may be in it).
+    ruleset : str, optional
+        Shipped set name or rule-set file; default ``general``.
+    jobs : int, optional
+        Worker processes; default :func:`default_jobs`.  ``1`` reviews in this process.
+    date : str, optional
+        Review date (YYYY-MM-DD); default as :func:`loopwarden.review_run.review_date`.
+    progress : text stream, optional
+        Where progress goes (a bar when it is a terminal); None for none.
+
+    Raises
+    ------
+    UsageError, RuleSetError
+        Bad arguments, a bad rule set or an output folder that cannot be used; nothing
+        has been written then.
+    """
+    from .review_run import review_date
+    from .ruleset.loader import load_ruleset
+
+    t0 = time.perf_counter()
+    jobs = default_jobs() if jobs is None else jobs
+    if jobs < 1:
+        raise UsageError(f"--jobs {jobs}: need at least one worker")
+    day = review_date(date).isoformat()
+    rs = load_ruleset(ruleset)              # bad rule set: exit 2 before any work
+    inputs = list(inputs)
+    names = output_names(inputs)
+    check_out_dir(out_dir, names, [*inputs, *(Path(f.path) for f in rs.files)])
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise UsageError(f"--out {out_dir}: cannot create the folder: "
+                         f"{exc.strerror or exc}") from exc
+
+    tasks = [(i, str(p), str(out_dir / n)) for i, (p, n) in enumerate(zip(inputs, names,
+                                                                          strict=True))]
+    bar = Progress(len(tasks), progress)
+    args = (rs.path, day, tool_version)
+    workers = min(jobs, len(tasks))
+    if workers == 1:
+        outcomes = []
+        for task in tasks:
+            outcomes.append(review_file(*task, *args))
+            bar.update(outcomes[-1])
+    else:
+        outcomes = _in_parallel(tasks, workers, args, bar.update)
+    outcomes.sort(key=lambda o: o.index)
+
+    for o in outcomes:
+        stale = Path(o.output)
+        if o.error is not None and stale.exists():   # checked above: it is ours
+            stale.unlink()
+    result = BatchResult(outcomes=tuple(outcomes), out_dir=out_dir,
+                         seconds=time.perf_counter() - t0)
+    _write_summaries(result, rs, day, tool_version)
+    return result
+
+
+# --------------------------------------------------------------------------- summaries
+def summary_csv(result: BatchResult) -> bytes:
+    """summary.csv (pandas): one row per design and variant, :data:`COLUMNS` in order."""
+    import pandas as pd
+
+    frame = pd.DataFrame([r for o in result.outcomes for r in o.rows], columns=list(COLUMNS))
+    # Whole numbers stay whole when a row of an unread design leaves them empty.
+    frame = frame.astype({"system_type": "Int64", "n_fail": "Int64", "n_warn": "Int64"})
+    return frame.to_csv(index=False, lineterminator="\n").encode("utf-8")
+
+
+def _md_cell(text: str) -> str:
+    return text.replace("\\", "\\\\").replace("|", "\\|").replace("\n", " ")
+
+
+def summary_md(result: BatchResult, ruleset: Any, date: str, tool_version: str) -> bytes:
+    """summary.md: totals, then one table row per design (verdict, worst findings)."""
+    from .report import CAUTIONS
+
+    n = len(result.outcomes)
+    not_read = result.count("error") + result.count("internal")
+    lines = [
+        MD_TITLE, "",
+        f"**{n} design{'s' if n != 1 else ''}: {result.count('pass')} pass, "
+        f"{result.count('fail')} fail, {not_read} could not be reviewed**", "",
+        f"- Rule set: {ruleset.id} {ruleset.version} ({ruleset.title}), SHA-256 "
+        f"`{ruleset.sha256}`",
+        f"- Date: {date}; loopwarden {tool_version}",
+        "",
+        "| Design | File | Review | Verdict | Fail | Warn | Worst findings |",
+        "|---|---|---|---|---|---|---|",
+    ]
+    for o in result.outcomes:
+        review = "" if o.error is not None else f"`{Path(o.output).name}`"
+        verdict = {"pass": "pass", "fail": "FAIL", "error": "ERROR",
+                   "internal": "INTERNAL ERROR"}[o.verdict]
+        worst = o.error if o.error is not None else "; ".join(o.worst) or "none"
+        cells = (o.design or "", f"`{o.path}`", review, verdict,
+                 "" if o.error else str(o.n_fail), "" if o.error else str(o.n_warn), worst)
+        lines.append("| " + " | ".join(_md_cell(c) for c in cells) + " |")
+    lines += ["", f"> **Caution.** {CAUTIONS}", ""]
+    return "\n".join(lines).encode("utf-8")
+
+
+def _write_summaries(result: BatchResult, ruleset: Any, date: str,
+                     tool_version: str | None) -> None:
+    from . import __version__
+    from .report.atomic import write_outputs
+
+    write_outputs({result.out_dir / SUMMARY_CSV: summary_csv(result),
+                   result.out_dir / SUMMARY_MD: summary_md(result, ruleset, date,
+                                                           tool_version or __version__)})
+
