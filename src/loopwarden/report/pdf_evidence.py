@@ -3,13 +3,12 @@ alternative beside the current design.  Every number is read from the LoopAnalys
 
 from __future__ import annotations
 
-import io
 import math
 from typing import Any
 
 from reportlab.lib.units import inch, mm
 from reportlab.platypus import (
-    Image,
+    Flowable,
     KeepTogether,
     Paragraph,
     Preformatted,
@@ -90,17 +89,33 @@ def _freq(w_rad_s: float | None, unit: FrequencyUnit) -> str:
     return f"{num(unit.show(w_rad_s))} {unit.label}"
 
 
+class Picture(Flowable):
+    """A figure's raster drawn at its print size (no PNG round trip)."""
+
+    def __init__(self, plot: Plot) -> None:
+        super().__init__()
+        self.plot = plot
+        self.width = plot.width_in * inch
+        self.height = plot.height_in * inch
+
+    def wrap(self, avail_width: float, avail_height: float) -> tuple[float, float]:
+        return self.width, self.height
+
+    def draw(self) -> None:
+        from reportlab.lib.utils import ImageReader
+
+        self.canv.drawImage(ImageReader(self.plot.pixels.image()), 0, 0,
+                            width=self.width, height=self.height)
+
+
 def _figure(plot: Plot, st: dict[str, Any]) -> KeepTogether:
-    img = Image(io.BytesIO(plot.png), width=plot.width_in * inch, height=plot.height_in * inch)
-    return KeepTogether([img, Paragraph(text(plot.caption), st["caption"])])
+    return KeepTogether([Picture(plot), Paragraph(text(plot.caption), st["caption"])])
 
 
 def _side_by_side(a: Plot, b: Plot, st: dict[str, Any]) -> Table:
     cells = []
     for p in (a, b):
-        cells.append([Image(io.BytesIO(p.png), width=p.width_in * inch,
-                            height=p.height_in * inch),
-                      Paragraph(text(p.caption), st["caption"])])
+        cells.append([Picture(p), Paragraph(text(p.caption), st["caption"])])
     table = Table([cells], colWidths=[FRAME_W / 2, FRAME_W / 2])
     table.setStyle(TableStyle([("VALIGN", (0, 0), (-1, -1), "TOP"),
                                ("LEFTPADDING", (0, 0), (-1, -1), 2),

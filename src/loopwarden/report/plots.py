@@ -16,6 +16,7 @@ import io
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from matplotlib.axes import Axes
@@ -53,13 +54,39 @@ _RC = {
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class Plot:
-    """One rendered figure: PNG bytes and the size it is printed at."""
+    """One rendered figure: its pixels and the size it is printed at.
+
+    ``pixels`` is the RGB raster at :data:`DPI`; :attr:`png` encodes it on demand (the PDF
+    embeds the raster directly, so encoding a PNG there would be wasted work).
+    """
 
     key: str                    # "bode", "nyquist", ...
-    png: bytes
+    pixels: Raster
     width_in: float
     height_in: float
     caption: str
+
+    @property
+    def png(self) -> bytes:
+        """PNG bytes without text chunks: the same figure gives the same bytes."""
+        buf = io.BytesIO()
+        self.pixels.image().save(buf, format="PNG", dpi=(DPI, DPI), compress_level=6)
+        return buf.getvalue()
+
+
+@dataclass(frozen=True, slots=True)
+class Raster:
+    """An 8-bit RGB raster: ``rgb`` holds width·height·3 bytes, row by row."""
+
+    width_px: int
+    height_px: int
+    rgb: bytes
+
+    def image(self) -> Any:
+        """The raster as a PIL image."""
+        from PIL import Image as PILImage
+
+        return PILImage.frombytes("RGB", (self.width_px, self.height_px), self.rgb)
 
 
 @dataclass(frozen=True, slots=True)
@@ -98,20 +125,16 @@ def _place(fig: Figure, *, left: float = 0.62, right: float = 0.14, top: float =
                         bottom=bottom / h, hspace=hgap / axes_h, wspace=wgap / axes_w)
 
 
-def _png(fig: Figure) -> bytes:
-    """Draw and encode as an RGB PNG with no text chunks (same figure, same bytes).
+def _pixels(fig: Figure) -> Raster:
+    """Draw the figure and keep its RGB raster.
 
     RGB rather than matplotlib's RGBA: the figures are opaque, and an alpha channel would
     make reportlab write a second (mask) image for every figure.
     """
-    from PIL import Image as PILImage
-
     fig.canvas.draw()
     rgba = np.asarray(fig.canvas.buffer_rgba())  # type: ignore[attr-defined]
-    buf = io.BytesIO()
-    PILImage.fromarray(np.ascontiguousarray(rgba[..., :3])).save(
-        buf, format="PNG", dpi=(DPI, DPI), compress_level=1)  # reportlab re-compresses
-    return buf.getvalue()
+    h, w = rgba.shape[:2]
+    return Raster(width_px=w, height_px=h, rgb=np.ascontiguousarray(rgba[..., :3]).tobytes())
 
 
 _SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
@@ -127,19 +150,43 @@ def _decade(x: float, _pos: int) -> str:
     return "10" + str(int(round(e))).translate(_SUPERSCRIPT)
 
 
-def _style(ax: Axes) -> None:
-    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+def _minor_log_grid(ax: Axes, which: str) -> None:
+    """Faint lines at 2× and 5× each decade, drawn as one collection.
 
-    # Minor ticks at 2× and 5× per decade only: each tick is an artist, and eight per
-    # decade over six decades made the figures slow to draw without reading any better.
-    for axis, scale in ((ax.xaxis, ax.get_xscale()), (ax.yaxis, ax.get_yscale())):
+    Minor ticks would do the same, but every tick is several artists and drawing them took
+    a fifth of the time of a figure.
+    """
+    lo, hi = (ax.get_xlim() if which == "x" else ax.get_ylim())
+    data = ax.dataLim.intervalx if which == "x" else ax.dataLim.intervaly
+    lo, hi = min(lo, hi, *data), max(lo, hi, *data)
+    if not (lo > 0 and math.isfinite(lo) and math.isfinite(hi)):
+        return
+    decades = range(math.floor(math.log10(lo)), math.ceil(math.log10(hi)) + 1)
+    at = [m * 10.0 ** d for d in decades for m in (2.0, 5.0)]
+    from matplotlib.collections import LineCollection
+
+    if which == "x":
+        segments = [((v, 0.0), (v, 1.0)) for v in at]
+        transform = ax.get_xaxis_transform()
+    else:
+        segments = [((0.0, v), (1.0, v)) for v in at]
+        transform = ax.get_yaxis_transform()
+    lines = LineCollection(segments, colors="#ececec", linewidths=0.3, zorder=0,
+                           transform=transform)
+    ax.add_collection(lines, autolim=False)      # grid lines must not widen the view
+
+
+def _style(ax: Axes) -> None:
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullLocator
+
+    for axis, scale, which in ((ax.xaxis, ax.get_xscale(), "x"),
+                               (ax.yaxis, ax.get_yscale(), "y")):
         if scale == "log":
             axis.set_major_locator(LogLocator(base=10.0, numticks=12))
             axis.set_major_formatter(FuncFormatter(_decade))
-            axis.set_minor_locator(LogLocator(base=10.0, subs=(2.0, 5.0), numticks=12))
-            axis.set_minor_formatter(NullFormatter())
+            axis.set_minor_locator(NullLocator())
+            _minor_log_grid(ax, which)
     ax.grid(True, which="major", linewidth=0.45, color="#d0d0d0")
-    ax.grid(True, which="minor", linewidth=0.25, color="#ececec")
     ax.tick_params(length=2.5, width=0.5)
     for side in ("top", "right"):
         ax.spines[side].set_visible(False)
@@ -235,7 +282,7 @@ def bode_figure(analysis: LoopAnalysis, unit: FrequencyUnit, *,
         if curves is None or curves.frequency_rad_s.size < 2:
             _no_data(ax_m, "no frequency response was computed")
             ax_p.set_visible(False)
-            return Plot(key="bode", png=_png(fig), width_in=width_in, height_in=height_in,
+            return Plot(key="bode", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
                         caption="Open-loop frequency response (not available).")
         w = curves.frequency_rad_s
         f = w * unit.per_rad_s
@@ -307,7 +354,7 @@ def bode_figure(analysis: LoopAnalysis, unit: FrequencyUnit, *,
         if omitted > 0:
             caption += (f" {omitted} further crossing{'s' if omitted != 1 else ''} with larger "
                         "margins not drawn (see the table of crossings).")
-        return Plot(key="bode", png=_png(fig), width_in=width_in, height_in=height_in,
+        return Plot(key="bode", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
                     caption=caption)
 
 
@@ -358,7 +405,7 @@ def nyquist_figure(analysis: LoopAnalysis, *, width_in: float = 3.2,
         caption = (f"Nyquist curve near −1, {analysis.variant}. The shaded disc (centre −1, "
                    f"radius 1/Ms) is the closest the curve comes to −1: Ms = {_fmt(ms)}. "
                    "Dots: gain crossings on the unit circle; squares: phase crossings.")
-        return Plot(key="nyquist", png=_png(fig), width_in=width_in, height_in=height_in,
+        return Plot(key="nyquist", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
                     caption=caption)
 
 
@@ -394,7 +441,7 @@ def sensitivity_figure(analysis: LoopAnalysis, unit: FrequencyUnit, *,
         sens = analysis.sensitivity
         if curves is None or curves.open_loop.size < 2:
             _no_data(ax_s, "no frequency response was computed")
-            return Plot(key="sensitivity", png=_png(fig), width_in=width_in,
+            return Plot(key="sensitivity", pixels=_pixels(fig), width_in=width_in,
                         height_in=height_in, caption="Sensitivity (not available).")
         w = curves.frequency_rad_s
         f = w * unit.per_rad_s
@@ -467,7 +514,7 @@ def sensitivity_figure(analysis: LoopAnalysis, unit: FrequencyUnit, *,
             caption += (" Shaded: the reference frequencies where each low-frequency boost "
                         "stage makes the tracking error at least 2× (darker) or 3 dB "
                         "(lighter) smaller than the same loop without it.")
-        return Plot(key="sensitivity", png=_png(fig), width_in=width_in, height_in=height_in,
+        return Plot(key="sensitivity", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
                     caption=caption)
 
 
@@ -490,7 +537,7 @@ def time_figure(analysis: LoopAnalysis, *, width_in: float = FULL_WIDTH_IN,
             for ax in (ax_y, ax_log, ax_r):
                 _no_data(ax, why)
             _place(fig, rows=2, cols=2, hgap=0.62, wgap=0.72)
-            return Plot(key="time", png=_png(fig), width_in=width_in, height_in=height_in,
+            return Plot(key="time", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
                         caption=f"Closed-loop responses, {analysis.variant}: {why}.")
         t = curves.step.time_s
         y = curves.step.value
@@ -546,7 +593,9 @@ def time_figure(analysis: LoopAnalysis, *, width_in: float = FULL_WIDTH_IN,
                              linestyle=":",
                              label=f"steady state 1/Kv = {_fmt(analysis.tracking.ramp_error)}")
             ax_r.set_xlim(tr[0], tr[-1])
-            ax_r.legend(loc="upper right", frameon=False)
+            # A growing error (type 0) ends top right; put the legend where the curve isn't.
+            rising = er[-1] >= 0.8 * float(np.max(er))
+            ax_r.legend(loc="lower right" if rising else "upper right", frameon=False)
         else:
             _no_data(ax_r, analysis.errors.get("ramp", "no ramp response was computed"))
         ax_r.set_xlabel("time (s)")
@@ -562,7 +611,7 @@ def time_figure(analysis: LoopAnalysis, *, width_in: float = FULL_WIDTH_IN,
         if tail_pairs:
             caption += (" The dashed red line is the slow pair's own term |r|·e^(p·t): while "
                         "it lies above the band, the tail alone keeps the output unsettled.")
-        return Plot(key="time", png=_png(fig), width_in=width_in, height_in=height_in,
+        return Plot(key="time", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
                     caption=caption)
 
 
@@ -624,7 +673,7 @@ def pole_zero_figure(analysis: LoopAnalysis, zeros: NDArray[np.complex128], *,
         if pairs:
             caption += (" Red rings: slow closed-loop poles nearly cancelled by a zero; "
                         "their small residue decays slowly.")
-        return Plot(key="poles", png=_png(fig), width_in=width_in, height_in=height_in,
+        return Plot(key="poles", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
                     caption=caption)
 
 
@@ -638,7 +687,7 @@ def _open_loop_map(fig: Figure, analysis: LoopAnalysis, zeros: NDArray[np.comple
                      "delay;\nstability follows from the Nyquist count")
         ax.set_title(f"Closed-loop poles — {analysis.variant}", loc="left")
         _place(fig, left=0.2, right=0.2, bottom=0.2)
-        return Plot(key="poles", png=_png(fig), width_in=width_in, height_in=height_in,
+        return Plot(key="poles", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
                     caption=f"Pole-zero map, {analysis.variant}: not available "
                             "(transport delay).")
     r = 1.15 * (float(np.max(np.abs(np.concatenate([poles, zeros])))) or 1.0)
@@ -659,7 +708,7 @@ def _open_loop_map(fig: Figure, analysis: LoopAnalysis, zeros: NDArray[np.comple
     _style(ax)
     ax.set_title(f"Open-loop poles and zeros — {analysis.variant}", loc="left")
     _place(fig, left=0.55)
-    return Plot(key="poles", png=_png(fig), width_in=width_in, height_in=height_in,
+    return Plot(key="poles", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
                 caption=f"Open-loop poles (×) and closed-loop zeros (○) of the rational part, "
                         f"{analysis.variant}. With a transport delay the closed loop has "
                         "infinitely many poles; stability is decided by the Nyquist count "
