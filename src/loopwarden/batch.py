@@ -43,6 +43,7 @@ SUMMARY_MD = "summary.md"
 MD_TITLE = "# loopwarden batch summary"
 _REVIEW_SCHEMA = "loopwarden-review/1"      # == report.json_out.SCHEMA (not imported here)
 _WORST = 3                                  # findings named per design in summary.md
+_PER_WORKER = 4                             # fewer designs than this per worker: fewer workers
 
 Row = dict[str, Any]
 
@@ -364,7 +365,8 @@ def run_batch(inputs: Sequence[Path], out_dir: Path, *, ruleset: str | None = No
     ruleset : str, optional
         Shipped set name or rule-set file; default ``general``.
     jobs : int, optional
-        Worker processes; default :func:`default_jobs`.  ``1`` reviews in this process.
+        Most worker processes; default :func:`default_jobs`.  Each worker gets at least
+        four designs; with one worker the designs are reviewed in this process.
     date : str, optional
         Review date (YYYY-MM-DD); default as :func:`loopwarden.review_run.review_date`.
     progress : text stream, optional
@@ -398,7 +400,9 @@ def run_batch(inputs: Sequence[Path], out_dir: Path, *, ruleset: str | None = No
                                                                           strict=True))]
     bar = Progress(len(tasks), progress)
     args = (rs.path, day, tool_version)
-    workers = min(jobs, len(tasks))
+    # Starting a worker (a fresh interpreter importing numpy and scipy) costs about as
+    # much as a few small reviews: give each worker at least a few designs.
+    workers = min(jobs, math.ceil(len(tasks) / _PER_WORKER))
     if workers == 1:
         outcomes = []
         for task in tasks:

@@ -52,7 +52,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--out", metavar="OUTDIR", required=True,
                         help="folder for the reviews and summaries")
     parser.add_argument("--jobs", "-j", metavar="N", type=_jobs, default=None,
-                        help="worker processes (default: min(2, number of CPUs))")
+                        help="most worker processes (default: min(2, number of CPUs)); "
+                             "each gets at least 4 designs, one worker runs in this process")
     parser.add_argument("--rules", metavar="SET", default=None,
                         help="shipped rule set name or a rule-set file; default general")
     parser.add_argument("--date", metavar="YYYY-MM-DD",
