@@ -244,3 +244,22 @@ def test_unreadable_input_is_a_usage_error(signed: Path, tmp_path: Path) -> None
 def test_damaged_pdf_is_a_failed_check_not_a_pass(tmp_path: Path) -> None:
     report = verify_pdf(_write(tmp_path, b"%PDF-1.4\n garbage without structure\n"))
     assert not report.ok and report.checks and not report.checks[0].passed
+
+
+@pytest.mark.parametrize("evidence", [b'{"schema": "loopwarden-review/1", "design": "x"}',
+                                      b'{"schema": "other/2"}', b"not json", None])
+def test_bad_evidence_in_a_validly_signed_file_fails(evidence: bytes | None,
+                                                     keys: dict[str, Path],
+                                                     tmp_path: Path) -> None:
+    # The signature is fine; what it covers is not a loopwarden review.
+    import loopwarden as lw
+
+    review = lw.review(lw.load_design(str(DESIGN)), today="2026-01-15")
+    files = {"design.toml": review.design.text.encode("utf-8")}
+    if evidence is not None:
+        files["review.json"] = evidence
+    pdf = sign_pdf(render_pdf(review, embedded=files), keys["alice"], PASS)
+    report = verify_pdf(_write(tmp_path, pdf), trust=keys["alice"].with_suffix(".pem"))
+    assert not report.ok
+    assert _failed(report) & {"embedded evidence", "evidence content",
+                              "embedded inputs match evidence"}

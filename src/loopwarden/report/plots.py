@@ -48,7 +48,6 @@ _RC = {
     "legend.fontsize": 6.8,
     "axes.linewidth": 0.6,
     "lines.linewidth": 1.2,
-    "svg.hashsalt": "loopwarden",
 }
 
 

@@ -271,26 +271,37 @@ def _verify(data: bytes, roots: list[Any] | None, trust: Path | str | None,
     evidence = _evidence(files, checks)
     if evidence is None:
         return done()
-    verdict = str(evidence.get("verdict"))
-    _consistency(files, evidence, checks)
-    named = evidence.get("signer")
-    if named is not None:
-        checks.append(Check("signer named in evidence", signer is not None and
-                            str(named) in signer,
-                            f"evidence names {named!r}; certificate subject {signer!r}"))
+    try:
+        verdict = str(evidence.get("verdict"))
+        _consistency(files, evidence, checks)
+        named = evidence.get("signer")
+        if named is not None:
+            checks.append(Check("signer named in evidence", str(named) == signer,
+                                f"evidence names {named!r}; certificate subject {signer!r}"))
 
-    # 6. the inputs on disk
-    rec_design = str(evidence.get("design", {}).get("sha256", ""))
-    rec_rules = str(evidence.get("ruleset", {}).get("sha256", ""))
-    if design_bytes is not None:
-        got = _sha(design_bytes)
-        checks.append(Check("design file matches", got == rec_design,
-                            f"sha256 {_short(got)}; evidence records {_short(rec_design)}"))
-    if rules_bytes is not None:
-        got = _sha(rules_bytes)
-        checks.append(Check("rule-set file matches", got == rec_rules,
-                            f"sha256 {_short(got)}; evidence records {_short(rec_rules)}"))
+        # 6. the inputs on disk
+        rec_design = str(_table(evidence, "design").get("sha256", ""))
+        rec_rules = str(_table(evidence, "ruleset").get("sha256", ""))
+        if design_bytes is not None:
+            got = _sha(design_bytes)
+            checks.append(Check("design file matches", got == rec_design,
+                                f"sha256 {_short(got)}; evidence records {_short(rec_design)}"))
+        if rules_bytes is not None:
+            got = _sha(rules_bytes)
+            checks.append(Check("rule-set file matches", got == rec_rules,
+                                f"sha256 {_short(got)}; evidence records {_short(rec_rules)}"))
+    except Exception as exc:  # noqa: BLE001 - malformed evidence is a failure, not a crash
+        checks.append(Check("evidence content", False,
+                            f"the evidence is malformed: {type(exc).__name__}: {exc}"))
+        return done()
     return done(complete=True)
+
+
+def _table(evidence: dict[str, Any], key: str) -> dict[str, Any]:
+    value = evidence.get(key)
+    if not isinstance(value, dict):
+        raise ValueError(f"{key!r} is not a table")
+    return value
 
 
 def _evidence(files: dict[str, bytes], checks: list[Check]) -> dict[str, Any] | None:
@@ -310,10 +321,11 @@ def _evidence(files: dict[str, bytes], checks: list[Check]) -> dict[str, Any] | 
         checks.append(Check("embedded evidence", False,
                             f"review.json has schema {got!r}, expected {SCHEMA!r}"))
         return None
-    design = evidence.get("design") or {}
+    design = evidence.get("design")
+    name = design.get("name") if isinstance(design, dict) else None
     checks.append(Check("embedded evidence", True,
-                        f"review.json ({len(raw)} bytes, {SCHEMA}): design "
-                        f"{design.get('name')!r}, verdict {evidence.get('verdict')}"))
+                        f"review.json ({len(raw)} bytes, {SCHEMA}): design {name!r}, "
+                        f"verdict {evidence.get('verdict')}"))
     return evidence
 
 
@@ -321,9 +333,9 @@ def _consistency(files: dict[str, bytes], evidence: dict[str, Any],
                  checks: list[Check]) -> None:
     """The embedded input files hash to what the embedded evidence records."""
     problems = []
-    expected = {"design.toml": str((evidence.get("design") or {}).get("sha256", "")),
-                "rules.toml": str((evidence.get("ruleset") or {}).get("sha256", ""))}
-    for f in (evidence.get("ruleset") or {}).get("files", [])[1:]:
+    expected = {"design.toml": str(_table(evidence, "design").get("sha256", "")),
+                "rules.toml": str(_table(evidence, "ruleset").get("sha256", ""))}
+    for f in _table(evidence, "ruleset").get("files", [])[1:]:
         expected[f"rules-{f.get('id')}.toml"] = str(f.get("sha256", ""))
     for name, digest in expected.items():
         if name not in files:
