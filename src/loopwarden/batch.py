@@ -305,8 +305,7 @@ class Progress:
         if self.stream is None:
             return
         if not self.bar:
-            what = outcome.verdict if outcome.error is None else f"{outcome.verdict}: " \
-                                                                 f"{outcome.error}"
+            what = outcome.verdict + (f": {outcome.error}" if outcome.error else "")
             self.stream.write(f"[{self.done}/{self.total}] {outcome.path}: {what}\n")
             self.stream.flush()
             return
