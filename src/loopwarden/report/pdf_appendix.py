@@ -35,9 +35,9 @@ def _params(params: Mapping[str, float | str], unit: FrequencyUnit) -> str:
     return ", ".join(parts)
 
 
-def _tf(model: Any) -> str:
-    return f"<font name='LW-Mono' size='7'>{text(zpk_text(model.zeros, model.poles, model.gain))}" \
-           "</font>"
+def _tf(model: Any, var: str = "s") -> str:
+    tf = zpk_text(model.zeros, model.poles, model.gain, var)
+    return f"<font name='LW-Mono' size='7'>{text(tf)}</font>"
 
 
 def appendix(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[Any]:
@@ -52,14 +52,18 @@ def appendix(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[An
     out.append(Paragraph("Controller stages, in signal order", st["h3"]))
     rows = [["Stage", "Type", "Parameters", "Transfer function"]]
     for s in d.controller:
+        var = "z" if getattr(s, "domain", "s") == "z" else "s"
         rows.append([f"controller[{s.index}]", text(s.type), text(_params(s.params, unit)),
-                     _tf(s.model)])
+                     _tf(s.model, var)])
     out.append(grid_table(rows, st, (14, 10, 34, 42)))
 
     out.append(Paragraph("Plant variants", st["h3"]))
     rows = [["Variant", "Read from", "Transfer function", "Delay"]]
     for v in d.variants:
-        rows.append([text(v.name), f"{text(v.where)} ({text(v.form)})", _tf(v.model),
+        measured = getattr(v, "measured", None)
+        model = (_tf(v.model) if measured is None else
+                 f"measured response {text(measured.file)} ({measured.points} points)")
+        rows.append([text(v.name), f"{text(v.where)} ({text(v.form)})", model,
                      f"{num(v.delay_s)} s"])
     out.append(grid_table(rows, st, (16, 18, 54, 12)))
 
@@ -69,10 +73,24 @@ def appendix(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[An
         sensor += f", delay {num(d.sensor_delay_s)} s"
     out.append(Paragraph(sensor, st["body"]))
 
-    nominal = d.loop(d.variants[0])
-    out.append(Paragraph("Loop, nominal plant", st["h3"]))
-    delay = f" · e^(−{num(nominal.delay_s)}·s)" if nominal.delay_s else ""
-    out.append(Paragraph(f"L(s) = C·P·H = {_tf(nominal.rational)}{text(delay)}", st["body"]))
+    sampling = getattr(d, "sampling", None)
+    if sampling is not None:
+        out.append(Paragraph("Sampling", st["h3"]))
+        prewarp = (f", prewarp {num(unit.show(sampling.prewarp_rad_s))} {unit.label}"
+                   if sampling.prewarp_rad_s else "")
+        out.append(Paragraph(f"period {num(sampling.period_s)} s, continuous stages "
+                             f"discretised by {text(sampling.method)}{text(prewarp)}, compute "
+                             f"delay {sampling.compute_delay_samples} sample(s); plant, "
+                             "sensor and delays sampled through a zero-order hold.",
+                             st["body"]))
+    if getattr(d.variants[0], "measured", None) is None:
+        nominal = d.loop(d.variants[0])
+        var = "z" if sampling is not None else "s"
+        out.append(Paragraph("Loop, nominal plant", st["h3"]))
+        delay = (f" · e^(−{num(nominal.delay_s)}·s)"
+                 if nominal.delay_s and sampling is None else "")
+        out.append(Paragraph(f"L({var}) = C·P·H = {_tf(nominal.rational, var)}{text(delay)}",
+                             st["body"]))
 
     req = d.requirements
     items = []

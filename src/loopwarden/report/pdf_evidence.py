@@ -132,6 +132,9 @@ def _stability_text(a: LoopAnalysis) -> str:
         how = (f"Nyquist count: N = {s.clockwise_encirclements} clockwise encirclements, "
                f"P = {s.open_loop_rhp_poles} open-loop RHP poles, "
                f"Z = {s.rhp_closed_loop_poles}")
+    elif getattr(s, "domain", "s") == "z":
+        how = (f"{len(s.closed_loop_poles)} closed-loop poles in z, "
+               f"{s.rhp_closed_loop_poles} on or outside the unit circle")
     else:
         how = (f"{len(s.closed_loop_poles)} closed-loop poles, "
                f"{s.rhp_closed_loop_poles} in the closed right half-plane")
@@ -263,17 +266,61 @@ def _boosts(a: LoopAnalysis, st: dict[str, Any], unit: FrequencyUnit) -> list[An
             grid_table(rows, st, (18, 20, 10, 13, 13, 14, 26))]
 
 
+def _plant_text(variant: Any, unit: FrequencyUnit) -> str:
+    """One line saying which plant this variant is: its model, or its measured response."""
+    delay = f", transport delay {num(variant.delay_s)} s" if variant.delay_s else ""
+    where = "" if variant.where == "plant" else f" ({text(variant.where)})"
+    measured = getattr(variant, "measured", None)
+    if measured is not None:
+        return (f"Plant{where}: measured frequency response <b>{text(measured.file)}</b>, "
+                f"{measured.points} points from {_freq(measured.frequency_min_rad_s, unit)} "
+                f"to {_freq(measured.frequency_max_rad_s, unit)} (sha256 <font "
+                f"name='LW-Mono' size='7'>{measured.sha256}</font>){delay}.")
+    model = variant.model
+    plant = zpk_text(model.zeros, model.poles, model.gain)
+    return (f"Plant{where}: P(s) = <font name='LW-Mono' size='7.6'>{text(plant)}</font>"
+            f"{delay}.")
+
+
+def _sampled_and_measured(a: LoopAnalysis, st: dict[str, Any],
+                          unit: FrequencyUnit) -> list[Any]:
+    """What sampling does to this loop, and what a measured response leaves undecided."""
+    out: list[Any] = []
+    sampling = getattr(a, "sampling", None)
+    if sampling is not None:
+        bw = sampling.closed_loop_bandwidth_rad_s
+        prewarp = (f", prewarped at {_freq(sampling.prewarp_rad_s, unit)}"
+                   if sampling.prewarp_rad_s else "")
+        out.append(Paragraph(
+            f"Sampled loop: period {num(sampling.period_s)} s ({text(sampling.method)}"
+            f"{prewarp}), compute delay {sampling.compute_delay_samples} sample(s), "
+            f"plant delay {num(sampling.plant_delay_samples)} samples; Nyquist frequency "
+            f"{_freq(sampling.nyquist_rad_s, unit)}; closed-loop bandwidth "
+            f"{_freq(bw, unit) if bw is not None else 'not below the Nyquist frequency'}, "
+            f"sample rate {num(sampling.sample_rate_ratio, 3)}× the bandwidth. "
+            f"{text(sampling.note)}", st["body"]))
+    coverage = getattr(a, "coverage", None)
+    if coverage is not None:
+        out.append(Paragraph(
+            f"Measured response {text(coverage.file)}: {coverage.points} points, "
+            f"{_freq(coverage.frequency_min_rad_s, unit)} to "
+            f"{_freq(coverage.frequency_max_rad_s, unit)}; |L| from "
+            f"{num(coverage.loop_gain_at_min, 3)} to {num(coverage.loop_gain_at_max, 3)} "
+            f"across it; declared open-loop unstable poles {coverage.unstable_poles}, "
+            f"integrators {coverage.integrators}. {text(coverage.assumptions)}", st["body"]))
+        for check, why in sorted(coverage.uncovered.items()):
+            out.append(Paragraph(f"<b>{text(check)}</b> not decided by the measured range: "
+                                 f"{text(why)}", st["small"]))
+    return out
+
+
 def evidence_section(review: Review, a: LoopAnalysis, st: dict[str, Any],
                      unit: FrequencyUnit, *, number: str) -> list[Any]:
     """Section 2.n: the figures and plots of one plant variant."""
     variant = next(v for v in review.design.variants if v.name == a.variant)
-    out: list[Any] = [Paragraph(f"{number}  Evidence: {text(a.variant)}", st["h1"])]
-    plant = zpk_text(variant.model.zeros, variant.model.poles, variant.model.gain)
-    delay = f", transport delay {num(variant.delay_s)} s" if variant.delay_s else ""
-    where = "" if variant.where == "plant" else f" ({text(variant.where)})"
-    out.append(Paragraph(f"Plant{where}: P(s) = "
-                         f"<font name='LW-Mono' size='7.6'>{text(plant)}</font>{delay}.",
-                         st["body"]))
+    out: list[Any] = [Paragraph(f"{number}  Evidence: {text(a.variant)}", st["h1"]),
+                      Paragraph(_plant_text(variant, unit), st["body"])]
+    out += _sampled_and_measured(a, st, unit)
     out += _key_figures(a, st, unit)
     out += _crossings(a, st, unit)
     out += _slow_pairs(a, st)
@@ -281,6 +328,11 @@ def evidence_section(review: Review, a: LoopAnalysis, st: dict[str, Any],
     if a.errors:
         out.append(Paragraph("Not computed", st["h3"]))
         for part, why in sorted(a.errors.items()):
+            out.append(Paragraph(f"<b>{text(part)}</b>: {text(why)}", st["small"]))
+    not_applicable = getattr(a, "not_applicable", None) or {}
+    if not_applicable:
+        out.append(Paragraph("Not applicable to this loop", st["h3"]))
+        for part, why in sorted(not_applicable.items()):
             out.append(Paragraph(f"<b>{text(part)}</b>: {text(why)}", st["small"]))
     out.append(Spacer(1, 3 * mm))
     plots = variant_plots(review.design, a)

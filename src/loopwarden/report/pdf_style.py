@@ -143,8 +143,8 @@ def text(s: object) -> str:
     return escape(str(s))
 
 
-def zpk_text(zeros: object, poles: object, gain: float) -> str:
-    """A transfer function written as gain · factors / factors, in s (rad/s).
+def zpk_text(zeros: object, poles: object, gain: float, var: str = "s") -> str:
+    """A transfer function written as gain · factors / factors, in ``var`` (s or z).
 
     Real roots r give ``(s + a)`` with a = −r, complex pairs give ``(s² + b·s + c)``, roots at
     the origin give ``s``.  Used only for the appendix's "model as read".
@@ -157,12 +157,12 @@ def zpk_text(zeros: object, poles: object, gain: float) -> str:
                 origin += 1
             elif r.imag == 0:
                 a = -r.real
-                out.append(f"(s {'+' if a > 0 else '−'} {num(abs(a))})")
+                out.append(f"({var} {'+' if a > 0 else '−'} {num(abs(a))})")
             elif r.imag > 0:
                 b, c = -2.0 * r.real, abs(r) ** 2
-                out.append(f"(s² {'+' if b >= 0 else '−'} {num(abs(b))}·s + {num(c)})")
+                out.append(f"({var}² {'+' if b >= 0 else '−'} {num(abs(b))}·{var} + {num(c)})")
         if origin:
-            out.insert(0, "s" if origin == 1 else f"s^{origin}")
+            out.insert(0, var if origin == 1 else f"{var}^{origin}")
         return out
 
     num_f, den_f = factors(zeros), factors(poles)

@@ -328,6 +328,15 @@ def bode_figure(analysis: LoopAnalysis, unit: FrequencyUnit, *,
             _label(ax_m, fp, -pc.gain_margin_db / 2.0,
                    f"GM {_fmt(pc.gain_margin_db)} dB\n@ {_fmt(fp)} {unit.label}", col)
 
+        sampling = getattr(analysis, "sampling", None)
+        if sampling is not None and w[0] <= sampling.nyquist_rad_s <= w[-1] * 1.001:
+            fn = unit.show(sampling.nyquist_rad_s)
+            for ax in (ax_m, ax_p):
+                ax.axvline(fn, color=C_FAIL, linewidth=0.8, linestyle="-.")
+            ax_m.annotate("Nyquist\nfrequency", (fn, 1.0), xycoords=("data", "axes fraction"),
+                          xytext=(-4, -4), textcoords="offset points", ha="right", va="top",
+                          fontsize=6.5, color=C_FAIL)
+
         # Magnitude view: clip the steep ends, but never hide a marked gain-margin arrow.
         need = [0.0] + [-pc.gain_margin_db for pc in phases]
         top = max(min(float(np.max(mag)), 60.0), max(need) + 10.0)
@@ -632,6 +641,8 @@ def pole_zero_figure(analysis: LoopAnalysis, zeros: NDArray[np.complex128], *,
         pairs = analysis.slow_tail.pairs if analysis.slow_tail is not None else ()
         if poles.size == 0:
             return _open_loop_map(fig, analysis, zeros, open_loop_poles, width_in, height_in)
+        if getattr(analysis.stability, "domain", "s") == "z":
+            return _z_plane_map(fig, analysis, poles, zeros, width_in, height_in)
         span = float(np.max(np.abs(np.concatenate([poles, zeros])))) or 1.0
         zoom = None
         if pairs:
@@ -676,19 +687,58 @@ def pole_zero_figure(analysis: LoopAnalysis, zeros: NDArray[np.complex128], *,
                     caption=caption)
 
 
+def _z_plane_map(fig: Figure, analysis: LoopAnalysis, poles: NDArray[np.complex128],
+                 zeros: NDArray[np.complex128], width_in: float, height_in: float) -> Plot:
+    """Closed-loop poles and zeros of a sampled loop in the z-plane, with the unit circle."""
+    ax = fig.subplots()
+    pairs = analysis.slow_tail.pairs if analysis.slow_tail is not None else ()
+    theta = np.linspace(0.0, 2.0 * math.pi, 361)
+    ax.plot(np.cos(theta), np.sin(theta), color=C_MARK, linewidth=0.7, linestyle="--",
+            label="unit circle")
+    ax.axhline(0.0, color=C_MARK, linewidth=0.5)
+    ax.axvline(0.0, color=C_MARK, linewidth=0.5)
+    ax.plot(poles.real, poles.imag, "x", color=C_MAIN, markersize=5, mew=1.2,
+            label="closed-loop poles")
+    finite = zeros[np.isfinite(zeros)] if zeros.size else zeros
+    if finite.size:
+        ax.plot(finite.real, finite.imag, "o", mfc="none", color=C_SECOND, markersize=5,
+                mew=1.0, label="closed-loop zeros")
+    for pair in pairs:
+        ax.plot([(pair.pole.real + pair.zero.real) / 2.0],
+                [(pair.pole.imag + pair.zero.imag) / 2.0], "o", mfc="none", color=C_FAIL,
+                markersize=15, mew=1.0)
+    r = max(1.2, 1.1 * float(np.max(np.abs(np.concatenate([poles, finite])))))
+    ax.set_xlim(-r, r)
+    ax.set_ylim(-r, r)
+    ax.set_aspect("equal")
+    ax.set_xlabel("Re z")
+    ax.set_ylabel("Im z")
+    ax.legend(loc="upper left", frameon=False, fontsize=6.2)
+    _style(ax)
+    ax.set_title(f"Closed-loop poles and zeros (z) — {analysis.variant}", loc="left")
+    _place(fig, left=0.5)
+    caption = (f"Closed-loop poles (×) and zeros (○) of the sampled loop in the z-plane, "
+               f"{analysis.variant}: stable when every pole lies inside the unit circle.")
+    if pairs:
+        caption += " Red rings: slow poles nearly cancelled by a zero."
+    return Plot(key="poles", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
+                caption=caption)
+
+
 def _open_loop_map(fig: Figure, analysis: LoopAnalysis, zeros: NDArray[np.complex128],
                    poles: NDArray[np.complex128] | None, width_in: float,
                    height_in: float) -> Plot:
     """The open-loop pole-zero map, for loops whose closed-loop poles are not computed."""
     ax = fig.subplots()
     if poles is None or poles.size + zeros.size == 0:
-        _no_data(ax, "closed-loop poles are not computed\nfor a loop with transport "
-                     "delay;\nstability follows from the Nyquist count")
+        why = ("measured plant: no poles or zeros" if poles is None else
+               "transport delay")
+        _no_data(ax, f"closed-loop poles are not computed\n({why});\nstability follows "
+                     "from the Nyquist count")
         ax.set_title(f"Closed-loop poles — {analysis.variant}", loc="left")
         _place(fig, left=0.2, right=0.2, bottom=0.2)
         return Plot(key="poles", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
-                    caption=f"Pole-zero map, {analysis.variant}: not available "
-                            "(transport delay).")
+                    caption=f"Pole-zero map, {analysis.variant}: not available ({why}).")
     r = 1.15 * (float(np.max(np.abs(np.concatenate([poles, zeros])))) or 1.0)
     ax.axhline(0.0, color=C_MARK, linewidth=0.5)
     ax.axvline(0.0, color=C_MARK, linewidth=0.5)
@@ -714,16 +764,29 @@ def _open_loop_map(fig: Figure, analysis: LoopAnalysis, zeros: NDArray[np.comple
                         "instead.")
 
 
+def _variant(design: Design, name: str) -> Any:
+    return next(v for v in design.variants if v.name == name)
+
+
 def closed_loop_zeros(design: Design, variant_name: str) -> NDArray[np.complex128]:
-    """Zeros of r → y as read from the model: zeros of C·P and the sensor's poles."""
-    variant = next(v for v in design.variants if v.name == variant_name)
+    """Zeros of r → y as read from the model: zeros of C·P and the sensor's poles.
+
+    Empty for a measured plant (it has no model to read zeros from).  For a sampled design
+    they are in z, like the analysis's closed-loop poles.
+    """
+    variant = _variant(design, variant_name)
+    if getattr(variant, "measured", None) is not None:
+        return np.zeros(0, dtype=complex)
     loop = design.loop(variant)
     return np.concatenate([loop.forward.zeros, loop.sensor.poles]).astype(complex)
 
 
-def _open_loop_poles(design: Design, variant_name: str) -> NDArray[np.complex128]:
-    """Poles of C·P·H as read from the model (shown only for delay loops)."""
-    variant = next(v for v in design.variants if v.name == variant_name)
+def _open_loop_poles(design: Design, variant_name: str) -> NDArray[np.complex128] | None:
+    """Poles of C·P·H as read from the model (shown only for delay loops); None for a
+    measured plant."""
+    variant = _variant(design, variant_name)
+    if getattr(variant, "measured", None) is not None:
+        return None
     return np.asarray(design.loop(variant).rational.poles, dtype=complex)
 
 
