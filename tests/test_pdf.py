@@ -123,7 +123,7 @@ def test_hz_design_shows_hz() -> None:
     text = " ".join(page_texts(render_pdf(review, embedded={})))
     a = review.analyses[0]
     shown = a.margins.gain_crossover_rad_s / (2 * 3.141592653589793)
-    assert "Frequencies shown in Hz" in text
+    assert "Frequency unit Hz" in text
     assert f"{shown:.4g} Hz" in text
 
 

@@ -224,7 +224,7 @@ def _cover(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[Any]
         ("Rule-set file", f"{text(rs.path)}<br/><font name='LW-Mono' size='7'>sha256 "
                           f"{rs.sha256}</font>"),
         ("Plant variants", text(", ".join(a.variant for a in review.analyses))),
-        ("Frequencies shown in", text(unit.label)),
+        ("Frequency unit", text(unit.label)),
         ("Tool", f"loopwarden {text(run.tool_version)}"),
         ("Review date", text(run.date)),
     ]
@@ -251,6 +251,16 @@ def _cover(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[Any]
     contents += ["A  The model as read", "B  The rule set", "Cautions and embedded evidence"]
     for line in contents:
         out.append(Paragraph(text(line), st["small"]))
+    out.append(Spacer(1, 6 * mm))
+    out.append(Paragraph("Reading this review", st["h3"]))
+    out.append(Paragraph(
+        "Every rule of the rule set is checked on every plant variant. FAIL and ERROR "
+        "findings block the release (an error is a figure that could not be computed); WARN "
+        "findings do not block; a WAIVED finding names the waiver that allows it; N/A means "
+        "the rule does not apply to this loop or no limit was given. Section 2 shows the "
+        "evidence behind every number, the appendix the model exactly as it was read. The "
+        "evidence file, the design file and the rule set are embedded in this PDF.",
+        st["body"]))
     return out
 
 

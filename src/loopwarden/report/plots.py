@@ -668,23 +668,35 @@ def pole_zero_figure(analysis: LoopAnalysis, zeros: NDArray[np.complex128], *,
                 cx = (pair.pole.real + pair.zero.real) / 2.0
                 cy = (pair.pole.imag + pair.zero.imag) / 2.0
                 ax.plot([cx], [cy], "o", mfc="none", color=C_FAIL, markersize=15, mew=1.0)
-            ax.set_xlim(-r, max(0.25 * r, 1.15 * float(np.max(poles.real)) if
-                                np.max(poles.real) > 0 else 0.25 * r))
-            ax.set_ylim(-0.75 * r, 0.75 * r)
+            ax.set_xlim(*_pz_limits(poles, zeros, r)[0])
+            ax.set_ylim(*_pz_limits(poles, zeros, r)[1])
             ax.set_ylabel("Im s (rad/s)")
             _style(ax)
         views[-1][0].set_xlabel("Re s (1/s)")
         ax_all.set_title(f"Closed-loop poles and zeros — {analysis.variant}", loc="left")
-        ax_all.legend(loc="upper left", frameon=False)
+        # No legend: it would sit on roots; the caption names the markers.
         if zoom is not None:
             views[-1][0].set_title("near the origin (slow pairs ringed)", loc="left")
-        _place(fig, left=0.55, rows=2 if zoom is not None else 1, hgap=0.6)
+        _place(fig, left=0.66, rows=2 if zoom is not None else 1, hgap=0.6)
         caption = f"Closed-loop poles (×) and zeros (○), {analysis.variant}."
         if pairs:
             caption += (" Red rings: slow closed-loop poles nearly cancelled by a zero; "
                         "their small residue decays slowly.")
         return Plot(key="poles", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
                     caption=caption)
+
+
+def _pz_limits(poles: NDArray[np.complex128], zeros: NDArray[np.complex128],
+               r: float) -> tuple[tuple[float, float], tuple[float, float]]:
+    """x and y limits of a pole-zero view of size ``r``: every root within ``r`` stays
+    inside, imaginary parts included (lightly damped pairs sit far above the real axis)."""
+    roots = np.concatenate([poles, zeros])
+    inside = roots[np.abs(roots) <= r * 1.0001] if roots.size else roots
+    right = float(np.max(inside.real)) if inside.size else 0.0
+    x = (-r, max(0.25 * r, 1.15 * right if right > 0 else 0.25 * r))
+    top = float(np.max(np.abs(inside.imag))) if inside.size else 0.0
+    y_half = max(0.75 * r, 1.4 * top) if top > 0.5 * r else 0.75 * r   # room for the legend
+    return x, (-y_half, y_half)
 
 
 def _z_plane_map(fig: Figure, analysis: LoopAnalysis, poles: NDArray[np.complex128],
@@ -713,12 +725,12 @@ def _z_plane_map(fig: Figure, analysis: LoopAnalysis, poles: NDArray[np.complex1
     ax.set_aspect("equal")
     ax.set_xlabel("Re z")
     ax.set_ylabel("Im z")
-    ax.legend(loc="upper left", frameon=False, fontsize=6.2)
     _style(ax)
     ax.set_title(f"Closed-loop poles and zeros (z) — {analysis.variant}", loc="left")
     _place(fig, left=0.5)
     caption = (f"Closed-loop poles (×) and zeros (○) of the sampled loop in the z-plane, "
-               f"{analysis.variant}: stable when every pole lies inside the unit circle.")
+               f"{analysis.variant}: stable when every pole lies inside the unit circle "
+               "(dashed).")
     if pairs:
         caption += " Red rings: slow poles nearly cancelled by a zero."
     return Plot(key="poles", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
@@ -751,7 +763,6 @@ def _open_loop_map(fig: Figure, analysis: LoopAnalysis, zeros: NDArray[np.comple
     ax.set_ylim(-0.75 * r, 0.75 * r)
     ax.set_xlabel("Re s (1/s)")
     ax.set_ylabel("Im s (rad/s)")
-    ax.legend(loc="upper left", frameon=False)
     ax.text(0.98, 0.03, "closed-loop poles not computed:\ntransport delay (Nyquist count)",
             transform=ax.transAxes, ha="right", va="bottom", fontsize=6.5, color=C_MARK)
     _style(ax)
