@@ -767,7 +767,7 @@ def _open_loop_map(fig: Figure, analysis: LoopAnalysis, zeros: NDArray[np.comple
             transform=ax.transAxes, ha="right", va="bottom", fontsize=6.5, color=C_MARK)
     _style(ax)
     ax.set_title(f"Open-loop poles and zeros — {analysis.variant}", loc="left")
-    _place(fig, left=0.55)
+    _place(fig, left=0.7)
     return Plot(key="poles", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
                 caption=f"Open-loop poles (×) and closed-loop zeros (○) of the rational part, "
                         f"{analysis.variant}. With a transport delay the closed loop has "
