@@ -263,3 +263,61 @@ def test_bad_evidence_in_a_validly_signed_file_fails(evidence: bytes | None,
     assert not report.ok
     assert _failed(report) & {"embedded evidence", "evidence content",
                               "embedded inputs match evidence"}
+
+
+def _ca_issued_key(folder: Path) -> tuple[Path, Path]:
+    """An organisation-style key: an end-entity certificate issued by a CA (the CA's
+    certificate is the trust anchor; the PKCS#12 file carries the chain)."""
+    import datetime as dt
+
+    from cryptography import x509
+    from cryptography.hazmat.primitives import hashes, serialization
+    from cryptography.hazmat.primitives.asymmetric import ec
+    from cryptography.hazmat.primitives.serialization import pkcs12
+    from cryptography.x509.oid import NameOID
+
+    now = dt.datetime.now(dt.UTC)
+    ca_key = ec.generate_private_key(ec.SECP256R1())
+    ca_name = x509.Name([x509.NameAttribute(NameOID.COMMON_NAME, "Example Works Signing CA")])
+    ca = (x509.CertificateBuilder().subject_name(ca_name).issuer_name(ca_name)
+          .public_key(ca_key.public_key()).serial_number(x509.random_serial_number())
+          .not_valid_before(now - dt.timedelta(days=1))
+          .not_valid_after(now + dt.timedelta(days=30))
+          .add_extension(x509.BasicConstraints(ca=True, path_length=0), critical=True)
+          .add_extension(x509.KeyUsage(digital_signature=False, content_commitment=False,
+                                       key_encipherment=False, data_encipherment=False,
+                                       key_agreement=False, key_cert_sign=True, crl_sign=True,
+                                       encipher_only=False, decipher_only=False), critical=True)
+          .sign(ca_key, hashes.SHA256()))
+    key = ec.generate_private_key(ec.SECP256R1())
+    name = x509.Name([x509.NameAttribute(NameOID.COMMON_NAME, "Release Engineer")])
+    cert = (x509.CertificateBuilder().subject_name(name).issuer_name(ca_name)
+            .public_key(key.public_key()).serial_number(x509.random_serial_number())
+            .not_valid_before(now - dt.timedelta(days=1))
+            .not_valid_after(now + dt.timedelta(days=30))
+            .add_extension(x509.KeyUsage(digital_signature=True, content_commitment=True,
+                                         key_encipherment=False, data_encipherment=False,
+                                         key_agreement=False, key_cert_sign=False,
+                                         crl_sign=False, encipher_only=False,
+                                         decipher_only=False), critical=True)
+            .sign(ca_key, hashes.SHA256()))
+    p12 = folder / "release.p12"
+    p12.write_bytes(pkcs12.serialize_key_and_certificates(
+        b"release", key, cert, [ca], serialization.NoEncryption()))
+    ca_pem = folder / "ca.pem"
+    ca_pem.write_bytes(ca.public_bytes(serialization.Encoding.PEM))
+    return p12, ca_pem
+
+
+def test_key_issued_by_a_ca_verifies_against_the_ca(keys: dict[str, Path],
+                                                    tmp_path: Path) -> None:
+    # The release path: the organisation's CA certificate is the trust anchor.
+    p12, ca_pem = _ca_issued_key(tmp_path)
+    pdf, _, _ = _unsigned()
+    path = _write(tmp_path, sign_pdf(pdf, p12, None), "release.pdf")
+    report = verify_pdf(path, trust=ca_pem)
+    # The evidence names the trial signer (Alice); everything else must pass.
+    assert _failed(report) == {"signer named in evidence"}
+    assert report.signer == "Release Engineer"
+    assert _failed(verify_pdf(path, trust=keys["alice"].with_suffix(".pem"))) >= {
+        "trusted signer"}
