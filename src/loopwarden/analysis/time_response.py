@@ -24,6 +24,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 from numpy.typing import NDArray
@@ -32,6 +33,7 @@ from scipy import linalg, optimize
 from ..errors import AnalysisError
 from ..lti import FloatArray, Loop, Zpk
 from .closed_loop import StateSpace, closed_loop, delay_split, reference_to_output
+from .modal import ModalForm, balance, modal_form_balanced
 from .results import StepMetrics, StepResult, TimeSeries
 
 __all__ = [
@@ -71,6 +73,8 @@ class RationalResponse:
     """Exact reference step and ramp responses of a Hurwitz closed loop r → y.
 
     ``a``, ``b``, ``c``, ``d`` is the closed loop from r to y (single input and output).
+    The transients come from one eigendecomposition (:mod:`.modal`) when it is
+    trustworthy, else from matrix exponentials (powers of ``e^{Ah}`` on the grid).
     """
 
     a: NDArray[np.float64]
@@ -84,9 +88,32 @@ class RationalResponse:
         ss = closed_loop(loop)
         return cls(ss.a, ss.b, ss.c[0:1, :], float(ss.d[0, 0]))
 
-    @property
+    @cached_property
     def _x_inf(self) -> NDArray[np.float64]:
         return -np.linalg.solve(self.a, self.b)
+
+    @cached_property
+    def _b1(self) -> NDArray[np.float64]:
+        return np.linalg.solve(self.a, self._x_inf)
+
+    @cached_property
+    def _balanced(self) -> tuple[NDArray[np.float64], NDArray[np.float64],
+                                 NDArray[np.float64], NDArray[np.float64]]:
+        """``D⁻¹AD``, ``D⁻¹x∞``, ``D⁻¹b₁``, ``CD`` for the balancing diagonal D (powers of
+        two, so exact): matrix exponentials of badly scaled realisations lose accuracy."""
+        ab, diag = balance(self.a)
+        return (ab, self._x_inf / diag[:, None], self._b1 / diag[:, None],
+                self.c * diag[None, :])
+
+    @cached_property
+    def modes(self) -> ModalForm | None:
+        """The modal form of the transients, or None when it is not trustworthy."""
+        if self.a.shape[0] == 0:
+            return None
+        cx = float((self.c @ self._x_inf)[0, 0])
+        ab, xb, b1b, cb = self._balanced
+        return modal_form_balanced(ab, xb[:, 0], b1b[:, 0], cb[0],
+                                   max(abs(cx), abs(cx + self.d)))
 
     @property
     def final_value(self) -> float:
@@ -100,14 +127,20 @@ class RationalResponse:
         if self.a.shape[0] == 0:
             return self.d
         x_inf = self._x_inf
-        x = x_inf - linalg.expm(self.a * t) @ x_inf
-        return float((self.c @ x)[0, 0] + self.d)
+        cx = float((self.c @ x_inf)[0, 0])
+        if self.modes is not None:
+            return cx - self.modes.transient(t)[0] + self.d
+        ab, xb, _, cb = self._balanced
+        return cx - float((cb @ linalg.expm(ab * t) @ xb)[0, 0]) + self.d
 
     def step_slope_at(self, t: float) -> float:
         """dy/dt for r = 1(t) at t > 0: the impulse response ``C e^{At} B``."""
         if self.a.shape[0] == 0:
             return 0.0
-        return float((self.c @ linalg.expm(self.a * t) @ self.b)[0, 0])
+        if self.modes is not None:
+            return self.modes.step_slope(t)
+        ab, xb, _, cb = self._balanced
+        return -float((cb @ linalg.expm(ab * t) @ (ab @ xb))[0, 0])
 
     def on_grid(self, horizon_s: float, steps: int) -> tuple[FloatArray, FloatArray, FloatArray]:
         """Uniform grid ``t``, step response ``y`` and ramp error ``t − y_ramp``.
@@ -119,13 +152,18 @@ class RationalResponse:
         n = self.a.shape[0]
         if n == 0:
             return t, np.full(t.shape, self.d), t - self.d * t
-        x_inf = self._x_inf
-        b1 = np.linalg.solve(self.a, x_inf)
-        phi = linalg.expm(self.a * (horizon_s / steps))
-        powers = _output_of_powers(phi, np.hstack([x_inf, b1]), self.c, steps + 1)
+        x_inf, b1 = self._x_inf, self._b1
+        h = horizon_s / steps
+        if self.modes is not None:
+            step_tr, ramp_tr = self.modes.on_grid(h, steps + 1)
+        else:
+            ab, xb, b1b, cb = self._balanced
+            phi = linalg.expm(ab * h)
+            powers = _output_of_powers(phi, np.hstack([xb, b1b]), cb, steps + 1)
+            step_tr, ramp_tr = powers[:, 0], powers[:, 1]
         cx, cb = float((self.c @ x_inf)[0, 0]), float((self.c @ b1)[0, 0])
-        y = cx - powers[:, 0] + self.d
-        y_ramp = cx * t + cb - powers[:, 1] + self.d * t
+        y = cx - step_tr + self.d
+        y_ramp = cx * t + cb - ramp_tr + self.d * t
         return t, y, t - y_ramp
 
 
@@ -134,7 +172,8 @@ def _output_of_powers(phi: NDArray[np.float64], v: NDArray[np.float64],
     """``c Φ^k v`` for k = 0 … count−1, shape (count, columns of v).
 
     Blocks of states are advanced by one multiplication with Φ^B, which keeps the cost at
-    a few hundred matrix products for a 10⁵-sample grid.
+    a few hundred matrix products for a 10⁵-sample grid.  Used only when the modal form
+    is not trustworthy (a nearly defective closed-loop matrix).
     """
     n, m = v.shape
     block = min(256, count)
