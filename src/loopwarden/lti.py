@@ -16,6 +16,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -298,12 +299,12 @@ class Loop:
     delay_s: float = 0.0
     stages: tuple[Zpk, ...] = ()
 
-    @property
+    @cached_property
     def rational(self) -> Zpk:
-        """``C·P·H`` without the delay."""
+        """``C·P·H`` without the delay (formed once per loop: every analysis asks for it)."""
         return self.controller * self.plant * self.sensor
 
-    @property
+    @cached_property
     def forward(self) -> Zpk:
         """``C·P`` (reference to output, without delay and feedback)."""
         return self.controller * self.plant

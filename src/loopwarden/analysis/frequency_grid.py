@@ -15,6 +15,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from numpy.typing import NDArray
 
 from ..lti import FloatArray, Loop, Zpk
 
@@ -28,6 +29,8 @@ __all__ = [
     "imaginary_axis_frequencies",
     "log_magnitude",
     "loop_grid",
+    "phase",
+    "response",
     "magnitude_bound",
     "span_points",
 ]
@@ -89,17 +92,81 @@ def frequency_range(loop: Loop) -> tuple[float, float]:
     return min(low / 100.0, 1e-4 * scale), max(high * 100.0, 1e4 * scale)
 
 
+#: Frequencies evaluated per block by the vectorised evaluators (points × roots matrices).
+_CHUNK = 2048
+
+
+def _blocks(w: FloatArray) -> list[slice]:
+    return [slice(i, i + _CHUNK) for i in range(0, max(w.size, 1), _CHUNK)]
+
+
 def log_magnitude(zpk: Zpk, w_rad_s: FloatArray) -> FloatArray:
-    """``ln|G(jω)|`` summed factor by factor (no overflow for high orders)."""
+    """``ln|G(jω)|`` summed factor by factor (no overflow for high orders).
+
+    Vectorised over the roots: one ``ln|jω − r|`` matrix per block of frequencies.
+    """
     w = np.asarray(w_rad_s, dtype=float)
-    jw = 1j * w
-    out = np.full(w.shape, math.log(abs(zpk.gain)) if zpk.gain != 0 else -math.inf)
-    with np.errstate(divide="ignore"):
-        for z in zpk.zeros:
-            out = out + np.log(np.abs(jw - z))
-        for p in zpk.poles:
-            out = out - np.log(np.abs(jw - p))
-    return out
+    flat = w.ravel()
+    out = np.full(flat.shape, math.log(abs(zpk.gain)) if zpk.gain != 0 else -math.inf)
+    if zpk.gain == 0 or (zpk.zeros.size == 0 and zpk.poles.size == 0):
+        return out.reshape(w.shape)
+    roots = np.concatenate([zpk.zeros, zpk.poles])
+    sign = np.concatenate([np.ones(zpk.zeros.size), -np.ones(zpk.poles.size)])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for blk in _blocks(flat):
+            terms = np.log(np.abs(1j * flat[blk, None] - roots[None, :]))
+            # ±inf terms (ω on a root) must not meet as inf − inf in a dot product.
+            finite = np.isfinite(terms)
+            if finite.all():
+                out[blk] += terms @ sign
+            else:
+                out[blk] += np.where(finite, terms, 0.0) @ sign
+                out[blk] += np.where(~finite, terms * sign, 0.0).sum(axis=1)
+    return out.reshape(w.shape)
+
+
+def phase(zpk: Zpk, w_rad_s: FloatArray) -> FloatArray:
+    """Continuous phase of ``G(jω)`` for ω ≥ 0 (rad), as :meth:`Zpk.phase_rad`.
+
+    Same branches per factor (``π − atan2(ω − Im r, Re r)`` for a right-half-plane root),
+    vectorised over the roots.
+    """
+    w = np.asarray(w_rad_s, dtype=float)
+    flat = w.ravel()
+    out = np.full(flat.shape, -math.pi if zpk.gain < 0 else 0.0)
+    roots = np.concatenate([zpk.zeros, zpk.poles])
+    if roots.size == 0:
+        return out.reshape(w.shape)
+    sign = np.concatenate([np.ones(zpk.zeros.size), -np.ones(zpk.poles.size)])
+    rhp = roots.real > 0
+    for blk in _blocks(flat):
+        dw = flat[blk, None] - roots.imag[None, :]
+        ang = np.where(rhp, math.pi - np.arctan2(dw, roots.real), np.arctan2(dw, -roots.real))
+        out[blk] += ang @ sign
+    return out.reshape(w.shape)
+
+
+def response(zpk: Zpk, w_rad_s: FloatArray) -> NDArray[np.complex128]:
+    """``G(jω)`` evaluated factor by factor, vectorised over the roots.
+
+    Each zero is paired with a pole, ``(jω − z)/(jω − p)``, before the product is taken, so
+    the intermediate values stay near the result's size (no overflow at high orders).
+    """
+    w = np.asarray(w_rad_s, dtype=float)
+    flat = w.ravel()
+    out = np.full(flat.shape, zpk.gain, dtype=complex)
+    z, p = zpk.zeros, zpk.poles
+    m = min(z.size, p.size)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for blk in _blocks(flat):
+            s = 1j * flat[blk, None]
+            parts = [(s - z[None, :m]) / (s - p[None, :m])]
+            if p.size > m:
+                parts.append(1.0 / (s - p[None, m:]))
+            if z.size > m:
+                parts.append(s - z[None, m:])
+            out[blk] *= np.prod(np.concatenate(parts, axis=1), axis=1)
+    return out.reshape(w.shape)
 
 
 def magnitude_bound(zpk: Zpk, r: float) -> float:

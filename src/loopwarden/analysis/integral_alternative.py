@@ -16,16 +16,25 @@ import math
 from collections.abc import Sequence
 
 import numpy as np
-from scipy import optimize
+from scipy import linalg, optimize
 
 from ..design.model import Stage
 from ..errors import AnalysisError
-from ..lti import Loop, Zpk
-from .margins import compute_margins
+from ..lti import FloatArray, Loop, Zpk
+from .closed_loop import delay_split
+from .frequency_grid import imaginary_axis_frequencies, log_magnitude, loop_grid
+from .frequency_grid import phase as loop_phase
+from .margins import (
+    bracketed_roots,
+    compute_margins,
+    dedupe,
+    valid_steps,
+    wrap_phase_margin_deg,
+)
 from .results import Boost, IntegralAlternative, Margins
 from .sensitivity import compute_sensitivity
 from .slow_pairs import slow_tail
-from .stability import closed_loop_stability
+from .stability import closed_loop_stability, poles_stable
 from .time_response import step_response
 from .tracking import compute_tracking
 
@@ -67,10 +76,76 @@ def integral_loop(loop: Loop, stages: Sequence[Stage], stage_index: int) -> Loop
     return loop.with_controller(models)
 
 
-def _phase_margin_if_stable(loop: Loop) -> tuple[bool, Margins | None]:
-    if not closed_loop_stability(loop).closed_loop_stable:
-        return False, None
-    return True, compute_margins(loop)
+class _GainSearch:
+    """Stability and phase margin of ``base`` with its gain scaled by k, for many k.
+
+    For a rational loop whose blocks are all proper, the data that do not depend on k are
+    computed once: the delay-split realisation (closing ``w = k·u`` gives the closed-loop
+    matrix of the scaled loop, a similarity of the one :func:`.closed_loop.closed_loop`
+    builds), and ``ln|L|`` and ``∠L`` on one grid that holds the analysis grids of the
+    loop at both ends of :data:`GAIN_RANGE` (the gain crossings of ``k·L`` are where
+    ``ln|L| = −ln k``; the phase does not depend on k).  The margin is then the one
+    :func:`.margins.compute_margins` reports for the scaled loop: at each gain crossing
+    ``180° + ∠L`` wrapped, the crossing of smallest magnitude deciding, inf without one.
+    Other loops (delay, improper blocks) are scaled and analysed in full for every k.
+    """
+
+    def __init__(self, base: Loop) -> None:
+        self.base = base
+        blocks = (*(base.stages or (base.controller,)), base.plant, base.sensor)
+        self.fast = not base.has_delay and all(b.is_proper for b in blocks)
+        if not self.fast:
+            return
+        split = delay_split(base)
+        self.a = split.a
+        self.bw = split.b[:, 1:2]
+        self.cu = split.c[1:2, :]
+        self.duw = float(split.d[1, 1])
+        rat = base.rational
+        self.rat = rat
+        hi, lo = GAIN_RANGE
+        w = np.union1d(loop_grid(base.scaled(hi)), loop_grid(base.scaled(lo)))
+        self.w = w
+        self.f = log_magnitude(rat, w)
+        self.valid = valid_steps(w, imaginary_axis_frequencies(rat))
+
+    def _stable(self, k: float) -> bool:
+        den = 1.0 - k * self.duw
+        if abs(den) < 1e-12:
+            raise AnalysisError("the loop is not well posed: 1 + L(∞) = 0")
+        a = self.a + self.bw @ (self.cu * (k / den))
+        return poles_stable(linalg.eigvals(a) if a.shape[0] else np.zeros(0, dtype=complex))
+
+    def _phase_margin(self, k: float) -> float:
+        rat = self.rat
+        if rat.gain == 0 or k == 0:
+            return math.inf
+        lk = math.log(k)
+        f = self.f + lk
+        above = f > 0
+        steps = (self.valid & (above[:-1] != above[1:]) & np.isfinite(f[:-1])
+                 & np.isfinite(f[1:]))
+        idx = np.flatnonzero(steps)
+        if idx.size == 0:
+            return math.inf
+
+        def fn(u: FloatArray, _: FloatArray) -> FloatArray:
+            return log_magnitude(rat, np.exp(u)) + lk
+
+        w_gc = dedupe(np.exp(bracketed_roots(fn, np.log(self.w[idx]), np.log(self.w[idx + 1]))))
+        pm = wrap_phase_margin_deg(np.degrees(loop_phase(rat, w_gc)))
+        return float(pm[int(np.argmin(np.abs(pm)))])
+
+    def evaluate(self, k: float) -> tuple[bool, float | None]:
+        """``(closed loop stable, phase margin in deg or None when unstable)`` at gain k."""
+        if not self.fast:
+            loop = self.base.scaled(k)
+            if not closed_loop_stability(loop).closed_loop_stable:
+                return False, None
+            return True, compute_margins(loop).phase_margin_deg
+        if not self._stable(k):
+            return False, None
+        return True, self._phase_margin(k)
 
 
 def _choose_gain(base: Loop, target_deg: float) -> tuple[float, bool]:
@@ -82,17 +157,18 @@ def _choose_gain(base: Loop, target_deg: float) -> tuple[float, bool]:
     hi, lo = GAIN_RANGE
     count = int(round(math.log10(hi / lo) * GRID_PER_DECADE)) + 1
     grid = np.logspace(math.log10(hi), math.log10(lo), count)
+    search = _GainSearch(base)
 
     def meets(k: float) -> bool:
-        stable, m = _phase_margin_if_stable(base.scaled(k))
-        return stable and m is not None and m.phase_margin_deg >= target_deg
+        stable, pm = search.evaluate(k)
+        return stable and pm is not None and pm >= target_deg
 
     best: tuple[float, float] | None = None       # (phase margin, k) of the best stable
     for j, k in enumerate(grid):
-        stable, m = _phase_margin_if_stable(base.scaled(float(k)))
-        if not stable or m is None:
+        stable, pm = search.evaluate(float(k))
+        if not stable or pm is None:
             continue
-        if m.phase_margin_deg >= target_deg:
+        if pm >= target_deg:
             if j == 0:
                 return float(k), True
             # Refine between this gain (meets) and the next higher one (does not).
@@ -104,23 +180,23 @@ def _choose_gain(base: Loop, target_deg: float) -> tuple[float, bool]:
                 else:
                     k_bad = mid
             return k_ok, True
-        if best is None or m.phase_margin_deg > best[0]:
-            best = (m.phase_margin_deg, float(k))
+        if best is None or pm > best[0]:
+            best = (pm, float(k))
     if best is None:
         raise AnalysisError(f"no gain factor in [{lo:g}, {hi:g}] makes the integral "
                             "alternative closed-loop stable")
-    return _best_reachable(base, best[1], grid), False
+    return _best_reachable(search, best[1], grid), False
 
 
-def _best_reachable(base: Loop, k_best: float, grid: np.ndarray) -> float:
+def _best_reachable(search: _GainSearch, k_best: float, grid: np.ndarray) -> float:
     """Refine the grid's best phase margin between the neighbouring grid gains."""
     step = math.log(grid[0] / grid[1])
     lo = max(math.log(k_best) - step, math.log(grid[-1]))
     hi = min(math.log(k_best) + step, math.log(grid[0]))
 
     def neg_pm(logk: float) -> float:
-        stable, m = _phase_margin_if_stable(base.scaled(math.exp(logk)))
-        return -m.phase_margin_deg if stable and m is not None else math.inf
+        stable, pm = search.evaluate(math.exp(logk))
+        return -pm if stable and pm is not None else math.inf
 
     res = optimize.minimize_scalar(neg_pm, bounds=(lo, hi), method="bounded",
                                    options={"xatol": 1e-6})

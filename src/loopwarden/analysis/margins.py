@@ -35,10 +35,11 @@ from .frequency_grid import (
     magnitude_bound,
     span_points,
 )
+from .frequency_grid import phase as loop_phase
 from .results import GainCrossing, Margins, PhaseCrossing
 
-__all__ = ["bracketed_roots", "compute_margins", "gain_crossover_frequencies",
-           "phase_crossover_frequencies", "plot_grid", "wrap_phase_margin_deg"]
+__all__ = ["bracketed_roots", "compute_margins", "dedupe", "gain_crossover_frequencies",
+           "phase_crossover_frequencies", "plot_grid", "valid_steps", "wrap_phase_margin_deg"]
 
 #: Tolerance of the crossing refinement in u = ln ω (so relative in ω).
 _XTOL = 1e-14
@@ -104,13 +105,14 @@ def bracketed_roots(fn: Callable[[FloatArray, FloatArray], FloatArray],
     return root
 
 
-def _valid_steps(w: FloatArray, axis: FloatArray) -> FloatArray:
+def valid_steps(w: FloatArray, axis: FloatArray) -> FloatArray:
     """Mask of grid steps ``[w_i, w_{i+1}]`` that contain no imaginary-axis root."""
     seg = np.searchsorted(axis, w)
     return seg[:-1] == seg[1:]
 
 
-def _dedupe(w: FloatArray) -> FloatArray:
+def dedupe(w: FloatArray) -> FloatArray:
+    """Sorted frequencies with those within a relative 1e−9 of the previous one dropped."""
     w = np.sort(w)
     if w.size < 2:
         return w
@@ -127,20 +129,20 @@ def gain_crossover_frequencies(loop: Loop, w: FloatArray | None = None) -> Float
         w = loop_grid(loop)
     f = log_magnitude(rat, w)
     above = f > 0
-    steps = (_valid_steps(w, imaginary_axis_frequencies(rat)) & (above[:-1] != above[1:])
+    steps = (valid_steps(w, imaginary_axis_frequencies(rat)) & (above[:-1] != above[1:])
              & np.isfinite(f[:-1]) & np.isfinite(f[1:]))
     idx = np.flatnonzero(steps)
 
     def fn(u: FloatArray, _: FloatArray) -> FloatArray:
         return log_magnitude(rat, np.exp(u))
 
-    return _dedupe(np.exp(bracketed_roots(fn, np.log(w[idx]), np.log(w[idx + 1]))))
+    return dedupe(np.exp(bracketed_roots(fn, np.log(w[idx]), np.log(w[idx + 1]))))
 
 
 def _phase_crossings_on(rat: Zpk, delay_s: float, w: FloatArray) -> FloatArray:
     """Phase crossings inside the span of grid ``w`` (rad/s)."""
     def phase(x: FloatArray) -> FloatArray:
-        return rat.phase_rad(x) - x * delay_s
+        return loop_phase(rat, x) - x * delay_s
 
     g = (phase(w) + math.pi) / (2.0 * math.pi)
     lo = np.minimum(g[:-1], g[1:])
@@ -148,7 +150,7 @@ def _phase_crossings_on(rat: Zpk, delay_s: float, w: FloatArray) -> FloatArray:
     # Integers n with lo < n ≤ hi: each is one crossing of the phase through −π + 2πn.
     first = np.floor(lo) + 1.0
     count = np.floor(hi) - first + 1.0
-    count[~_valid_steps(w, imaginary_axis_frequencies(rat))] = 0.0
+    count[~valid_steps(w, imaginary_axis_frequencies(rat))] = 0.0
     count = np.maximum(count, 0.0).astype(int)
     step = np.repeat(np.arange(count.size), count)
     offsets = np.arange(step.size) - np.repeat(np.cumsum(count) - count, count)
@@ -188,7 +190,7 @@ def phase_crossover_frequencies(loop: Loop, w: FloatArray | None = None) -> Floa
         ext = np.concatenate([[end], span_points(loop, end, new_end)])
         found.append(_phase_crossings_on(rat, loop.delay_s, ext))
         end = new_end
-    return _dedupe(np.concatenate(found))
+    return dedupe(np.concatenate(found))
 
 
 def _endpoint_crossings(loop: Loop) -> list[PhaseCrossing]:
@@ -213,8 +215,11 @@ def _phase_crossing(w: float, magnitude: float) -> PhaseCrossing:
     return PhaseCrossing(frequency_rad_s=w, magnitude=magnitude, gain_margin_db=gm_db)
 
 
-def compute_margins(loop: Loop) -> Margins:
+def compute_margins(loop: Loop, w: FloatArray | None = None) -> Margins:
     """Gain, phase and delay margins of ``L = C·P·H·e^(−sT)`` over every crossing.
+
+    ``w`` is the analysis grid (rad/s; default :func:`~.frequency_grid.loop_grid`), passed
+    in when the caller has it already.
 
     Returns
     -------
@@ -238,11 +243,12 @@ def compute_margins(loop: Loop) -> Margins:
     mattering), found as :func:`phase_crossover_frequencies` describes.
     """
     rat = loop.rational
-    w = loop_grid(loop)
+    if w is None:
+        w = loop_grid(loop)
     w_gc = gain_crossover_frequencies(loop, w)
     w_pc = phase_crossover_frequencies(loop, w)
 
-    pm = wrap_phase_margin_deg(np.degrees(loop.open_loop_phase_rad(w_gc)))
+    pm = wrap_phase_margin_deg(np.degrees(loop_phase(rat, w_gc) - w_gc * loop.delay_s))
     dm = np.radians(np.mod(pm, 360.0)) / w_gc if w_gc.size else np.zeros(0)
     gains = tuple(GainCrossing(frequency_rad_s=float(x), phase_margin_deg=float(p),
                                delay_margin_s=float(d)) for x, p, d in zip(w_gc, pm, dm,

@@ -4,7 +4,7 @@
 limits at ω = 0 and ω = ∞ are included (a peak there is reported at 0.0 or ``math.inf``,
 where python-control's ``linfnorm`` returns inf), the interior maximum is found on
 :func:`~.frequency_grid.loop_grid` and refined by bounded scalar minimisation in ``ln ω``
-around the best grid maxima.
+around the best grid maxima (golden section, all maxima of |S|, |T| and |S − 1/2| at once).
 
 Balanced disk margin (Seiler, Packard & Gahinet, "An Introduction to Disk Margins",
 IEEE Control Systems Magazine 40(5), 2020 [memory]): ``α = 1/max|S − 1/2|``; the loop
@@ -15,13 +15,13 @@ tolerates every simultaneous gain and phase change in the disk, in particular ga
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 
 import numpy as np
-from scipy.optimize import minimize_scalar
+from numpy.typing import NDArray
 
 from ..lti import ComplexArray, FloatArray, Loop
-from .frequency_grid import loop_grid
+from .frequency_grid import loop_grid, response
 from .results import Sensitivity
 
 __all__ = ["compute_sensitivity", "disk_ranges"]
@@ -31,6 +31,8 @@ _CANDIDATES = 6
 _MAX_CANDIDATES = 12
 _XATOL = 1e-12
 _TIE_RTOL = 1e-12
+#: Golden-section steps at most (each shrinks a bracket by 0.618).
+_MAX_GOLDEN = 100
 
 
 def _limits(loop: Loop) -> tuple[tuple[float, float, float], tuple[float, float, float]]:
@@ -62,19 +64,8 @@ def _limits(loop: Loop) -> tuple[tuple[float, float, float], tuple[float, float,
     return zero, high
 
 
-def _peak(fn: Callable[[ComplexArray], FloatArray], l_grid: ComplexArray, w: FloatArray,
-          l_of_w: Callable[[FloatArray], ComplexArray], at_zero: float, at_inf: float,
-          ) -> tuple[float, float]:
-    """Supremum of ``fn(L(jω))`` over [0, ∞] and where it is attained (rad/s)."""
-    vals = fn(l_grid)
-    # An interior value must beat an exact end value by more than rounding to replace it.
-    best_val, best_w = at_zero, 0.0
-    if at_inf > best_val:
-        best_val, best_w = at_inf, math.inf
-    floor = best_val * (1.0 + _TIE_RTOL)
-    if not np.all(np.isfinite(vals)):
-        i = int(np.flatnonzero(~np.isfinite(vals))[0])
-        return math.inf, float(w[i])
+def _candidates(vals: FloatArray) -> NDArray[np.int_]:
+    """Grid maxima to refine: the largest few and any other within 0.1 % of the best."""
     interior = np.flatnonzero(np.r_[True, vals[1:] >= vals[:-1]]
                               & np.r_[vals[:-1] >= vals[1:], True])
     # Refine the largest grid maxima and any other within 0.1 % of the best: the grid value
@@ -82,23 +73,107 @@ def _peak(fn: Callable[[ComplexArray], FloatArray], l_grid: ComplexArray, w: Flo
     ranked = interior[np.argsort(vals[interior])[::-1]]
     close = vals[ranked] >= 0.999 * vals[ranked[0]] if ranked.size else ranked.astype(bool)
     keep = np.arange(ranked.size) < _CANDIDATES
-    interior = ranked[(keep | close)][:_MAX_CANDIDATES]
+    return ranked[(keep | close)][:_MAX_CANDIDATES]
+
+
+def _golden_max(fn: Callable[[FloatArray], FloatArray], a: FloatArray,
+                b: FloatArray) -> tuple[FloatArray, FloatArray]:
+    """Local maxima of ``fn`` on every bracket ``[a_i, b_i]`` at once (golden section).
+
+    ``fn`` maps an array of ``u`` (one per bracket) to the values.  Converged when a
+    bracket is narrower than ``1.5e−8·|u| + _XATOL`` (the tolerance of scipy's bounded
+    scalar minimiser).  Returns the best point evaluated in each bracket and its value.
+    """
+    g = 0.5 * (3.0 - math.sqrt(5.0))
+    a, b = a.astype(float).copy(), b.astype(float).copy()
+    c = a + g * (b - a)
+    d = b - g * (b - a)
+    fc, fd = fn(c), fn(d)
+    best_u = np.where(fc >= fd, c, d)
+    best_f = np.maximum(fc, fd)
+    for _ in range(_MAX_GOLDEN):
+        active = (b - a) > 2.0 * (1.5e-8 * np.abs(0.5 * (a + b)) + _XATOL / 3.0)
+        if not active.any():
+            break
+        left = fc >= fd                      # the maximum lies in [a, d]
+        b = np.where(active & left, d, b)
+        a = np.where(active & ~left, c, a)
+        new_c = np.where(left, a + g * (b - a), d)
+        new_d = np.where(left, c, b - g * (b - a))
+        probe = np.where(left, new_c, new_d)
+        fp = np.where(active, fn(probe), -np.inf)
+        fc, fd = np.where(left, fp, fd), np.where(left, fc, fp)
+        c, d = np.where(active, new_c, c), np.where(active, new_d, d)
+        better = fp > best_f
+        best_u = np.where(better, probe, best_u)
+        best_f = np.where(better, fp, best_f)
+    return best_u, best_f
+
+
+def _peaks(fns: Sequence[Callable[[ComplexArray], FloatArray]], l_grid: ComplexArray,
+           w: FloatArray, l_of_w: Callable[[FloatArray], ComplexArray],
+           ends: Sequence[tuple[float, float]]) -> list[tuple[float, float]]:
+    """Supremum of each ``fn(L(jω))`` over [0, ∞] and where it is attained (rad/s).
+
+    ``ends`` holds each function's exact values at ω = 0 and ω = ∞.  The grid maxima of
+    all functions are refined together: one evaluation of L per golden-section step.
+    """
     u = np.log(w)
-
-    def neg(x: float) -> float:
-        return -float(fn(l_of_w(np.array([math.exp(x)])))[0])
-
-    for i in interior:
-        if vals[i] > max(best_val, floor):
-            best_val, best_w = float(vals[i]), float(w[i])
-        a, b = u[max(i - 1, 0)], u[min(i + 1, u.size - 1)]
-        if b <= a:
+    plans = []
+    for fn in fns:
+        vals = fn(l_grid)
+        if not np.all(np.isfinite(vals)):
+            plans.append((vals, None))
             continue
-        res = minimize_scalar(neg, bounds=(a, b), method="bounded",
-                              options={"xatol": _XATOL})
-        if -res.fun > max(best_val, floor):
-            best_val, best_w = float(-res.fun), float(math.exp(res.x))
-    return best_val, best_w
+        idx = _candidates(vals)
+        lo = np.maximum(idx - 1, 0)
+        hi = np.minimum(idx + 1, u.size - 1)
+        plans.append((vals, (idx, lo, hi)))
+    brackets = [p[1] for p in plans if p[1] is not None]
+    owner = np.concatenate([np.full(br[0].size, k) for k, br in enumerate(brackets)]
+                           ) if brackets else np.zeros(0, dtype=int)
+    a = np.concatenate([u[br[1]] for br in brackets]) if brackets else np.zeros(0)
+    b = np.concatenate([u[br[2]] for br in brackets]) if brackets else np.zeros(0)
+    live = b > a
+    live_fns = [fn for fn, p in zip(fns, plans, strict=True) if p[1] is not None]
+    refined_u = np.zeros(a.size)
+    refined_f = np.full(a.size, -np.inf)
+    if live.any():
+        own = owner[live]
+
+        def many(x: FloatArray) -> FloatArray:
+            lv = l_of_w(np.exp(x))
+            out = np.empty(x.size)
+            for k, fn in enumerate(live_fns):
+                sel = own == k
+                if sel.any():
+                    out[sel] = fn(lv[sel])
+            return out
+
+        refined_u[live], refined_f[live] = _golden_max(many, a[live], b[live])
+
+    results: list[tuple[float, float]] = []
+    offset = 0
+    for (vals, plan), (at_zero, at_inf) in zip(plans, ends, strict=True):
+        # An interior value must beat an exact end value by more than rounding to replace it.
+        best_val, best_w = at_zero, 0.0
+        if at_inf > best_val:
+            best_val, best_w = at_inf, math.inf
+        floor = best_val * (1.0 + _TIE_RTOL)
+        if plan is None:
+            i = int(np.flatnonzero(~np.isfinite(vals))[0])
+            results.append((math.inf, float(w[i])))
+            continue
+        idx = plan[0]
+        for j, i in enumerate(idx):
+            if vals[i] > max(best_val, floor):
+                best_val, best_w = float(vals[i]), float(w[i])
+            k = offset + j
+            if live[k] and refined_f[k] > max(best_val, floor):
+                best_val, best_w = float(refined_f[k]), float(math.exp(refined_u[k]))
+        offset += idx.size
+        results.append((best_val, best_w))
+    return results
 
 
 def disk_ranges(alpha: float) -> tuple[float, float, float]:
@@ -110,8 +185,11 @@ def disk_ranges(alpha: float) -> tuple[float, float, float]:
     return low, high, math.degrees(2.0 * math.atan(alpha / 2.0))
 
 
-def compute_sensitivity(loop: Loop) -> Sensitivity:
+def compute_sensitivity(loop: Loop, w: FloatArray | None = None) -> Sensitivity:
     """Peak sensitivity Ms, peak complementary sensitivity Mt and balanced disk margin.
+
+    ``w`` is the analysis grid (rad/s; default :func:`~.frequency_grid.loop_grid`), passed
+    in when the caller has it already.
 
     Returns
     -------
@@ -125,9 +203,10 @@ def compute_sensitivity(loop: Loop) -> Sensitivity:
     rat, delay = loop.rational, loop.delay_s
 
     def l_of_w(x: FloatArray) -> ComplexArray:
-        return rat.freqresp(x) * np.exp(-1j * x * delay)
+        return response(rat, x) * np.exp(-1j * x * delay)
 
-    w = loop_grid(loop)
+    if w is None:
+        w = loop_grid(loop)
     l_grid = l_of_w(w)
     zero, high = _limits(loop)
 
@@ -143,9 +222,9 @@ def compute_sensitivity(loop: Loop) -> Sensitivity:
         with np.errstate(divide="ignore", invalid="ignore"):
             return np.abs((1.0 - lv) / (2.0 * (1.0 + lv)))
 
-    ms, w_ms = _peak(s_mag, l_grid, w, l_of_w, zero[0], high[0])
-    mt, w_mt = _peak(t_mag, l_grid, w, l_of_w, zero[1], high[1])
-    d_max, _ = _peak(d_mag, l_grid, w, l_of_w, zero[2], high[2])
+    (ms, w_ms), (mt, w_mt), (d_max, _) = _peaks(
+        (s_mag, t_mag, d_mag), l_grid, w, l_of_w,
+        [(zero[0], high[0]), (zero[1], high[1]), (zero[2], high[2])])
     alpha = 1.0 / d_max if d_max > 0 else math.inf
     low, high_gain, phase = disk_ranges(alpha)
     return Sensitivity(

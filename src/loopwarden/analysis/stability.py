@@ -36,7 +36,8 @@ from .closed_loop import closed_loop_poles
 from .frequency_grid import AXIS_RTOL, bound_frequency, loop_grid
 from .results import Stability
 
-__all__ = ["NyquistCount", "closed_loop_stability", "nyquist_count", "open_loop_pole_counts"]
+__all__ = ["NyquistCount", "closed_loop_stability", "nyquist_count", "open_loop_pole_counts",
+           "poles_stable"]
 
 #: Relative tolerance of "on the imaginary axis" for closed-loop eigenvalues.
 EIG_RTOL = 1e-9
@@ -79,12 +80,24 @@ def _all_poles(loop: Loop) -> ComplexArray:
     return np.sort_complex(np.roots(char))
 
 
+def _axis_tolerance(poles: ComplexArray) -> FloatArray:
+    """Per pole: ``|Re λ|`` at most this counts as on the imaginary axis."""
+    mags = np.abs(poles)
+    rho = float(mags.max()) if mags.size else 1.0
+    return EIG_RTOL * np.maximum(mags, 1e-3 * rho)
+
+
+def poles_stable(poles: ComplexArray) -> bool:
+    """True when every closed-loop pole is clear of the imaginary axis on its left
+    (the classification of :func:`closed_loop_stability` for rational loops)."""
+    tol = _axis_tolerance(poles)
+    return not bool(np.any(poles.real >= -tol))
+
+
 def _pole_stability(loop: Loop) -> Stability:
     poles = _all_poles(loop)
     rhp_ol, axis_ol = open_loop_pole_counts(loop.rational)
-    mags = np.abs(poles)
-    rho = float(mags.max()) if mags.size else 1.0
-    tol = EIG_RTOL * np.maximum(mags, 1e-3 * rho)
+    tol = _axis_tolerance(poles)
     unstable = int(np.sum(poles.real > tol))
     marginal = bool(np.any(np.abs(poles.real) <= tol))
     note = ""
