@@ -323,6 +323,8 @@ EXPECTED_SAMPLES = {
     "gimbal_rate.toml": (("nominal", "stiff mount"), ("pi", "notch"), "hz"),
     "levitation_lead.toml": (("nominal", "light ball"), ("gain", "lead"), "rad/s"),
     "hoist_lag_tail.toml": (("nominal",), ("gain", "lag"), "rad/s"),
+    "pump_pressure.toml": (("nominal", "long delivery line", "two pumps"), ("tf", "lowpass"),
+                           "hz"),
 }
 
 

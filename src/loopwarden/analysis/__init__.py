@@ -56,7 +56,16 @@ def analyze_variant(design: Design, variant: PlantVariant, *,
     )
 
     band = settling_band or design.requirements.settling_band or DEFAULT_SETTLING_BAND
-    loop = design.loop(variant)
+    # A sampled design is analysed in z, a measured plant on its data; both dispatch here.
+    if design.sampling is not None:
+        from .discrete_loop import analyze_sampled
+
+        return analyze_sampled(design, variant, band)
+    if variant.measured is not None:
+        from .measured import analyze_measured
+
+        return analyze_measured(design, variant)
+    loop = design.continuous_loop(variant)
     errors: dict[str, str] = {}
 
     blocks = [(st.name, st.model) for st in design.controller]

@@ -8,7 +8,9 @@ and the rule that needs it reports an ``error`` finding.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from types import MappingProxyType
 
 import numpy as np
 from numpy.typing import NDArray
@@ -20,7 +22,9 @@ class Stability:
     """Closed-loop stability of one loop.
 
     ``method`` is ``"poles"`` (rational loop: eigenvalues of the closed-loop state matrix)
-    or ``"nyquist"`` (loop with transport delay: encirclement count).
+    or ``"nyquist"`` (loop with transport delay or measured plant: encirclement count).
+    ``domain`` ``"z"`` marks a sampled loop: poles are in z, "right half-plane" counts
+    read "outside the unit circle" and "imaginary axis" reads "on the unit circle".
     """
 
     closed_loop_stable: bool
@@ -32,6 +36,7 @@ class Stability:
     clockwise_encirclements: int | None            # N (Nyquist method only)
     marginal: bool = False                         # a closed-loop pole on the boundary
     note: str = ""
+    domain: str = "s"                              # "z": sampled loop, poles in z
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -81,6 +86,7 @@ class Margins:
     delay_margin_s: float                          # min over crossings; inf if none
     gain_crossings: tuple[GainCrossing, ...]
     phase_crossings: tuple[PhaseCrossing, ...]
+    delay_margin_samples: float | None = None      # sampled loop: delay margin / period
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -107,6 +113,9 @@ class Tracking:
     step_error: float                              # 1/(1 + Kp)
     ramp_error: float                              # 1/Kv (per unit ramp slope); inf type 0
     parabola_error: float                          # 1/Ka
+    # Fields that could not be computed (a measured plant: the constant of the loop's own
+    # type needs the plant's DC gain); their values are 0.0 placeholders, shown as null.
+    unknown: tuple[str, ...] = ()
 
 
 # --------------------------------------------------------------------------- time response
@@ -215,6 +224,45 @@ class Curves:
     improvement: dict[int, NDArray[np.float64]]    # per boost stage, on frequency_rad_s
 
 
+# --------------------------------------------------------------------------- sampled, measured
+@dataclass(frozen=True, slots=True, kw_only=True)
+class SampledInfo:
+    """How a sampled loop was formed, and its sample rate against its bandwidth."""
+
+    period_s: float
+    method: str                                    # discretisation of continuous stages
+    prewarp_rad_s: float | None
+    compute_delay_samples: int
+    plant_delay_samples: float                     # transport delay / period (may be fractional)
+    nyquist_rad_s: float                           # π / period
+    sample_rate_rad_s: float                       # 2π / period
+    closed_loop_bandwidth_rad_s: float | None      # |T| first falls 3 dB below |T(1)|;
+                                                   # None: not below the Nyquist frequency
+    sample_rate_ratio: float                       # sample rate / bandwidth (≤ 2 if None)
+    note: str                                      # the inter-sample caveat
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class FrequencyCoverage:
+    """What a measured frequency response covers, and what it leaves undecided.
+
+    ``uncovered`` maps check names to why the measured range does not decide them (a
+    crossing outside the range): those checks are reported as ``error``.
+    """
+
+    file: str
+    sha256: str
+    frequency_min_rad_s: float
+    frequency_max_rad_s: float
+    points: int
+    unstable_poles: int                            # declared open-loop RHP poles (P)
+    integrators: int                               # poles of L at s = 0 (controller + declared)
+    loop_gain_at_min: float                        # |L| at the lowest measured frequency
+    loop_gain_at_max: float                        # |L| at the highest
+    assumptions: str
+    uncovered: Mapping[str, str] = field(default_factory=lambda: MappingProxyType({}))
+
+
 # --------------------------------------------------------------------------- aggregate
 @dataclass(frozen=True, slots=True, kw_only=True)
 class LoopAnalysis:
@@ -232,3 +280,7 @@ class LoopAnalysis:
     integral_alternatives: tuple[IntegralAlternative, ...]
     curves: Curves | None
     errors: dict[str, str]                         # part name → why it could not be computed
+    sampling: SampledInfo | None = None            # sampled loops only
+    coverage: FrequencyCoverage | None = None      # measured plants only
+    not_applicable: Mapping[str, str] = field(     # check name → why it does not apply here
+        default_factory=lambda: MappingProxyType({}))

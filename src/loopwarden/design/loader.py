@@ -26,6 +26,7 @@ Roots: a real root is a number; a complex pair is written once as ``[re, im]`` w
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 import hashlib
 import re
@@ -36,17 +37,19 @@ from types import MappingProxyType
 from ..errors import DesignError, did_you_mean
 from ..lti import Zpk
 from .forms import FORMS, Table, read_form
+from .frd import read_frd
 from .model import Design, PlantVariant, Requirements, Stage, Waiver
-from .stages import read_stage
+from .sampling import read_controller_stage, read_sampling
 
 __all__ = ["load_design", "parse_design"]
 
-_TOP = ("design", "plant", "controller", "sensor", "requirements", "limits", "waivers")
-_LATER = {
-    "sampling": "describe the loop in continuous time; sampled designs come later",
-}
-_FRD_HINT = ("measured frequency-response (frd) plants are not supported in this version; "
-             "give a tf, zpk or ss model")
+_TOP = ("design", "plant", "controller", "sensor", "requirements", "limits", "waivers",
+        "sampling")
+_FRD_HINT = ("a measured frequency response (frd) is accepted for the plant and its "
+             "variants only; give the sensor as a tf, zpk or ss model")
+#: Keys that describe what a measured response cannot show: declared poles.
+_FRD_ONLY = ("unstable_poles", "integrators")
+_PLANT_FORMS = (*FORMS, "frd")
 
 #: [requirements] keys → (kind, lower bound, exclusive?, upper bound, exclusive?).
 #: kind "frequency" values are converted from Hz when the file says so.
@@ -124,9 +127,6 @@ def _parse(text: str, path: str, sha256: str) -> Design:
     except tomllib.TOMLDecodeError as exc:
         raise _syntax_error(exc, path) from None
     top = Table(data, "", path)
-    for key, hint in _LATER.items():
-        if key in data:
-            raise top.error(key, f"[{key}] is not supported in this version", hint)
     top.check_keys(_TOP)
     for key in ("design", "plant", "controller"):
         if key not in data:
@@ -144,8 +144,17 @@ def _parse(text: str, path: str, sha256: str) -> Design:
     hz = unit == "hz"
     top = Table(data, "", path, hz)
 
+    sampling = read_sampling(_table(top, "sampling")) if "sampling" in data else None
     variants = _plant(_table(top, "plant"))
-    controller = _controller(top)
+    if sampling is not None:
+        measured = next((v for v in variants if v.measured is not None), None)
+        if measured is not None:
+            raise DesignError("a measured (frd) plant cannot be sampled exactly: the sampled "
+                              "response aliases frequencies beyond the sweep",
+                              file=path, where=measured.where,
+                              hint="review the measured plant with the continuous "
+                                   "controller, or give a model of the plant")
+    controller = _controller(top, sampled=sampling is not None)
     sensor, sensor_delay = _sensor(top) if "sensor" in data else (None, 0.0)
     requirements = _requirements(_table(top, "requirements")) if "requirements" in data \
         else Requirements()
@@ -167,6 +176,7 @@ def _parse(text: str, path: str, sha256: str) -> Design:
         requirements=requirements,
         rule_limits=limits,
         waivers=waivers,
+        sampling=sampling,
     )
 
 
@@ -223,17 +233,45 @@ def _delay(t: Table, default: float = 0.0) -> float:
     return t.number("delay", minimum=0.0, unit="s", default=default)
 
 
+def _plant_model(t: Table, label: str, name: str) -> PlantVariant:
+    """The plant of a [plant] or [[plant.variants]] table: a model or a measured response.
+
+    A measured plant's ``delay`` defaults to 0 (the measurement already holds the real
+    dead time); ``unstable_poles`` and ``integrators`` are accepted only beside ``frd``.
+    """
+    if not t.has("frd"):
+        extra = next((k for k in _FRD_ONLY if t.has(k)), None)
+        if extra is not None:
+            raise t.error(extra, f"'{extra}' applies only to a measured plant (frd)",
+                          "a model's poles are read from the model itself")
+        model, form = read_form(t, label)
+        return PlantVariant(name=name, model=model, form=form, where=t.where or "plant")
+    other = next((f for f in FORMS if t.has(f)), None)
+    if other is not None:
+        raise t.error("frd", f"both '{other}' and 'frd' are given",
+                      "give exactly one of tf, zpk, ss or frd")
+    counts = {}
+    for key in _FRD_ONLY:
+        value = t.data.get(key, 0)
+        if isinstance(value, bool) or not isinstance(value, int) or value < 0:
+            raise t.error(key, f"expected a whole number ≥ 0, got {value!r}")
+        counts[key] = value
+    measured = read_frd(t.table("frd"), t.file, unstable_poles=counts["unstable_poles"],
+                        integrators=counts["integrators"])
+    return PlantVariant(name=name, model=Zpk.constant(1.0, label=f"{label} (measured)"),
+                        form="frd", where=t.where or "plant", measured=measured)
+
+
 def _plant(t: Table) -> tuple[PlantVariant, ...]:
-    t.check_keys((*FORMS, "delay", "variants"), hints={"frd": _FRD_HINT})
-    model, form = read_form(t, "plant")
+    t.check_keys((*_PLANT_FORMS, *_FRD_ONLY, "delay", "variants"))
+    nominal = _plant_model(t, "plant", "nominal")
     delay = _delay(t)
-    out = [PlantVariant(name="nominal", model=model, delay_s=delay, form=form, where="plant")]
+    out = [dataclasses.replace(nominal, delay_s=delay)]
     if "variants" not in t.data:
         return tuple(out)
     seen: dict[str, str] = {}
     for vt in _array_of_tables(t, "variants"):
-        vt.check_keys(("name", *FORMS, "delay"), required=("name",),
-                      hints={"frd": _FRD_HINT})
+        vt.check_keys(("name", *_PLANT_FORMS, *_FRD_ONLY, "delay"), required=("name",))
         name = vt.string("name")
         if name.strip().lower() == "nominal":
             raise vt.error("name", "'nominal' is reserved for the [plant] itself",
@@ -242,9 +280,9 @@ def _plant(t: Table) -> tuple[PlantVariant, ...]:
             raise vt.error("name", f"duplicate variant name {name!r} (also {seen[name]})",
                            "variant names must be unique")
         seen[name] = vt.where
-        vmodel, vform = read_form(vt, f"plant ({name})")
-        out.append(PlantVariant(name=name, model=vmodel, delay_s=_delay(vt, delay),
-                                form=vform, where=vt.where))
+        variant = _plant_model(vt, f"plant ({name})", name)
+        inherited = 0.0 if variant.measured is not None else delay
+        out.append(dataclasses.replace(variant, delay_s=_delay(vt, inherited)))
     return tuple(out)
 
 
@@ -261,12 +299,13 @@ def _sensor(top: Table) -> tuple[Zpk, float]:
 
 
 # ---------------------------------------------------------------------- controller
-def _controller(top: Table) -> tuple[Stage, ...]:
+def _controller(top: Table, *, sampled: bool = False) -> tuple[Stage, ...]:
     tables = _array_of_tables(top, "controller")
     if not tables:
         raise top.error("controller", "the controller has no stages",
                         'add at least one [[controller]] table, e.g. type = "gain"')
-    return tuple(read_stage(st, i + 1) for i, st in enumerate(tables))
+    return tuple(read_controller_stage(st, i + 1, sampled=sampled)
+                 for i, st in enumerate(tables))
 
 
 # ---------------------------------------------------------------------- requirements

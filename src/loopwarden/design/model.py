@@ -3,22 +3,31 @@
 from __future__ import annotations
 
 import datetime as dt
+import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from types import MappingProxyType
 
 from ..lti import Loop, Zpk
+from ..lti_discrete import DiscreteLoop
+from .frd import MeasuredPlant
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class PlantVariant:
-    """One plant the loop must satisfy. The first variant of a design is ``nominal``."""
+    """One plant the loop must satisfy. The first variant of a design is ``nominal``.
+
+    A measured plant (``form = "frd"``) has its frequency response in ``measured``; its
+    ``model`` is then only a unity placeholder, never an identified model: code that needs
+    a model must check ``measured`` first.
+    """
 
     name: str
     model: Zpk
     delay_s: float = 0.0
-    form: str = "zpk"                  # "tf" | "zpk" | "ss" as written in the file
+    form: str = "zpk"                  # "tf" | "zpk" | "ss" | "frd" as written in the file
     where: str = "plant"               # table it came from, e.g. "plant.variants[1]"
+    measured: MeasuredPlant | None = None
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -34,6 +43,7 @@ class Stage:
     type: str
     params: Mapping[str, float | str]
     model: Zpk
+    domain: str = "s"                  # "z": the model is in z (a sampled design's stage)
 
     @property
     def name(self) -> str:
@@ -48,6 +58,26 @@ class Requirements:
     settling_time_s: float | None = None
     settling_band: float | None = None          # fraction, e.g. 0.02
     values: Mapping[str, float] = field(default_factory=lambda: MappingProxyType({}))
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Sampling:
+    """``[sampling]``: the controller runs on a computer every ``period_s`` seconds.
+
+    Continuous controller stages are discretised together by ``method`` ("zoh", "tustin"
+    or "matched"; Tustin optionally prewarped at ``prewarp_rad_s``); the plant, sensor and
+    transport delays are sampled exactly through a zero-order hold; ``compute_delay_samples``
+    whole periods pass between sampling the measurement and updating the output.
+    """
+
+    period_s: float
+    method: str = "tustin"
+    prewarp_rad_s: float | None = None
+    compute_delay_samples: int = 0
+
+    @property
+    def nyquist_rad_s(self) -> float:
+        return math.pi / self.period_s
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -78,9 +108,23 @@ class Design:
     rule_limits: Mapping[str, Mapping[str, float]] = field(
         default_factory=lambda: MappingProxyType({}))   # [limits."rule.id"] min = ...
     waivers: tuple[Waiver, ...] = ()
+    sampling: Sampling | None = None            # None: a continuous-time controller
 
-    def loop(self, variant: PlantVariant) -> Loop:
-        """The feedback loop of this design around one plant variant."""
+    def loop(self, variant: PlantVariant) -> Loop | DiscreteLoop:
+        """The feedback loop of this design around one plant variant.
+
+        Continuous designs give a :class:`~loopwarden.lti.Loop` in s.  A sampled design
+        (``sampling`` set) gives the :class:`~loopwarden.lti_discrete.DiscreteLoop` in z:
+        the digital controller (continuous stages discretised, compute delay included)
+        around the plant sampled through a zero-order hold.  For a measured plant the
+        loop's plant is the unity placeholder: use the variant's ``measured`` response.
+        """
+        if self.sampling is not None:
+            return self.sampled_loop(variant)
+        return self.continuous_loop(variant)
+
+    def continuous_loop(self, variant: PlantVariant) -> Loop:
+        """The continuous-time loop ``C(s)·P(s)·H(s)·e^{−s·delay}`` (s-domain stages only)."""
         ctrl = Zpk.constant(1.0)
         for st in self.controller:
             ctrl = ctrl * st.model
@@ -88,3 +132,12 @@ class Design:
         return Loop(plant=variant.model, controller=ctrl, sensor=sensor,
                     delay_s=variant.delay_s + self.sensor_delay_s,
                     stages=tuple(st.model for st in self.controller))
+
+    def sampled_loop(self, variant: PlantVariant) -> DiscreteLoop:
+        """The sampled-data loop in z (requires ``sampling``)."""
+        from .sampling import discrete_loop
+
+        if self.sampling is None:
+            raise ValueError("the design has no [sampling] table")
+        return discrete_loop(self.sampling, self.controller, variant.model, self.sensor,
+                             variant.delay_s + self.sensor_delay_s)

@@ -72,6 +72,34 @@ def _alternative(alt: IntegralAlternative) -> dict[str, Any]:
     return out
 
 
+#: JSON keys of ``margins`` that an uncovered check (measured plant) leaves undecided.
+_UNCOVERED_KEYS = {
+    "gain_margin": ("gain_margin_db", "gain_margin_lower_db", "phase_crossover_rad_s"),
+    "phase_margin": ("phase_margin_deg", "gain_crossover_rad_s"),
+    "delay_margin": ("delay_margin_s", "delay_margin_samples"),
+    "peak_sensitivity": ("peak_sensitivity", "peak_sensitivity_rad_s"),
+    "peak_complementary": ("peak_complementary", "peak_complementary_rad_s"),
+    "disk_margin": ("disk_margin", "disk_gain_low", "disk_gain_high", "disk_phase_deg"),
+}
+
+
+def _margins(a: LoopAnalysis) -> dict[str, Any]:
+    out = {**plain(a.margins), **plain(a.sensitivity)}
+    if a.coverage is not None:
+        # A figure the measured range does not decide is not reported as a number.
+        for check in a.coverage.uncovered:
+            for key in _UNCOVERED_KEYS.get(check, ()):
+                out[key] = None
+    return out
+
+
+def _tracking(a: LoopAnalysis) -> dict[str, Any]:
+    out = plain(a.tracking)
+    for key in a.tracking.unknown:
+        out[key] = None
+    return out
+
+
 def _variant(a: LoopAnalysis, design: Design) -> dict[str, Any]:
     model = next((v for v in design.variants if v.name == a.variant), None)
     alternatives = [_alternative(alt) for alt in a.integral_alternatives]
@@ -81,8 +109,8 @@ def _variant(a: LoopAnalysis, design: Design) -> dict[str, Any]:
         "closed_loop_stable": a.stability.closed_loop_stable,
         "stability": plain(a.stability),
         "internal_stability": plain(a.internal),
-        "margins": {**plain(a.margins), **plain(a.sensitivity)},
-        "tracking": plain(a.tracking),
+        "margins": _margins(a),
+        "tracking": _tracking(a),
         "step": plain(a.step),
         "slow_tail": plain(a.slow_tail),
         "slow_pairs": None if a.slow_tail is None else plain(a.slow_tail.pairs),
@@ -90,6 +118,9 @@ def _variant(a: LoopAnalysis, design: Design) -> dict[str, Any]:
         "integral_alternative": alternatives[0] if alternatives else None,
         "integral_alternatives": alternatives,
         "errors": dict(sorted(a.errors.items())),
+        "sampling": plain(a.sampling),
+        "frequency_coverage": plain(a.coverage),
+        "not_applicable": dict(sorted(a.not_applicable.items())),
     }
 
 
@@ -99,6 +130,10 @@ def _design(d: Design) -> dict[str, Any]:
         "file": PurePath(d.path).name, "sha256": d.sha256,
         "frequency_unit": d.frequency_unit,
         "variants": [v.name for v in d.variants],
+        "sampling": plain(d.sampling),
+        "measured_plants": [{"variant": v.name, "file": v.measured.file,
+                             "sha256": v.measured.sha256} for v in d.variants
+                            if v.measured is not None],
         "controller": [{"index": s.index, "type": s.type, "params": plain(s.params)}
                        for s in d.controller],
         "requirements": plain(d.requirements.values),

@@ -93,6 +93,15 @@ class Check:
 
     def __call__(self, analysis: LoopAnalysis, rule: Rule, design: Design, *,
                  baseline: LoopAnalysis | None = None) -> Measurement:
+        # The analysis says which checks do not apply to its kind of loop (sampled,
+        # measured) and which a measured range leaves undecided: n/a and error, never a
+        # number the loop cannot give.
+        reason = analysis.not_applicable.get(self.name)
+        if reason is not None:
+            raise NotApplicable(reason)
+        if analysis.coverage is not None and self.name in analysis.coverage.uncovered:
+            raise AnalysisError("not covered by the measured range: "
+                                + analysis.coverage.uncovered[self.name])
         return self.function(analysis, rule, design, baseline=baseline)
 
     def unit_for(self, options: Mapping[str, float | str | bool]) -> str:
@@ -178,15 +187,17 @@ def _db(x: float) -> float:
 def closed_loop_stability(a: LoopAnalysis, rule: Rule, design: Design, *,
                           baseline: LoopAnalysis | None = None) -> Measurement:
     st = a.stability
-    how = ("closed-loop poles" if st.method == "poles"
+    sampled = st.domain == "z"
+    how = ("closed-loop poles in z" if sampled else "closed-loop poles" if st.method == "poles"
            else f"Nyquist count, {st.open_loop_rhp_poles} open-loop RHP poles")
+    region = "outside the unit circle" if sampled else "right-half-plane"
     if st.closed_loop_stable:
         value, text = "stable", f"closed loop stable ({how})"
     elif st.marginal:
         value, text = "marginal", f"closed-loop pole on the stability boundary ({how})"
     else:
         value = "unstable"
-        text = f"closed loop unstable: {st.rhp_closed_loop_poles} right-half-plane pole(s) ({how})"
+        text = f"closed loop unstable: {st.rhp_closed_loop_poles} {region} pole(s) ({how})"
     if st.note:
         text += f"; {st.note}"
     return Measurement(value=value, text=text, ok=st.closed_loop_stable, details={
@@ -273,6 +284,9 @@ def delay_margin(a: LoopAnalysis, rule: Rule, design: Design, *,
     dm = a.margins.delay_margin_s
     details: dict[str, float | str | None] = {"delay_margin_s": dm}
     text = f"delay margin {fmt(dm, 's')}"
+    if a.margins.delay_margin_samples is not None:
+        details["delay_margin_samples"] = a.margins.delay_margin_samples
+        text += f" ({fmt(a.margins.delay_margin_samples)} samples)"
     value = dm
     if rule.options.get("relative"):
         delay = _loop_delay_s(a, design)
@@ -326,6 +340,36 @@ def disk_margin(a: LoopAnalysis, rule: Rule, design: Design, *,
                        details={"disk_gain_low": s.disk_gain_low,
                                 "disk_gain_high": s.disk_gain_high,
                                 "disk_phase_deg": s.disk_phase_deg})
+
+
+# --------------------------------------------------------------------------- sampling
+@_check("sample_rate", needs_stable=True, unit="x", limits=(*LOWER, *UPPER),
+        summary="sample rate of a digital controller as a multiple of the closed-loop "
+                "bandwidth (|T| 3 dB below its DC value)")
+def sample_rate(a: LoopAnalysis, rule: Rule, design: Design, *,
+                baseline: LoopAnalysis | None = None) -> Measurement:
+    info = a.sampling
+    if info is None:
+        raise NotApplicable("continuous-time controller: no sample rate")
+    ratio = info.sample_rate_ratio
+    rate_hz = info.sample_rate_rad_s / (2.0 * math.pi)
+    bw = info.closed_loop_bandwidth_rad_s
+    if bw is None:
+        text = (f"sample rate {fmt(rate_hz, 'Hz')} (period {fmt(info.period_s, 's')}): the "
+                "closed-loop bandwidth reaches the Nyquist frequency, so the rate is at most "
+                f"{fmt(ratio, 'x')} the bandwidth")
+    else:
+        text = (f"sample rate {fmt(rate_hz, 'Hz')} (period {fmt(info.period_s, 's')}) is "
+                f"{fmt(ratio, 'x')} the closed-loop bandwidth {_freq(bw)}")
+    text += ("; 10-30x is common practice. The review is exact at the sampling instants "
+             "only: the plant output may ripple between them")
+    return Measurement(value=ratio, text=text, compare={k: ratio for k in (*LOWER, *UPPER)},
+                       details={"period_s": info.period_s,
+                                "closed_loop_bandwidth_rad_s": bw,
+                                "sample_rate_rad_s": info.sample_rate_rad_s,
+                                "nyquist_rad_s": info.nyquist_rad_s,
+                                "compute_delay_samples": float(info.compute_delay_samples),
+                                "inter_sample_note": info.note})
 
 
 # --------------------------------------------------------------------------- tracking

@@ -1,0 +1,345 @@
+"""The sampled closed loop in state space: stability, internal stability, tracking, step.
+
+The closed loop is assembled from a realisation of every controller block (each realised
+separately) and the exact sampled plant (:class:`~loopwarden.lti_discrete.SampledPlant`,
+delay buffer included), so every mode of the interconnection is kept, also those that
+cancel in ``L(z)``.  Signals at the sampling instants: reference r[k], error
+e = r − ym, controller output u, measured ym and plant output y (both from the sampled
+plant, which sees u through the hold).
+
+The step response is exact at the sampling instants: ``x[k] = (I − A^k)(I − A)^{−1}B``,
+so ``y[k] = y∞ − C A^k x∞``, evaluated by powers of A.  What happens between the
+instants (ripple of the continuous output) is not part of it.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+from scipy import linalg
+
+from ..errors import AnalysisError
+from ..lti import Zpk
+from ..lti_discrete import DiscreteLoop, at_z_one, lti_series
+from .results import (
+    Cancellation,
+    InternalStability,
+    Stability,
+    StepMetrics,
+    StepResult,
+    TimeSeries,
+    Tracking,
+)
+from .tracking import error_constant
+
+__all__ = ["DiscreteClosedLoop", "discrete_closed_loop", "discrete_internal_stability",
+           "discrete_stability", "discrete_step_response", "discrete_tracking"]
+
+Matrix = NDArray[np.float64]
+
+#: | |λ| − 1 | below this (relative): a closed-loop pole on the unit circle.
+CIRCLE_TOL = 1e-9
+#: A zero within this relative distance of a pole cancels it (as in continuous time).
+CANCEL_RTOL = 1e-3
+HORIZON_TAIL_FRACTION = 0.01
+#: Samples kept in the series handed to the plots.
+PLOT_POINTS = 4000
+#: States advanced together: one product with A^block moves a whole block of samples.
+_BLOCK = 256
+MAX_EXTENSIONS = 6
+MAX_SAMPLES = 2_000_000
+MIN_SAMPLES = 200
+
+
+@dataclass(frozen=True, slots=True)
+class DiscreteClosedLoop:
+    """``x[k+1] = A x[k] + B r[k]``; outputs ``[ym, y, u] = C x + D r``."""
+
+    a: Matrix
+    b: Matrix
+    c: Matrix
+    d: Matrix
+
+    @property
+    def order(self) -> int:
+        return int(self.a.shape[0])
+
+
+def discrete_closed_loop(loop: DiscreteLoop) -> DiscreteClosedLoop:
+    """The closed loop r → [ym, y, u] of a sampled loop, every mode kept.
+
+    Raises
+    ------
+    AnalysisError
+        When the loop is not well posed (``1 + L(∞) = 0``: the controller's and the
+        sampled plant's direct feedthroughs cancel).
+    """
+    ac, bc, cc, dc = lti_series(loop.stages or (loop.controller,))
+    sp = loop.sampled
+    ap, bp, cp, dp = sp.a, sp.b, sp.c, sp.d
+    nc, npl = ac.shape[0], ap.shape[0]
+    q = 1.0 + float(dc[0, 0] * dp[0, 0])
+    if abs(q) < 1e-12:
+        raise AnalysisError("the sampled loop is not well posed: 1 + L(∞) = 0")
+    # u = (Cc xc − Dc Cym xp + Dc r) / q
+    ku = np.hstack([cc, -dc[0, 0] * cp[0:1]]) / q
+    kr = float(dc[0, 0]) / q
+    n = nc + npl
+    A = np.zeros((n, n))
+    B = np.zeros((n, 1))
+    # e = r − ym = r − Cym xp − Dym u
+    e_x = np.hstack([np.zeros((1, nc)), -cp[0:1]]) - dp[0, 0] * ku
+    e_r = 1.0 - dp[0, 0] * kr
+    A[:nc, :nc] = ac
+    A[:nc, :] += bc @ e_x
+    B[:nc] = bc * e_r
+    A[nc:, nc:] = ap
+    A[nc:, :] += bp @ ku
+    B[nc:] = bp * kr
+    y_x = np.hstack([np.zeros((2, nc)), cp]) + dp @ ku
+    C = np.vstack([y_x, ku])
+    D = np.vstack([dp * kr, [[kr]]])
+    return DiscreteClosedLoop(A, B, C, D)
+
+
+def _circle_counts(roots: NDArray[np.complex128]) -> tuple[int, int]:
+    """(outside the unit circle, on it) with the tolerance :data:`CIRCLE_TOL`."""
+    mag = np.abs(roots)
+    on = np.abs(mag - 1.0) <= CIRCLE_TOL
+    return int(np.sum(~on & (mag > 1.0))), int(np.sum(on))
+
+
+def discrete_stability(loop: DiscreteLoop) -> Stability:
+    """Closed-loop stability from the eigenvalues of the sampled closed loop.
+
+    Stable when every pole lies strictly inside the unit circle; a pole on it (within
+    1e−9) makes the loop marginal, which is not stable.  The counts of ``Stability``
+    read "outside the unit circle" / "on the unit circle" (``domain = "z"``).
+    """
+    cl = discrete_closed_loop(loop)
+    poles = np.sort_complex(linalg.eigvals(cl.a)) if cl.order else np.zeros(0, complex)
+    outside, on = _circle_counts(poles)
+    open_poles = np.concatenate([loop.controller.poles, loop.sampled.poles])
+    ol_out, ol_on = _circle_counts(open_poles)
+    rho = float(np.max(np.abs(poles))) if poles.size else 0.0
+    note = (f"sampled loop: {poles.size} closed-loop poles in z, largest |z| = {rho:.6g} "
+            "(stable inside the unit circle)")
+    if on:
+        note += "; pole(s) on the unit circle: " + ", ".join(
+            f"{complex(p):.6g}" for p in poles if abs(abs(p) - 1.0) <= CIRCLE_TOL
+            and p.imag >= 0)
+    return Stability(
+        closed_loop_stable=outside == 0 and on == 0, method="poles",
+        closed_loop_poles=tuple(complex(p) for p in poles),
+        open_loop_rhp_poles=ol_out, open_loop_imag_axis_poles=ol_on,
+        rhp_closed_loop_poles=outside, clockwise_encirclements=None,
+        marginal=on > 0, note=note, domain="z",
+    )
+
+
+def _critical(root: complex) -> bool:
+    return bool(abs(root) >= 1.0 - CIRCLE_TOL)
+
+
+def discrete_internal_stability(blocks: Sequence[tuple[str, Zpk]]) -> InternalStability:
+    """Pole-zero cancellations on or outside the unit circle between blocks in z.
+
+    The z-domain counterpart of :func:`~loopwarden.analysis.internal.internal_stability`:
+    a pole with ``|p| ≥ 1`` of one block cancelled (within 1e−3 relative) by a zero of
+    another, or a zero with ``|z| ≥ 1`` cancelled by a pole, hides a mode the loop cannot
+    see.  Each zero cancels at most one pole, nearest first; a pair is reported once.
+    """
+    candidates: list[tuple[float, int, int, int, int]] = []
+    for i, (_, bi) in enumerate(blocks):
+        for j, (_, bj) in enumerate(blocks):
+            if i == j:
+                continue
+            for a, p in enumerate(bi.poles):
+                for b, z in enumerate(bj.zeros):
+                    if not (_critical(p) or _critical(z)):
+                        continue
+                    d = abs(p - z)
+                    if d <= CANCEL_RTOL * max(abs(p), abs(z)):
+                        candidates.append((d, i, a, j, b))
+    used_p: set[tuple[int, int]] = set()
+    used_z: set[tuple[int, int]] = set()
+    found: list[Cancellation] = []
+    for d, i, a, j, b in sorted(candidates):
+        if (i, a) in used_p or (j, b) in used_z:
+            continue
+        used_p.add((i, a))
+        used_z.add((j, b))
+        p, z = complex(blocks[i][1].poles[a]), complex(blocks[j][1].zeros[b])
+        if p.imag < 0 or (p.imag == 0 and z.imag < 0):
+            continue
+        found.append(Cancellation(pole=p, zero=z, pole_block=blocks[i][0],
+                                  zero_block=blocks[j][0], distance=float(d)))
+    note = ("; ".join(f"pole {c.pole:.6g} of {c.pole_block} cancelled by zero {c.zero:.6g} "
+                      f"of {c.zero_block}" for c in found)
+            or "no pole-zero cancellation on or outside the unit circle between blocks")
+    return InternalStability(internally_stable=not found, cancellations=tuple(found),
+                             note=note)
+
+
+def discrete_tracking(loop: DiscreteLoop) -> Tracking:
+    """System type and the discrete error constants of ``L(z)``.
+
+    ``system_type`` = net poles of L at z = 1; ``Kp = L(1)``,
+    ``Kv = lim (z − 1) L(z) / T`` (1/s), ``Ka = lim (z − 1)² L(z) / T²`` (1/s²), each
+    ``inf`` where the type is higher and 0 where lower; steady-state errors as in
+    continuous time (``1/(1 + Kp)``, ``1/Kv`` per unit slope, ``1/Ka``).
+    """
+    m, c = at_z_one(loop.rational)
+    if c == 0.0:
+        return Tracking(system_type=0, kp=0.0, kv=0.0, ka=0.0, step_error=1.0,
+                        ramp_error=math.inf, parabola_error=math.inf)
+    T = loop.period_s
+    coefficient = c / T ** m if m > 0 else c
+    kp = error_constant(m, coefficient, 0)
+    kv = error_constant(m, coefficient, 1)
+    ka = error_constant(m, coefficient, 2)
+    return Tracking(system_type=m, kp=kp, kv=kv, ka=ka, step_error=_inverse(1.0 + kp),
+                    ramp_error=_inverse(kv), parabola_error=_inverse(ka))
+
+
+def _inverse(x: float) -> float:
+    """1/x with 1/0 = inf and 1/±inf = 0 (steady-state errors, never NaN)."""
+    if x == 0.0:
+        return math.inf
+    return 0.0 if math.isinf(x) else 1.0 / x
+
+
+# --------------------------------------------------------------------------- step
+def _output_of_powers(a: Matrix, v: Matrix, c: Matrix, count: int) -> Matrix:
+    """``c A^k v`` for k = 0 … count−1, shape (count, columns of v).
+
+    The first block of states is built one product at a time, then every further block
+    by one product with ``A^block``: a few hundred matrix products for 10⁵ samples.
+    """
+    n, m = v.shape
+    block = min(_BLOCK, count)
+    first = np.empty((block, n, m))
+    x = v.copy()
+    for k in range(block):
+        first[k] = x
+        x = a @ x
+    states = first.transpose(1, 0, 2).reshape(n, block * m)
+    jump = np.linalg.matrix_power(a, block)
+    out = np.empty((count, m))
+    done = 0
+    while done < count:
+        take = min(block, count - done)
+        out[done:done + take] = (c @ states).reshape(block, m)[:take]
+        done += take
+        states = jump @ states
+    return out
+
+
+def _sampled_metrics(t: NDArray[np.float64], y: NDArray[np.float64], e: NDArray[np.float64],
+                     final: float, band: float) -> StepMetrics:
+    """Metrics read at the sampling instants (no interpolation between them)."""
+    yn = y / final
+    k_peak = int(np.argmax(yn))
+    overshoot = 100.0 * (float(yn[k_peak]) - 1.0)
+    has_overshoot = overshoot > 1e-7
+    reach10 = np.flatnonzero(yn >= 0.1)
+    reach90 = np.flatnonzero(yn >= 0.9)
+    rise = (float(t[reach90[0]] - t[reach10[0]]) if reach10.size and reach90.size else None)
+    outside = np.flatnonzero(np.abs(yn - 1.0) > band)
+    if outside.size == 0:
+        settling = 0.0
+    elif outside[-1] == yn.size - 1:
+        settling = math.inf
+    else:
+        settling = float(t[outside[-1] + 1])
+    return StepMetrics(
+        final_value=final, overshoot_pct=overshoot if has_overshoot else 0.0,
+        peak_time_s=float(t[k_peak]) if has_overshoot else None, rise_time_s=rise,
+        settling_time_s=settling, settling_band=band, horizon_s=float(t[-1]),
+        ramp_error_final=float(e[-1]), exact_delay=True,
+    )
+
+
+def _series(t: NDArray[np.float64], v: NDArray[np.float64]) -> TimeSeries:
+    stride = max(1, math.ceil((t.size - 1) / (PLOT_POINTS - 1)))
+    idx = np.arange(0, t.size, stride)
+    if idx[-1] != t.size - 1:
+        idx = np.append(idx, t.size - 1)
+    return TimeSeries(time_s=t[idx].copy(), value=v[idx].copy())
+
+
+def discrete_step_response(loop: DiscreteLoop, band: float) -> StepResult:
+    """Sampled response of the plant output y to a unit reference step, and ramp error.
+
+    Parameters
+    ----------
+    loop : DiscreteLoop
+        A closed-loop stable sampled loop.
+    band : float
+        Settling band as a fraction of ``|y∞|``.
+
+    Returns
+    -------
+    StepResult
+        Metrics at the sampling instants kT: overshoot of the largest sample, rise time
+        from the first sample at or above 10 % to the first at or above 90 %, settling
+        time = the first instant after the last sample outside the band (s);
+        ``ramp_error_final`` = kT − y[k] at the last sample for r[k] = kT.  The horizon
+        lasts until the step has settled with a quiet last fifth and the ramp error's
+        decaying part is below 1e−2·band of its value (or of T when it tends to 0).
+
+    Raises
+    ------
+    AnalysisError
+        Unstable closed loop, zero DC gain, or not settled within 2·10⁶ samples.
+    """
+    if not band > 0:
+        raise AnalysisError(f"settling band must be positive, got {band}")
+    cl = discrete_closed_loop(loop)
+    n = cl.order
+    eig = linalg.eigvals(cl.a) if n else np.zeros(0)
+    if n and np.max(np.abs(eig)) >= 1.0:
+        raise AnalysisError("the sampled closed loop is not stable: no settled step response")
+    c_y, d_y = cl.c[1:2], float(cl.d[1, 0])
+    x_inf = np.linalg.solve(np.eye(n) - cl.a, cl.b) if n else np.zeros((0, 1))
+    final = float((c_y @ x_inf)[0, 0]) + d_y if n else d_y
+    if final == 0.0 or not math.isfinite(final):
+        raise AnalysisError("the sampled closed loop has zero DC gain from reference to "
+                            "output: step metrics are undefined")
+    T = loop.period_s
+    rho = float(np.max(np.abs(eig))) if n else 0.0
+    floor = HORIZON_TAIL_FRACTION * band
+    samples = MIN_SAMPLES
+    if rho > 0:
+        # Until the slowest mode (amplitude taken as 10·|y∞|) is below the floor.
+        samples = max(samples, math.ceil(math.log(floor / 10.0) / math.log(rho)))
+    a1 = x_inf * T
+    b1 = -np.linalg.solve(np.eye(n) - cl.a, a1) if n else np.zeros((0, 1))
+    for _ in range(MAX_EXTENSIONS + 1):
+        samples = min(samples, MAX_SAMPLES)
+        k = np.arange(samples + 1, dtype=float)
+        t = k * T
+        if n:
+            powers = _output_of_powers(cl.a, np.hstack([x_inf, b1]), c_y, samples + 1)
+        else:
+            powers = np.zeros((samples + 1, 2))
+        y = final - powers[:, 0]
+        y_ramp = (float((c_y @ a1)[0, 0]) * k + float((c_y @ b1)[0, 0]) - powers[:, 1]
+                  + d_y * T * k) if n else d_y * T * k
+        e = t - y_ramp
+        metrics = _sampled_metrics(t, y, e, final, band)
+        quiet = np.abs(y[t >= 0.8 * t[-1]] / final - 1.0).max() <= 0.5 * band
+        # e[k] = (its steady course) + C A^k b₁: the last sample's ramp transient is exact.
+        ramp_tail = abs(float(powers[-1, 1])) if n else 0.0
+        ramp_quiet = ramp_tail <= floor * max(abs(float(e[-1])), T)
+        if metrics.settling_time_s <= 0.75 * t[-1] and quiet and ramp_quiet:
+            return StepResult(metrics=metrics, step=_series(t, y), ramp_error=_series(t, e))
+        if samples >= MAX_SAMPLES:
+            break
+        samples *= 2
+    raise AnalysisError(f"the sampled step response has not settled within "
+                        f"{samples * T:.4g} s ({samples} samples)")

@@ -1,0 +1,446 @@
+"""Loops around a measured plant: margins, peaks and the Nyquist count on the data.
+
+``L(jω) = C(jω)·P_meas(ω)·H(jω)·e^{−jωτ}`` is known on the measured range only, with
+``P_meas`` interpolated between the measured points (linear in ln ω, magnitude in dB and
+unwrapped phase; :class:`~loopwarden.design.frd.MeasuredPlant`).  Crossings and peaks
+are found on the measured points subdivided 16 times (more where the delay turns the
+phase fast) and refined on the interpolated response.
+
+Nothing is extrapolated.  What lies outside the range is decided only under the
+assumptions stated in :data:`ASSUMPTIONS`; a figure that they do not decide (a gain
+crossover above the highest measured frequency, a phase crossover that could lie beyond
+it, a stability count whose contour cannot be closed) is listed in
+``FrequencyCoverage.uncovered`` and its check reports ``error``: extend the sweep.
+
+Nyquist count (``Z = N + P``, P the declared right-half-plane poles of the plant plus
+those of the controller and sensor): the winding of ``1 + L`` is summed along the
+measured range and its mirror image, and the contour is closed (a) above the range, where
+``|L| < 1`` keeps ``1 + L`` in the right half-plane, and (b) below it by the loop's
+low-frequency asymptote ``c/s^m`` (m = controller integrators + declared plant
+integrators), its phase joining the measured one the short way with ``|L|`` staying on the
+side of 1 it has at the lowest frequency.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from types import MappingProxyType
+
+import numpy as np
+
+from ..design.frd import MeasuredPlant
+from ..design.model import Design, PlantVariant
+from ..errors import AnalysisError
+from ..lti import ComplexArray, FloatArray, Zpk
+from .discrete_margins import refined_peak
+from .internal import internal_stability
+from .margins import bracketed_roots, wrap_phase_margin_deg
+from .results import (
+    Curves,
+    FrequencyCoverage,
+    GainCrossing,
+    LoopAnalysis,
+    Margins,
+    PhaseCrossing,
+    Sensitivity,
+    Stability,
+    TimeSeries,
+    Tracking,
+)
+from .sensitivity import disk_ranges
+from .stability import open_loop_pole_counts
+
+__all__ = ["ASSUMPTIONS", "MODEL_ONLY", "MeasuredLoop", "analyze_measured",
+           "measured_loop"]
+
+ASSUMPTIONS = (
+    "Outside the measured range nothing is extrapolated. Above the highest measured "
+    "frequency |L| is assumed to stay below its value there (no unmeasured resonance), so "
+    "1 + L stays in the right half-plane; below the lowest, the loop is assumed to follow "
+    "its low-frequency asymptote c/s^m (m = controller integrators + declared plant "
+    "integrators), its phase joining the measured one the short way and |L| staying on the "
+    "side of 1 it has at the lowest measured frequency. The declared unstable poles are "
+    "taken as the plant's open-loop right-half-plane poles.")
+
+#: Checks that need a model of the plant, with the reason they do not apply.
+MODEL_ONLY = {
+    "internal_stability": "measured plant: cancellations between the controller and the "
+                          "plant's poles and zeros cannot be checked without a model",
+    "system_type": "measured plant: the tracking constants need a model of the plant's "
+                   "low-frequency behaviour",
+    "error_constant": "measured plant: the tracking constants need a model of the plant's "
+                      "low-frequency behaviour",
+    "step_overshoot": "measured plant: the step response needs a model",
+    "step_settling": "measured plant: the step response needs a model",
+    "step_rise": "measured plant: the step response needs a model",
+    "slow_pair_tail": "measured plant: closed-loop poles and residues need a model",
+    "boost_band": "measured plant: the boost-band analysis is done on models only",
+    "lag_phase_budget": "measured plant: the lag phase budget is priced on models only",
+    "integral_alternative": "measured plant: the integral-action alternative is re-tuned "
+                            "on models only",
+}
+#: Checks decided by the Nyquist count or the crossings (see :func:`_coverage`).
+_MARGIN_CHECKS = ("gain_margin", "phase_margin", "delay_margin", "crossover_band",
+                  "peak_sensitivity", "peak_complementary", "disk_margin")
+SUBDIVISIONS = 16
+DELAY_STEP_RAD = 0.1
+MAX_POINTS = 200_000
+#: |d ln|L| / d ln ω| below this over the lowest points: the low-frequency plateau.
+PLATEAU_SLOPE = 0.1
+_STEP_RTOL = 0.25
+
+
+@dataclass(frozen=True, eq=False)
+class MeasuredLoop:
+    """``L = C·P_meas·H·e^{−sτ}`` on the measured range of ``plant``."""
+
+    controller: Zpk
+    sensor: Zpk
+    delay_s: float
+    plant: MeasuredPlant
+
+    @property
+    def known(self) -> Zpk:
+        """The modelled part ``C·H`` (no delay)."""
+        return self.controller * self.sensor
+
+    def log_magnitude(self, w: FloatArray) -> FloatArray:
+        lm, _ = self.plant.interpolate(w)
+        known = self.known
+        return lm + np.log(np.abs(known.freqresp(w)))
+
+    def phase_rad(self, w: FloatArray) -> FloatArray:
+        """Continuous phase: the controller's and sensor's factor phases, the unwrapped
+        measured phase and ``−ωτ``."""
+        _, ph = self.plant.interpolate(w)
+        return self.known.phase_rad(w) + ph - np.asarray(w) * self.delay_s
+
+    def value(self, w: FloatArray) -> ComplexArray:
+        return np.exp(self.log_magnitude(w) + 1j * self.phase_rad(w))
+
+    @property
+    def integrators(self) -> int:
+        return self.known.origin_poles + self.plant.integrators
+
+
+def measured_loop(design: Design, variant: PlantVariant) -> MeasuredLoop:
+    if variant.measured is None:
+        raise ValueError(f"plant variant {variant.name!r} is not measured")
+    ctrl = Zpk.constant(1.0)
+    for st in design.controller:
+        ctrl = ctrl * st.model
+    sensor = design.sensor if design.sensor is not None else Zpk.constant(1.0)
+    return MeasuredLoop(controller=ctrl, sensor=sensor,
+                        delay_s=variant.delay_s + design.sensor_delay_s,
+                        plant=variant.measured)
+
+
+def analysis_grid(loop: MeasuredLoop) -> FloatArray:
+    """The measured frequencies, each interval subdivided in ln ω (rad/s)."""
+    w = loop.plant.frequency_rad_s
+    lo, hi = w[:-1], w[1:]
+    per = np.full(lo.size, SUBDIVISIONS)
+    if loop.delay_s > 0:
+        per = np.maximum(per, np.ceil((hi - lo) * loop.delay_s / DELAY_STEP_RAD)).astype(int)
+    per = np.minimum(per, max(SUBDIVISIONS, MAX_POINTS // max(lo.size, 1)))
+    parts = [np.exp(np.linspace(math.log(a), math.log(b), int(k) + 1)[:-1])
+             for a, b, k in zip(lo, hi, per, strict=True)]
+    parts.append(w[-1:])
+    return np.unique(np.concatenate(parts))
+
+
+# --------------------------------------------------------------------------- margins
+def _gain_crossings(loop: MeasuredLoop, w: FloatArray) -> FloatArray:
+    f = loop.log_magnitude(w)
+    idx = np.flatnonzero((f[:-1] > 0) != (f[1:] > 0))
+
+    def fn(u: FloatArray, _: FloatArray) -> FloatArray:
+        return loop.log_magnitude(np.exp(u))
+
+    return np.exp(bracketed_roots(fn, np.log(w[idx]), np.log(w[idx + 1])))
+
+
+def _phase_crossings(loop: MeasuredLoop, w: FloatArray) -> FloatArray:
+    g = (loop.phase_rad(w) + math.pi) / (2.0 * math.pi)
+    lo, hi = np.minimum(g[:-1], g[1:]), np.maximum(g[:-1], g[1:])
+    first = np.floor(lo) + 1.0
+    count = np.maximum(np.floor(hi) - first + 1.0, 0.0).astype(int)
+    step = np.repeat(np.arange(count.size), count)
+    targets = first[step] + (np.arange(step.size)
+                             - np.repeat(np.cumsum(count) - count, count))
+
+    def fn(u: FloatArray, i: FloatArray) -> FloatArray:
+        return (loop.phase_rad(np.exp(u)) + math.pi) / (2.0 * math.pi) - targets[i]
+
+    return np.exp(bracketed_roots(fn, np.log(w[step]), np.log(w[step + 1])))
+
+
+def measured_margins(loop: MeasuredLoop, w: FloatArray) -> Margins:
+    """Margins from the crossings inside the measured range (see the module notes)."""
+    w_gc = _gain_crossings(loop, w)
+    pm = wrap_phase_margin_deg(np.degrees(loop.phase_rad(w_gc)))
+    dm = np.radians(np.mod(pm, 360.0)) / w_gc if w_gc.size else np.zeros(0)
+    gains = tuple(GainCrossing(frequency_rad_s=float(x), phase_margin_deg=float(p),
+                               delay_margin_s=float(d))
+                  for x, p, d in zip(w_gc, pm, dm, strict=True))
+    w_pc = _phase_crossings(loop, w)
+    mags = np.exp(loop.log_magnitude(w_pc))
+    phases = tuple(PhaseCrossing(frequency_rad_s=float(x), magnitude=float(m),
+                                 gain_margin_db=-20.0 * math.log10(m))
+                   for x, m in zip(w_pc, mags, strict=True))
+    upper = [c for c in phases if c.magnitude <= 1.0]
+    lower = [c for c in phases if c.magnitude > 1.0]
+    gm = min(upper, key=lambda c: c.gain_margin_db) if upper else None
+    gm_low = max(lower, key=lambda c: c.gain_margin_db) if lower else None
+    worst = min(gains, key=lambda c: abs(c.phase_margin_deg)) if gains else None
+    return Margins(
+        gain_margin_db=gm.gain_margin_db if gm else math.inf,
+        gain_margin_lower_db=gm_low.gain_margin_db if gm_low else None,
+        phase_margin_deg=worst.phase_margin_deg if worst else math.inf,
+        gain_crossover_rad_s=worst.frequency_rad_s if worst else None,
+        phase_crossover_rad_s=gm.frequency_rad_s if gm else None,
+        delay_margin_s=float(dm.min()) if dm.size else math.inf,
+        gain_crossings=gains, phase_crossings=phases,
+    )
+
+
+# --------------------------------------------------------------------------- peaks
+def _edge_bounds(a: float, below_one: bool) -> tuple[float, float, float]:
+    """Bounds of (|S|, |T|, |S − 1/2|) where |L| stays ≤ a < 1 (or ≥ a > 1)."""
+    if below_one:
+        return 1.0 / (1.0 - a), a / (1.0 - a), (1.0 + a) / (2.0 * (1.0 - a))
+    return 1.0 / (a - 1.0), a / (a - 1.0), (a + 1.0) / (2.0 * (a - 1.0))
+
+
+def measured_sensitivity(loop: MeasuredLoop, w: FloatArray, low_side_below_one: bool
+                         ) -> tuple[Sensitivity, tuple[str, ...]]:
+    """Peaks on the data, each raised to the bound that holds outside the range.
+
+    Outside the range (under the module's assumptions) ``|L| ≤ a`` above it and ``|L|``
+    stays beyond ``b`` below it, which bounds |S|, |T| and |S − 1/2| there; a reported
+    peak is the larger of the in-range peak and those bounds, so it is never optimistic.
+    Returns the figures and the names of those set by a bound, not by the data.
+    """
+    def l_of_w(x: FloatArray) -> ComplexArray:
+        return loop.value(np.clip(x, w[0], w[-1]))
+
+    lv = l_of_w(w[[0, -1]])
+    a = float(np.abs(lv[-1]))
+    b = float(np.abs(lv[0]))
+    high = _edge_bounds(a, True)
+    low = _edge_bounds(b, low_side_below_one)
+    fns = (lambda v: np.abs(1.0 / (1.0 + v)), lambda v: np.abs(v / (1.0 + v)),
+           lambda v: np.abs((1.0 - v) / (2.0 * (1.0 + v))))
+    out: list[tuple[float, float]] = []
+    bounded: list[str] = []
+    for i, (fn, name) in enumerate(zip(fns, ("peak_sensitivity", "peak_complementary",
+                                              "disk_margin"), strict=True)):
+        peak, at = refined_peak(fn, w, l_of_w)
+        edge = max(low[i], high[i])
+        if edge > peak:
+            peak, at = edge, (float(w[0]) if low[i] >= high[i] else float(w[-1]))
+            bounded.append(name)
+        out.append((peak, at))
+    (ms, w_ms), (mt, w_mt), (d_max, _) = out
+    alpha = 1.0 / d_max if d_max > 0 else math.inf
+    lo_gain, hi_gain, phase = disk_ranges(alpha)
+    return Sensitivity(peak_sensitivity=ms, peak_sensitivity_rad_s=w_ms,
+                       peak_complementary=mt, peak_complementary_rad_s=w_mt,
+                       disk_margin=alpha, disk_gain_low=lo_gain, disk_gain_high=hi_gain,
+                       disk_phase_deg=phase), tuple(bounded)
+
+
+# --------------------------------------------------------------------------- Nyquist
+def _wrap(x: float) -> float:
+    """To (−π, π]."""
+    return x - 2.0 * math.pi * math.ceil((x - math.pi) / (2.0 * math.pi))
+
+
+def _winding_along(loop: MeasuredLoop, w: FloatArray) -> tuple[float, float]:
+    """Angle change of 1 + L along the measured range, refined; and min |1 + L|."""
+    t = np.log(w)
+    f = 1.0 + loop.value(w)
+    for _ in range(40):
+        af = np.abs(f)
+        near = np.minimum(af[:-1], af[1:])
+        bad = (np.abs(np.diff(f)) > _STEP_RTOL * near) & (near > 1e-8) & (np.diff(t) > 1e-13)
+        if not bad.any():
+            break
+        mid = 0.5 * (t[:-1][bad] + t[1:][bad])
+        t = np.concatenate([t, mid])
+        f = np.concatenate([f, 1.0 + loop.value(np.exp(mid))])
+        order = np.argsort(t, kind="stable")
+        t, f = t[order], f[order]
+    else:
+        raise AnalysisError("the Nyquist curve of the measured loop could not be resolved")
+    return float(np.sum(np.angle(f[1:] / f[:-1]))), float(np.min(np.abs(f)))
+
+
+def measured_stability(loop: MeasuredLoop, w: FloatArray, open_rhp: int) -> Stability:
+    """Nyquist count ``Z = N + P`` with the contour closed as the module describes.
+
+    The caller has checked that the closures hold (``|L| < 1`` at the top of the range,
+    and ``|L| > 1`` at the bottom when the loop has integrators).
+    """
+    m = loop.integrators
+    l_min, l_max = complex(loop.value(w[:1])[0]), complex(loop.value(w[-1:])[0])
+    along, min_rd = _winding_along(loop, w)
+    high = -2.0 * math.atan2((1 + l_max).imag, (1 + l_max).real)
+    if abs(l_min) > 1.0:
+        phi = math.atan2(l_min.imag, l_min.real)
+        delta = _wrap(phi + m * math.pi / 2.0)
+        if abs(delta) > math.pi / 2.0:                   # negative low-frequency gain
+            delta = _wrap(phi + m * math.pi / 2.0 - math.pi)
+        corr = 1.0 + 1.0 / l_min
+        low = 2.0 * delta - m * math.pi + 2.0 * math.atan2(corr.imag, corr.real)
+    else:
+        f = 1.0 + l_min
+        low = 2.0 * math.atan2(f.imag, f.real)
+    winding = (2.0 * along + high + low) / (2.0 * math.pi)
+    marginal = min_rd <= 1e-8
+    if not marginal and abs(winding - round(winding)) > 1e-6:
+        raise AnalysisError(f"Nyquist winding number {winding:.6f} is not an integer")
+    n_cw = -int(round(winding))
+    z = n_cw + open_rhp
+    note = (f"Nyquist count on the measured range {w[0]:.4g}–{w[-1]:.4g} rad/s closed "
+            f"under the stated assumptions: N = {n_cw} clockwise encirclements of −1, "
+            f"P = {open_rhp} (declared and modelled right-half-plane poles), Z = N + P = {z}; "
+            f"{m} integrator(s) at the low-frequency end")
+    if marginal:
+        note += "; 1 + L vanishes on the measured range: a closed-loop root on the axis"
+    return Stability(closed_loop_stable=z == 0 and not marginal, method="nyquist",
+                     closed_loop_poles=(), open_loop_rhp_poles=open_rhp,
+                     open_loop_imag_axis_poles=m, rhp_closed_loop_poles=z,
+                     clockwise_encirclements=n_cw, marginal=marginal, note=note)
+
+
+# --------------------------------------------------------------------------- coverage
+def _low_slope(loop: MeasuredLoop) -> float:
+    """``d ln|L| / d ln ω`` over the lowest measured points (up to 2× the lowest)."""
+    w = loop.plant.frequency_rad_s
+    upto = w <= 2.0 * w[0]
+    k = max(int(np.sum(upto)), 2)
+    x, y = np.log(w[:k]), loop.log_magnitude(w[:k])
+    return float(np.polyfit(x, y, 1)[0])
+
+
+def _coverage(loop: MeasuredLoop, margins: Margins, l_min: float, l_max: float,
+              slope: float) -> dict[str, str]:
+    """Check name → why the measured range leaves it undecided."""
+    lo, hi = loop.plant.frequency_min_rad_s, loop.plant.frequency_max_rad_s
+    m = loop.integrators
+    out: dict[str, str] = {}
+    top = (f"|L| = {l_max:.4g} ≥ 1 at the highest measured frequency {hi:.4g} rad/s: a gain "
+           "crossover lies above the measured range; extend the sweep to higher frequencies")
+    if l_max >= 1.0:
+        for name in ("closed_loop_stability", *_MARGIN_CHECKS):
+            out[name] = top
+        return out
+    bottom = None
+    if l_min <= 1.0 and m > 0:
+        bottom = (f"|L| = {l_min:.4g} ≤ 1 at the lowest measured frequency {lo:.4g} rad/s "
+                  f"with {m} integrator(s): a gain crossover lies below the measured range; "
+                  "extend the sweep to lower frequencies")
+    elif l_min < 1.0 and abs(slope) > PLATEAU_SLOPE:
+        bottom = (f"|L| = {l_min:.4g} < 1 at the lowest measured frequency {lo:.4g} rad/s and "
+                  f"still changing ({20 * slope:.3g} dB/decade): a gain crossover below the "
+                  "measured range cannot be excluded; extend the sweep to lower frequencies")
+    if bottom is not None:
+        for name in ("closed_loop_stability", *_MARGIN_CHECKS):
+            out[name] = bottom
+        return out
+    upper = [c for c in margins.phase_crossings if c.magnitude <= 1.0]
+    bound_db = -20.0 * math.log10(l_max)
+    if not upper:
+        out["gain_margin"] = (f"no phase crossover with |L| ≤ 1 in the measured range "
+                              f"{lo:.4g}–{hi:.4g} rad/s; one above it would have a gain margin "
+                              f"of at least {bound_db:.3g} dB, but where it lies is not "
+                              "measured: extend the sweep to higher frequencies")
+    elif margins.gain_margin_db > bound_db:
+        out["gain_margin"] = (f"the gain margin in the measured range is "
+                              f"{margins.gain_margin_db:.3g} dB, but above the range |L| may "
+                              f"still be {20 * math.log10(l_max):.3g} dB: a phase crossover "
+                              "there could set a smaller margin; extend the sweep until |L| "
+                              "is below −(gain margin) dB")
+    return out
+
+
+def _tracking(m: int) -> Tracking:
+    """What the integrators alone decide; the constant of order m needs the plant's gain."""
+    which = ("kp", "kv", "ka")
+    errors = ("step_error", "ramp_error", "parabola_error")
+    unknown = (which[m], errors[m]) if m < 3 else ()
+    values = {k: (math.inf if i < m else 0.0) for i, k in enumerate(which)}
+    errs = {e: (0.0 if i < m else math.inf) for i, e in enumerate(errors)}
+    for name in unknown:
+        values.pop(name, None)
+        errs.pop(name, None)
+    return Tracking(system_type=m, kp=values.get("kp", 0.0), kv=values.get("kv", 0.0),
+                    ka=values.get("ka", 0.0), step_error=errs.get("step_error", 0.0),
+                    ramp_error=errs.get("ramp_error", 0.0),
+                    parabola_error=errs.get("parabola_error", 0.0), unknown=unknown)
+
+
+def analyze_measured(design: Design, variant: PlantVariant) -> LoopAnalysis:
+    """Analyse the loop around a measured plant variant on its data."""
+    loop = measured_loop(design, variant)
+    mp = loop.plant
+    kp = loop.known.poles
+    if np.any((np.abs(kp.real) <= 1e-9 * np.abs(kp)) & (kp != 0)):
+        raise AnalysisError("controller or sensor poles on the imaginary axis away from "
+                            "s = 0 are not supported with a measured plant")
+    w = analysis_grid(loop)
+    errors: dict[str, str] = {}
+    l_min = float(np.exp(loop.log_magnitude(w[:1]))[0])
+    l_max = float(np.exp(loop.log_magnitude(w[-1:]))[0])
+    slope = _low_slope(loop)
+    marg = measured_margins(loop, w)
+    low_below_one = l_min < 1.0
+    sens, bounded = measured_sensitivity(loop, w, low_below_one)
+    uncovered = _coverage(loop, marg, l_min, l_max, slope)
+    rhp_known, _ = open_loop_pole_counts(loop.known)
+    open_rhp = rhp_known + mp.unstable_poles
+    m = loop.integrators
+    if "closed_loop_stability" in uncovered:
+        stab = Stability(closed_loop_stable=False, method="nyquist", closed_loop_poles=(),
+                         open_loop_rhp_poles=open_rhp, open_loop_imag_axis_poles=m,
+                         rhp_closed_loop_poles=None, clockwise_encirclements=None,
+                         note="not decided: " + uncovered["closed_loop_stability"])
+    else:
+        stab = measured_stability(loop, w, open_rhp)
+    notes = [ASSUMPTIONS]
+    if abs(slope + m) > 0.5 and l_min > 1.0:
+        notes.append(f"The magnitude slope at the lowest frequencies is {20 * slope:.3g} "
+                     f"dB/decade, not the {-20 * m} dB/decade of the {m} integrator(s) "
+                     "counted: check the declared plant integrators.")
+    if bounded:
+        notes.append("Set by the bound outside the measured range, not by a measured peak: "
+                     + ", ".join(bounded) + ".")
+    coverage = FrequencyCoverage(
+        file=mp.file, sha256=mp.sha256, frequency_min_rad_s=mp.frequency_min_rad_s,
+        frequency_max_rad_s=mp.frequency_max_rad_s, points=mp.points,
+        unstable_poles=mp.unstable_poles, integrators=m, loop_gain_at_min=l_min,
+        loop_gain_at_max=l_max, assumptions=" ".join(notes),
+        uncovered=MappingProxyType(dict(sorted(uncovered.items()))),
+    )
+    blocks = [(st.name, st.model) for st in design.controller]
+    if design.sensor is not None:
+        blocks.append(("sensor", design.sensor))
+    partial = internal_stability(blocks)
+    intern = type(partial)(internally_stable=partial.internally_stable,
+                           cancellations=partial.cancellations,
+                           note="plant not checked (measured); between controller and "
+                                "sensor: " + partial.note)
+    errors["step"] = "measured plant: no model to simulate"
+    plot_w = w if w.size <= 2000 else w[np.unique(
+        np.linspace(0, w.size - 1, 2000).round().astype(int))]
+    empty = TimeSeries(time_s=np.zeros(0), value=np.zeros(0))
+    curves = Curves(frequency_rad_s=plot_w, open_loop=loop.value(plot_w), step=empty,
+                    ramp_error=empty, improvement={})
+    return LoopAnalysis(
+        variant=variant.name, stability=stab, internal=intern, margins=marg,
+        sensitivity=sens, tracking=_tracking(m), step=None, slow_tail=None, boosts=(),
+        integral_alternatives=(), curves=curves, errors=errors, coverage=coverage,
+        not_applicable=MappingProxyType(dict(MODEL_ONLY)),
+    )
