@@ -8,11 +8,13 @@ of stopping the review.
 from __future__ import annotations
 
 from collections.abc import Callable
-from typing import TypeVar
+from typing import TYPE_CHECKING, TypeVar
 
-from ..design.model import Design, PlantVariant
 from ..errors import AnalysisError
-from .results import Curves, LoopAnalysis, TimeSeries
+
+if TYPE_CHECKING:  # pragma: no cover - the numerical stack loads only when analysing
+    from ..design.model import Design, PlantVariant
+    from .results import LoopAnalysis
 
 __all__ = ["analyze", "analyze_variant"]
 
@@ -45,6 +47,7 @@ def analyze_variant(design: Design, variant: PlantVariant, *,
     """
     from . import (
         boost_band,
+        frequency_grid,
         integral_alternative,
         internal,
         margins,
@@ -54,6 +57,7 @@ def analyze_variant(design: Design, variant: PlantVariant, *,
         time_response,
         tracking,
     )
+    from .results import Curves, LoopAnalysis, TimeSeries
 
     band = settling_band or design.requirements.settling_band or DEFAULT_SETTLING_BAND
     # A sampled design is analysed in z, a measured plant on its data; both dispatch here.
@@ -76,8 +80,9 @@ def analyze_variant(design: Design, variant: PlantVariant, *,
 
     stab = stability.closed_loop_stability(loop)
     intern = internal.internal_stability(blocks)
-    marg = margins.compute_margins(loop)
-    sens = sensitivity.compute_sensitivity(loop)
+    w = frequency_grid.loop_grid(loop)          # one analysis grid for both
+    marg = margins.compute_margins(loop, w)
+    sens = sensitivity.compute_sensitivity(loop, w)
     track = tracking.compute_tracking(loop)
 
     step_result = None

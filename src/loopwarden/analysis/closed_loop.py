@@ -11,15 +11,21 @@ ym = H·y.  The transport delay sits at the plant input.
 
 from __future__ import annotations
 
+import functools
+import math
+import weakref
+from collections.abc import Callable
 from dataclasses import dataclass
+from typing import TypeVar
 
 import numpy as np
 from numpy.typing import NDArray
 
 from ..errors import AnalysisError
-from ..lti import Loop, Zpk, _series
+from ..lti import Loop, Zpk, _real_sections, _section_ss, _series
 
 Matrix = NDArray[np.float64]
+T = TypeVar("T")
 
 
 @dataclass(frozen=True, slots=True)
@@ -36,15 +42,43 @@ class StateSpace:
         return int(self.a.shape[0])
 
 
+def _realise_block(blk: Zpk) -> tuple[Matrix, Matrix, Matrix, Matrix]:
+    """A series of first/second-order sections, each of gain about one.
+
+    :meth:`Zpk.to_ss` leaves the whole gain at the input of the first section; a plant
+    with poles at hundreds of rad/s then carries a gain of 1e50 and more there, and the
+    closed-loop matrix becomes so badly scaled that no balancing restores well-conditioned
+    eigenvectors.  Here each section is scaled by the power of two nearest to unit gain at
+    ``ω₀ = max(1, |roots|)`` (its corner) and only the remainder stays at the input: the
+    same transfer function, exactly a power-of-two state scaling of :meth:`Zpk.to_ss`'s.
+    """
+    if not blk.is_proper:
+        raise AnalysisError("an improper block cannot be realised in state space")
+    A = np.zeros((0, 0))
+    B = np.zeros((0, 1))
+    C = np.zeros((1, 0))
+    D = np.array([[1.0]])
+    rest = blk.gain
+    for num, den in _real_sections(blk.zeros, blk.poles):
+        # |coefficient_k|^(1/k) of the monic factors: the scale of their roots.
+        w0 = max([1.0, *(abs(float(c)) ** (1.0 / k) for poly in (num / num[0], den)
+                         for k, c in enumerate(poly[1:], start=1) if c != 0)])
+        g = abs(np.polyval(den, 1j * w0) / np.polyval(num, 1j * w0))
+        # A power of two: the rescaling is exact, so exact zeros (a DC gain of 0) stay.
+        g = 2.0 ** round(math.log2(g)) if math.isfinite(g) and g > 0 else 1.0
+        a, b, c, d = _section_ss(num * g, den)
+        rest /= g
+        A, B, C, D = _series(A, B, C, D, a, b, c, d)
+    return A, B * rest, C, D * rest
+
+
 def _realise_chain(blocks: tuple[Zpk, ...]) -> StateSpace:
     A = np.zeros((0, 0))
     B = np.zeros((0, 1))
     C = np.zeros((1, 0))
     D = np.array([[1.0]])
     for blk in blocks:
-        if not blk.is_proper:
-            raise AnalysisError("an improper block cannot be realised in state space")
-        a, b, c, d = blk.to_ss()
+        a, b, c, d = _realise_block(blk)
         A, B, C, D = _series(A, B, C, D, a, b, c, d)
     return StateSpace(A, B, C, D)
 
@@ -53,6 +87,34 @@ def _controller_blocks(loop: Loop) -> tuple[Zpk, ...]:
     return loop.stages if loop.stages else (loop.controller,)
 
 
+def _cached(fn: Callable[[Loop], T]) -> Callable[[Loop], T]:
+    """Memoise a function of a loop per loop object (loops are immutable): stability,
+    time responses, slow pairs and the integral alternative all ask for the same
+    realisation.  Arrays in the result are made read-only, so no caller can spoil it."""
+    store: weakref.WeakKeyDictionary[Loop, T] = weakref.WeakKeyDictionary()
+
+    @functools.wraps(fn)
+    def wrapper(loop: Loop) -> T:
+        try:
+            return store[loop]
+        except KeyError:
+            pass
+        value = fn(loop)
+        if isinstance(value, np.ndarray):
+            arrays = [value]
+        elif isinstance(value, StateSpace):
+            arrays = [value.a, value.b, value.c, value.d]
+        else:
+            arrays = [value.zeros, value.poles]        # a Zpk
+        for arr in arrays:
+            arr.setflags(write=False)
+        store[loop] = value
+        return value
+
+    return wrapper
+
+
+@_cached
 def delay_split(loop: Loop) -> StateSpace:
     """The loop cut at the delayed plant input.
 
@@ -96,6 +158,7 @@ def delay_split(loop: Loop) -> StateSpace:
     return StateSpace(A, Bm, Cm, Dm)
 
 
+@_cached
 def closed_loop(loop: Loop) -> StateSpace:
     """Delay-free closed loop from r to ``[y, u]`` (the delay is ignored).
 
@@ -119,6 +182,7 @@ def closed_loop(loop: Loop) -> StateSpace:
     return StateSpace(A, B, C, D)
 
 
+@_cached
 def closed_loop_poles(loop: Loop) -> NDArray[np.complex128]:
     """Eigenvalues of the delay-free closed-loop interconnection (every mode kept)."""
     from scipy import linalg
@@ -129,6 +193,7 @@ def closed_loop_poles(loop: Loop) -> NDArray[np.complex128]:
     return np.sort_complex(linalg.eigvals(ss.a))
 
 
+@_cached
 def reference_to_output(loop: Loop) -> Zpk:
     """``T_ref(s) = C·P / (1 + C·P·H)`` without the delay, in zpk form.
 

@@ -8,12 +8,14 @@ and the rule that needs it reports an ``error`` finding.
 
 from __future__ import annotations
 
+import typing
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from types import MappingProxyType
 
-import numpy as np
-from numpy.typing import NDArray
+if typing.TYPE_CHECKING:  # annotations only: `loopwarden rules` must not load numpy
+    import numpy as np
+    from numpy.typing import NDArray
 
 
 # --------------------------------------------------------------------------- stability

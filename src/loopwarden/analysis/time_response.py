@@ -22,6 +22,7 @@ extended when the simulated response has not clearly settled.
 from __future__ import annotations
 
 import math
+import weakref
 from collections.abc import Callable
 from dataclasses import dataclass
 from functools import cached_property
@@ -32,7 +33,13 @@ from scipy import linalg, optimize
 
 from ..errors import AnalysisError
 from ..lti import FloatArray, Loop, Zpk
-from .closed_loop import StateSpace, closed_loop, delay_split, reference_to_output
+from .closed_loop import (
+    StateSpace,
+    closed_loop,
+    closed_loop_poles,
+    delay_split,
+    reference_to_output,
+)
 from .modal import ModalForm, balance, modal_form_balanced
 from .results import StepMetrics, StepResult, TimeSeries
 
@@ -84,9 +91,16 @@ class RationalResponse:
 
     @classmethod
     def of_loop(cls, loop: Loop) -> RationalResponse:
-        """From the delay-free closed loop of ``loop`` (output y)."""
+        """From the delay-free closed loop of ``loop`` (output y); one per loop object, so
+        the step response and the slow-pair analysis share one decomposition."""
+        try:
+            return _RESPONSES[loop]
+        except KeyError:
+            pass
         ss = closed_loop(loop)
-        return cls(ss.a, ss.b, ss.c[0:1, :], float(ss.d[0, 0]))
+        resp = cls(ss.a, ss.b, ss.c[0:1, :], float(ss.d[0, 0]))
+        _RESPONSES[loop] = resp
+        return resp
 
     @cached_property
     def _x_inf(self) -> NDArray[np.float64]:
@@ -165,6 +179,9 @@ class RationalResponse:
         y = cx - step_tr + self.d
         y_ramp = cx * t + cb - ramp_tr + self.d * t
         return t, y, t - y_ramp
+
+
+_RESPONSES: weakref.WeakKeyDictionary[Loop, RationalResponse] = weakref.WeakKeyDictionary()
 
 
 def _output_of_powers(phi: NDArray[np.float64], v: NDArray[np.float64],
@@ -575,9 +592,9 @@ def step_response(loop: Loop, band: float) -> StepResult:
     if not band > 0:
         raise AnalysisError(f"settling band must be positive, got {band}")
     ss = closed_loop(loop)
-    if not loop.has_delay and ss.order and np.max(linalg.eigvals(ss.a).real) >= 0:
+    if not loop.has_delay and ss.order and np.max(closed_loop_poles(loop).real) >= 0:
         raise AnalysisError("the closed loop is not stable: no settled step response")
-    rational = RationalResponse(ss.a, ss.b, ss.c[0:1, :], float(ss.d[0, 0]))
+    rational = RationalResponse.of_loop(loop)
     try:
         final = rational.final_value
     except np.linalg.LinAlgError as exc:

@@ -24,13 +24,16 @@ import math
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from types import MappingProxyType
+from typing import TYPE_CHECKING
 
 from ..analysis.regression import FIGURE_NAMES, FigureChange
 from ..analysis.regression import compare as compare_figures
 from ..analysis.results import Boost, LoopAnalysis, StepMetrics
-from ..design.model import Design
 from ..errors import AnalysisError
 from .model import Rule
+
+if TYPE_CHECKING:  # annotations only: `loopwarden rules` must not load the design stack
+    from ..design.model import Design
 
 Details = Mapping[str, float | str | None]
 
