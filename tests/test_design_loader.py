@@ -325,6 +325,7 @@ EXPECTED_SAMPLES = {
     "hoist_lag_tail.toml": (("nominal",), ("gain", "lag"), "rad/s"),
     "pump_pressure.toml": (("nominal", "long delivery line", "two pumps"), ("tf", "lowpass"),
                            "hz"),
+    "spindle_sweep.toml": (("nominal", "identified model"), ("pi",), "hz"),
 }
 
 

@@ -303,6 +303,11 @@ def measured_stability(loop: MeasuredLoop, w: FloatArray, open_rhp: int) -> Stab
         raise AnalysisError(f"Nyquist winding number {winding:.6f} is not an integer")
     n_cw = -int(round(winding))
     z = n_cw + open_rhp
+    if z < 0:
+        raise AnalysisError(f"the Nyquist count gives N = {n_cw} with P = {open_rhp}, so "
+                            f"Z = N + P = {z} < 0: the open loop must have at least {-n_cw} "
+                            "right-half-plane pole(s); check the plant's declared "
+                            "unstable_poles and integrators")
     note = (f"Nyquist count on the measured range {w[0]:.4g}–{w[-1]:.4g} rad/s closed "
             f"under the stated assumptions: N = {n_cw} clockwise encirclements of −1, "
             f"P = {open_rhp} (declared and modelled right-half-plane poles), Z = N + P = {z}; "
@@ -366,6 +371,30 @@ def _coverage(loop: MeasuredLoop, margins: Margins, l_min: float, l_max: float,
     return out
 
 
+#: Spline and straight lines differing by more than this at a crossing: the sweep is coarse.
+COARSE_DB = 0.1
+COARSE_DEG = 1.0
+
+
+def _coarse_sweep_notes(plant: MeasuredPlant, margins: Margins) -> list[str]:
+    """Cautions where the interpolation between measured points matters at a crossing."""
+    points = sorted({c.frequency_rad_s for c in margins.gain_crossings}
+                    | {c.frequency_rad_s for c in margins.phase_crossings
+                       if c.magnitude <= 1.0})
+    if not points:
+        return []
+    w = np.array(points)
+    lm_s, ph_s = plant.interpolate(w)
+    lm_l, ph_l = plant.interpolate(w, linear=True)
+    d_db = np.abs(lm_s - lm_l) * 20.0 / math.log(10.0)
+    d_deg = np.degrees(np.abs(ph_s - ph_l))
+    coarse = (d_db > COARSE_DB) | (d_deg > COARSE_DEG)
+    return [f"Near {x:.4g} rad/s the sweep is coarse for the response there: interpolating "
+            f"with a spline or with straight lines between the points differs by {db:.2g} dB "
+            f"and {deg:.2g}°; measure more points there." for x, db, deg, c in
+            zip(w, d_db, d_deg, coarse, strict=True) if c]
+
+
 def _tracking(m: int) -> Tracking:
     """What the integrators alone decide; the constant of order m needs the plant's gain."""
     which = ("kp", "kv", "ka")
@@ -402,18 +431,22 @@ def analyze_measured(design: Design, variant: PlantVariant) -> LoopAnalysis:
     rhp_known, _ = open_loop_pole_counts(loop.known)
     open_rhp = rhp_known + mp.unstable_poles
     m = loop.integrators
-    if "closed_loop_stability" in uncovered:
+    stab = None
+    if "closed_loop_stability" not in uncovered:
+        try:
+            stab = measured_stability(loop, w, open_rhp)
+        except AnalysisError as exc:
+            uncovered["closed_loop_stability"] = str(exc)
+            for name in _MARGIN_CHECKS:
+                # Margins of a loop whose stability is undecided mean nothing.
+                uncovered.setdefault(name, "closed-loop stability is not decided (see "
+                                           "closed_loop_stability)")
+    if stab is None:
         stab = Stability(closed_loop_stable=False, method="nyquist", closed_loop_poles=(),
                          open_loop_rhp_poles=open_rhp, open_loop_imag_axis_poles=m,
                          rhp_closed_loop_poles=None, clockwise_encirclements=None,
                          note="not decided: " + uncovered["closed_loop_stability"])
-    else:
-        stab = measured_stability(loop, w, open_rhp)
-    notes = [ASSUMPTIONS]
-    if abs(slope + m) > 0.5 and l_min > 1.0:
-        notes.append(f"The magnitude slope at the lowest frequencies is {20 * slope:.3g} "
-                     f"dB/decade, not the {-20 * m} dB/decade of the {m} integrator(s) "
-                     "counted: check the declared plant integrators.")
+    notes = [ASSUMPTIONS, *_coarse_sweep_notes(mp, marg)]
     if bounded:
         notes.append("Set by the bound outside the measured range, not by a measured peak: "
                      + ", ".join(bounded) + ".")

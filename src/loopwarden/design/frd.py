@@ -82,8 +82,12 @@ class MeasuredPlant:
     def points(self) -> int:
         return int(self.frequency_rad_s.size)
 
-    def interpolate(self, w_rad_s: ArrayLike) -> tuple[FloatArray, FloatArray]:
+    def interpolate(self, w_rad_s: ArrayLike, *, linear: bool = False
+                    ) -> tuple[FloatArray, FloatArray]:
         """``(ln|P|, ∠P)`` at ω inside the measured range (splines in ln ω).
+
+        ``linear`` gives straight lines between the points instead, for judging how much
+        the interpolation itself contributes (the two differ where the sweep is coarse).
 
         Raises
         ------
@@ -95,6 +99,9 @@ class MeasuredPlant:
         if w.size and (np.min(w) < lo * (1 - 1e-12) or np.max(w) > hi * (1 + 1e-12)):
             raise ValueError(f"frequency outside the measured range [{lo:g}, {hi:g}] rad/s")
         u = np.log(np.clip(w, lo, hi))
+        if linear:
+            grid = np.log(self.frequency_rad_s)
+            return (np.interp(u, grid, self.log_magnitude), np.interp(u, grid, self.phase_rad))
         lm, ph = self._splines           # type: ignore[attr-defined]
         return lm(u), ph(u)
 
