@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import contextlib
 import importlib
+import os
 import sys
 import traceback
 from collections.abc import Iterator, Sequence
@@ -75,8 +76,17 @@ def _parser(with_commands: Sequence[str] | None = None) -> argparse.ArgumentPars
     return parser
 
 
+#: BLAS thread pools: the analysis works on matrices of a few dozen rows, where a second
+#: thread only adds hand-over cost (it halves the speed on 2 cores, worse with batch
+#: workers competing).  Set before numpy loads (commands import it lazily) and inherited
+#: by batch workers; a value the user set wins.
+_SINGLE_THREADED = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the exit status."""
+    for name in _SINGLE_THREADED:
+        os.environ.setdefault(name, "1")
     args_list = list(sys.argv[1:] if argv is None else argv)
     # Only the chosen command's module is imported (keeps --help fast).
     chosen = next((a for a in args_list if not a.startswith("-")), None)

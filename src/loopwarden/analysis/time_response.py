@@ -162,6 +162,23 @@ class RationalResponse:
         For r = t the state is ``x = a₁t + b₁ − e^{At} b₁`` with ``a₁ = x∞`` and
         ``b₁ = A⁻¹a₁`` (the particular solution plus the decaying homogeneous part).
         """
+        key = (float(horizon_s), int(steps))
+        if key in self._grids:
+            return self._grids[key]
+        out = self._on_grid(horizon_s, steps)
+        for arr in out:
+            arr.setflags(write=False)
+        # The slow-pair analysis asks for the grid the step response ended on: keep it.
+        self._grids.clear()
+        self._grids[key] = out
+        return out
+
+    @cached_property
+    def _grids(self) -> dict[tuple[float, int], tuple[FloatArray, FloatArray, FloatArray]]:
+        return {}
+
+    def _on_grid(self, horizon_s: float, steps: int,
+                 ) -> tuple[FloatArray, FloatArray, FloatArray]:
         t = np.linspace(0.0, horizon_s, steps + 1)
         n = self.a.shape[0]
         if n == 0:
@@ -380,8 +397,24 @@ def _mode_amplitudes(t_ref: Zpk) -> tuple[NDArray[np.complex128], FloatArray]:
     """Poles of T and the magnitude of each pole's term in the step response.
 
     ``|Res[T(s)/s, p]|`` for simple poles; a pole repeated (or nearly) gets a conservative
-    amplitude instead of the meaningless simple-pole formula.
+    amplitude instead of the meaningless simple-pole formula.  Kept per ``t_ref`` object:
+    the horizon and every grid size ask for it.
     """
+    try:
+        return _AMPLITUDES[t_ref]
+    except KeyError:
+        pass
+    out = _compute_mode_amplitudes(t_ref)
+    out[1].setflags(write=False)
+    _AMPLITUDES[t_ref] = out
+    return out
+
+
+_AMPLITUDES: weakref.WeakKeyDictionary[Zpk, tuple[NDArray[np.complex128], FloatArray]] = (
+    weakref.WeakKeyDictionary())
+
+
+def _compute_mode_amplitudes(t_ref: Zpk) -> tuple[NDArray[np.complex128], FloatArray]:
     poles, zeros = t_ref.poles, t_ref.zeros
     amp = np.empty(poles.size)
     for i, p in enumerate(poles):
