@@ -399,3 +399,16 @@ def test_slow_sample_rate_warns(tmp_path):
     doc = json.loads((tmp_path / "r.json").read_text(encoding="utf-8"))
     rate = next(f for f in doc["findings"] if f["check"] == "sample_rate")
     assert rate["status"] == "warn" and rate["measured"] < 10
+
+
+def test_relative_delay_margin_counts_the_compute_delay(tmp_path):
+    # process-control's relative delay margin divides by the loop's dead time: for a
+    # sampled loop that is the transport delay plus the compute delay (0.035 + 0.05 s).
+    main(["review", str(ROOT / "sample_designs" / "pump_pressure.toml"), "--quiet",
+          "--rules", "process-control", "--json", str(tmp_path / "r.json")])
+    doc = json.loads((tmp_path / "r.json").read_text(encoding="utf-8"))
+    f = next(f for f in doc["findings"] if f["check"] == "delay_margin"
+             and f["variant"] == "nominal")
+    assert f["details"]["loop_delay_s"] == pytest.approx(0.085)
+    dm = doc["variants"][0]["margins"]["delay_margin_s"]
+    assert f["measured"] == pytest.approx(dm / 0.085, rel=1e-12)

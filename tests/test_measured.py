@@ -428,3 +428,18 @@ def test_spindle_sample_matches_its_model(tmp_path):
     assert doc["design"]["measured_plants"][0]["file"] == "spindle_sweep.csv"
     assert len(doc["design"]["measured_plants"][0]["sha256"]) == 64
     assert meas["stability"]["method"] == "nyquist" and meas["closed_loop_stable"]
+
+
+def test_relative_delay_margin_is_na_for_a_measured_plant(tmp_path):
+    # The dead time of a measured plant is inside its data: no ratio can be formed.
+    rc, doc = _review_with(ROOT / "sample_designs" / "spindle_sweep.toml", tmp_path,
+                           "process-control")
+    f = next(f for f in doc["findings"] if f["check"] == "delay_margin"
+             and f["variant"] == "nominal")
+    assert f["status"] == "n/a" and "measured plant" in f["message"]
+
+
+def _review_with(path: Path, folder: Path, rules: str) -> tuple[int, dict]:
+    out = folder / "r.json"
+    rc = main(["review", str(path), "--quiet", "--rules", rules, "--json", str(out)])
+    return rc, json.loads(out.read_text(encoding="utf-8"))

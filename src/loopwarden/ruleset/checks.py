@@ -274,7 +274,14 @@ def _loop_delay_s(a: LoopAnalysis, design: Design) -> float:
     variant = next((v for v in design.variants if v.name == a.variant), None)
     if variant is None:
         raise AnalysisError(f"the design has no plant variant named {a.variant!r}")
-    return variant.delay_s + design.sensor_delay_s
+    if variant.measured is not None:
+        raise NotApplicable("measured plant: its dead time is part of the measured response "
+                            "and not known on its own")
+    delay = variant.delay_s + design.sensor_delay_s
+    if design.sampling is not None:
+        # The computer's own delay is dead time of the loop like any transport delay.
+        delay += design.sampling.compute_delay_samples * design.sampling.period_s
+    return delay
 
 
 @_check("delay_margin", needs_stable=True, unit="s", limits=LOWER,
