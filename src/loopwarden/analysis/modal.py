@@ -85,18 +85,29 @@ class ModalForm:
                 keep[i] = False
         return ModalForm(self.poles[keep], self.step[keep], self.ramp[keep])
 
-    def on_grid(self, h: float, count: int) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-        """Both transients at t = k·h, k = 0 … count−1 (O(count·modes))."""
+    def on_grid(self, h: float, count: int, *, ramp: bool = True,
+                ) -> tuple[NDArray[np.float64], NDArray[np.float64] | None]:
+        """Both transients at t = k·h, k = 0 … count−1 (O(count·modes)).
+
+        ``e^{λ(jB + i)h} = e^{λjBh}·e^{λih}`` with B samples per block: two small tables of
+        exponentials and one real matrix product per transient.  ``ramp=False`` skips the
+        ramp transient (returned as None).
+        """
         m = self.poles.size
         if m == 0:
-            return np.zeros(count), np.zeros(count)
+            return np.zeros(count), (np.zeros(count) if ramp else None)
         block = min(_BLOCK, count)
         rows = -(-count // block)
-        inner = np.exp(np.outer(np.arange(block) * h, self.poles))          # (block, m)
+        inner = np.exp(np.outer(self.poles, np.arange(block) * h))          # (m, block)
         outer = np.exp(np.outer(np.arange(rows) * (block * h), self.poles))  # (rows, m)
-        weights = np.concatenate([outer * self.step, outer * self.ramp])    # (2·rows, m)
-        vals = (weights @ inner.T).real                                     # (2·rows, block)
-        return vals[:rows].ravel()[:count], vals[rows:].ravel()[:count]
+        inner_re, inner_im = np.ascontiguousarray(inner.real), np.ascontiguousarray(inner.imag)
+
+        def transient(weights: NDArray[np.complex128]) -> NDArray[np.float64]:
+            # Re Σ w·outer·inner as real products: no complex temporary of the grid's size.
+            ow = outer * weights
+            return (ow.real @ inner_re - ow.imag @ inner_im).reshape(-1)[:count]
+
+        return transient(self.step), (transient(self.ramp) if ramp else None)
 
 
 def balance(a: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:

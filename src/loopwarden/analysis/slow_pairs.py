@@ -117,7 +117,7 @@ def _terms_on_grid(h: float, count: int, pairs: list[tuple[complex, complex]],
     poles = np.array([p for p, _ in pairs], dtype=complex)
     weights = np.array([r if p.imag == 0 else 2.0 * r
                         for (p, _), r in zip(pairs, residues, strict=True)], dtype=complex)
-    return ModalForm(poles, weights, np.zeros_like(weights)).on_grid(h, count)[0]
+    return ModalForm(poles, weights, np.zeros_like(weights)).on_grid(h, count, ramp=False)[0]
 
 
 def slow_tail(loop: Loop, step: StepResult, band: float) -> SlowTail:
