@@ -23,6 +23,7 @@ uses matrix exponentials of the balanced matrix.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -93,13 +94,33 @@ class ModalForm:
         exponentials and one real matrix product per transient.  ``ramp=False`` skips the
         ramp transient (returned as None).
         """
+        return self._on_grid(0.0, h, count, ramp)
+
+    def on_segments(self, segments: Sequence[tuple[float, float, int]], *, ramp: bool = True,
+                    ) -> tuple[NDArray[np.float64], NDArray[np.float64] | None]:
+        """Both transients on consecutive uniform segments ``(start, end, steps)`` (their
+        shared ends once), as :func:`.time_response.segment_times` lays them out."""
+        steps_out, ramps_out = [], []
+        for i, (a, b, n) in enumerate(segments):
+            st, rp = self._on_grid(a, (b - a) / n, n + 1, ramp)
+            cut = 0 if i == 0 else 1
+            steps_out.append(st[cut:])
+            if rp is not None:
+                ramps_out.append(rp[cut:])
+        step = np.concatenate(steps_out) if len(steps_out) > 1 else steps_out[0]
+        if not ramp:
+            return step, None
+        return step, (np.concatenate(ramps_out) if len(ramps_out) > 1 else ramps_out[0])
+
+    def _on_grid(self, t0: float, h: float, count: int, ramp: bool,
+                 ) -> tuple[NDArray[np.float64], NDArray[np.float64] | None]:
         m = self.poles.size
         if m == 0:
             return np.zeros(count), (np.zeros(count) if ramp else None)
         block = min(_BLOCK, count)
         rows = -(-count // block)
         inner = np.exp(np.outer(self.poles, np.arange(block) * h))          # (m, block)
-        outer = np.exp(np.outer(np.arange(rows) * (block * h), self.poles))  # (rows, m)
+        outer = np.exp(t0 * self.poles + np.outer(np.arange(rows) * (block * h), self.poles))
         inner_re, inner_im = np.ascontiguousarray(inner.real), np.ascontiguousarray(inner.imag)
 
         def transient(weights: NDArray[np.complex128]) -> NDArray[np.float64]:

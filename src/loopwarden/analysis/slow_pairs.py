@@ -21,7 +21,7 @@ from ..lti import FloatArray, Loop, Zpk
 from .closed_loop import reference_to_output
 from .modal import ModalForm
 from .results import SlowPair, SlowTail, StepResult
-from .time_response import RationalResponse, grid_steps, settling_time
+from .time_response import RationalResponse, Segments, grid_segments, settling_time
 
 __all__ = ["CRITERIA", "NEAR_RATIO", "SLOW_RATIO", "find_pairs", "slow_tail", "step_residue"]
 
@@ -111,13 +111,13 @@ def _terms(t: FloatArray, pairs: list[tuple[complex, complex]],
     return total
 
 
-def _terms_on_grid(h: float, count: int, pairs: list[tuple[complex, complex]],
+def _terms_on_grid(segments: Segments, pairs: list[tuple[complex, complex]],
                    residues: list[complex]) -> FloatArray:
-    """:func:`_terms` at t = k·h, k < count, by the block products of the modal form."""
+    """:func:`_terms` on the step grid's segments, by the block products of the modal form."""
     poles = np.array([p for p, _ in pairs], dtype=complex)
     weights = np.array([r if p.imag == 0 else 2.0 * r
                         for (p, _), r in zip(pairs, residues, strict=True)], dtype=complex)
-    return ModalForm(poles, weights, np.zeros_like(weights)).on_grid(h, count, ramp=False)[0]
+    return ModalForm(poles, weights, np.zeros_like(weights)).on_segments(segments, ramp=False)[0]
 
 
 def slow_tail(loop: Loop, step: StepResult, band: float) -> SlowTail:
@@ -174,9 +174,9 @@ def slow_tail(loop: Loop, step: StepResult, band: float) -> SlowTail:
     if pairs:
         resp = RationalResponse.of_loop(loop)
         horizon = step.metrics.horizon_s
-        steps = grid_steps(t_ref, horizon, final, band)
-        t, y, _ = resp.on_grid(horizon, steps)
-        reduced = y - _terms_on_grid(horizon / steps, t.size, pairs, residues)
+        segments = grid_segments(t_ref, horizon, final, band)
+        t, y, _ = resp.on_segments(segments)
+        reduced = y - _terms_on_grid(segments, pairs, residues)
 
         def exact(s: float) -> float:
             arr = np.array([s])

@@ -46,7 +46,9 @@ from .results import StepMetrics, StepResult, TimeSeries
 __all__ = [
     "RationalResponse",
     "crossing_time",
+    "grid_segments",
     "grid_steps",
+    "segment_times",
     "settling_time",
     "step_response",
 ]
@@ -72,6 +74,10 @@ PADE_ORDER = 6
 HORIZON_TAIL_FRACTION = 0.01
 #: Horizon doublings allowed when the response has not settled.
 MAX_EXTENSIONS = 6
+
+
+#: Consecutive uniform pieces of a time grid: (start s, end s, steps).
+Segments = tuple[tuple[float, float, int], ...]
 
 
 # --------------------------------------------------------------------------- exact rational
@@ -162,35 +168,47 @@ class RationalResponse:
         For r = t the state is ``x = a₁t + b₁ − e^{At} b₁`` with ``a₁ = x∞`` and
         ``b₁ = A⁻¹a₁`` (the particular solution plus the decaying homogeneous part).
         """
-        key = (float(horizon_s), int(steps))
+        return self.on_segments(((0.0, float(horizon_s), int(steps)),))
+
+    def on_segments(self, segments: Segments) -> tuple[FloatArray, FloatArray, FloatArray]:
+        """As :meth:`on_grid` on consecutive uniform segments ``(start, end, steps)``.
+
+        The last grid asked for is kept (read-only): the slow-pair analysis asks for the
+        grid the step response ended on.
+        """
+        key = tuple((float(a), float(b), int(n)) for a, b, n in segments)
         if key in self._grids:
             return self._grids[key]
-        out = self._on_grid(horizon_s, steps)
+        out = self._on_segments(key)
         for arr in out:
             arr.setflags(write=False)
-        # The slow-pair analysis asks for the grid the step response ended on: keep it.
         self._grids.clear()
         self._grids[key] = out
         return out
 
     @cached_property
-    def _grids(self) -> dict[tuple[float, int], tuple[FloatArray, FloatArray, FloatArray]]:
+    def _grids(self) -> dict[Segments, tuple[FloatArray, FloatArray, FloatArray]]:
         return {}
 
-    def _on_grid(self, horizon_s: float, steps: int,
-                 ) -> tuple[FloatArray, FloatArray, FloatArray]:
-        t = np.linspace(0.0, horizon_s, steps + 1)
+    def _on_segments(self, segments: Segments) -> tuple[FloatArray, FloatArray, FloatArray]:
+        t = segment_times(segments)
         n = self.a.shape[0]
         if n == 0:
             return t, np.full(t.shape, self.d), t - self.d * t
         x_inf, b1 = self._x_inf, self._b1
-        h = horizon_s / steps
         if self.modes is not None:
-            step_tr, ramp_tr = self.modes.on_grid(h, steps + 1)
+            step_tr, ramp_tr = self.modes.on_segments(segments)
         else:
             ab, xb, b1b, cb = self._balanced
-            phi = linalg.expm(ab * h)
-            powers = _output_of_powers(phi, np.hstack([xb, b1b]), cb, steps + 1)
+            parts = []
+            for i, (a, b, steps) in enumerate(segments):
+                v = np.hstack([xb, b1b])
+                if a > 0:
+                    v = linalg.expm(ab * a) @ v
+                phi = linalg.expm(ab * ((b - a) / steps))
+                powers = _output_of_powers(phi, v, cb, steps + 1)
+                parts.append(powers if i == 0 else powers[1:])
+            powers = np.concatenate(parts)
             step_tr, ramp_tr = powers[:, 0], powers[:, 1]
         cx, cb = float((self.c @ x_inf)[0, 0]), float((self.c @ b1)[0, 0])
         y = cx - step_tr + self.d
@@ -478,6 +496,47 @@ def grid_steps(t_ref: Zpk, horizon_s: float, final: float, band: float) -> int:
     return int(min(max(RATIONAL_STEPS, need), RATIONAL_MAX_STEPS))
 
 
+def grid_segments(t_ref: Zpk, horizon_s: float, final: float, band: float) -> Segments:
+    """The rational step grid: uniform segments, each as fine as the modes alive in it.
+
+    A significant mode (as in :func:`grid_steps`) needs ``|p|·h ≤ 0.1`` only while its
+    term ``a·e^{Re p·t}`` is above a tenth of the horizon floor; after that the spacing
+    follows the slower modes still alive.  The spacing never exceeds
+    ``horizon/RATIONAL_STEPS`` (so the grid has at least that many samples) and never
+    falls below ``horizon/RATIONAL_MAX_STEPS``.  Where a fast mode is significant only at
+    the start of a long horizon this takes a fraction of the samples of one uniform grid
+    fine enough for it everywhere, and resolves every mode where it matters just as well.
+    """
+    poles, amp = _mode_amplitudes(t_ref)
+    floor = HORIZON_TAIL_FRACTION * band * abs(final)
+    coarsest = horizon_s / RATIONAL_STEPS
+    finest = horizon_s / RATIONAL_MAX_STEPS
+    modes = []                                       # (spacing it needs, until when)
+    for p, a in zip(poles, amp, strict=True):
+        if a > floor and abs(p) > 0:
+            sigma = -p.real
+            until = (math.log(10.0 * a / floor) / sigma) if sigma > 0 else math.inf
+            modes.append((RATIONAL_STEP_PER_RAD / abs(p), until))
+    cuts = sorted({0.0, horizon_s, *(u for _, u in modes if 0.0 < u < horizon_s)})
+    segments: list[tuple[float, float, int]] = []
+    last_h = None
+    for a, b in zip(cuts[:-1], cuts[1:], strict=True):
+        h = min([coarsest, *(need for need, until in modes if until > a)])
+        h = max(h, finest)
+        if segments and h == last_h:
+            a = segments.pop()[0]                    # same spacing: extend the segment
+        segments.append((a, b, max(1, math.ceil((b - a) / h - 1e-9))))
+        last_h = h
+    return tuple(segments)
+
+
+def segment_times(segments: Segments) -> FloatArray:
+    """Sample instants of consecutive uniform segments (shared ends once)."""
+    parts = [np.linspace(a, b, n + 1) if i == 0 else np.linspace(a, b, n + 1)[1:]
+             for i, (a, b, n) in enumerate(segments)]
+    return np.concatenate(parts) if len(parts) > 1 else parts[0]
+
+
 # --------------------------------------------------------------------------- metrics
 def crossing_time(t: FloatArray, y: FloatArray, level: float, k: int,
                   exact: Callable[[float], float] | None = None) -> float:
@@ -541,11 +600,19 @@ def _peak(t: FloatArray, yn: FloatArray, slope: Callable[[float], float] | None,
             return exact(tp), tp
         # Parabola through the three samples around the largest one.
         y0, y1, y2 = yn[k - 1], yn[k], yn[k + 1]
+        d0, d1 = t[k] - t[k - 1], t[k + 1] - t[k]
         den = y0 - 2 * y1 + y2
-        if den < 0:
+        if den < 0 and d0 == d1:
             off = 0.5 * (y0 - y2) / den
-            step = t[k] - t[k - 1]
-            return float(y1 - 0.25 * (y0 - y2) * off), float(t[k] + off * step)
+            return float(y1 - 0.25 * (y0 - y2) * off), float(t[k] + off * d0)
+        if d0 != d1:
+            # Uneven spacing (a segment boundary): the vertex of the Lagrange parabola.
+            s0, s1 = (y1 - y0) / d0, (y2 - y1) / d1
+            curv = (s1 - s0) / (d0 + d1)
+            if curv < 0:
+                tv = 0.5 * (t[k - 1] + t[k]) - 0.5 * s0 / curv
+                yv = y1 + (tv - t[k]) * (s0 + curv * (tv - t[k - 1]))
+                return float(yv), float(tv)
     return float(yn[k]), float(t[k])
 
 
@@ -649,7 +716,7 @@ def step_response(loop: Loop, band: float) -> StepResult:
         if loop.has_delay:
             t, y, e = _delay_run(loop, horizon, poles, amp, final, band)
         else:
-            t, y, e = rational.on_grid(horizon, grid_steps(t_ref, horizon, final, band))
+            t, y, e = rational.on_segments(grid_segments(t_ref, horizon, final, band))
         if _settled(t, y, final, band):
             break
         horizon *= 2.0
