@@ -112,13 +112,28 @@ class Zpk:
     def constant(cls, k: float, label: str = "") -> Zpk:
         return cls(np.empty(0), np.empty(0), k, label)
 
+    @classmethod
+    def _checked(cls, zeros: ComplexArray, poles: ComplexArray, gain: float,
+                 label: str = "") -> Zpk:
+        """A Zpk from roots that already passed the constructor's checks (sorted here).
+
+        Products and rescalings of valid Zpk objects are valid: the snapping and the
+        conjugate check would change nothing, and the analysis forms many of them.
+        """
+        obj = object.__new__(cls)
+        object.__setattr__(obj, "zeros", np.sort_complex(zeros))
+        object.__setattr__(obj, "poles", np.sort_complex(poles))
+        object.__setattr__(obj, "gain", float(gain))
+        object.__setattr__(obj, "label", label)
+        return obj
+
     # ------------------------------------------------------------------ algebra
     def __mul__(self, other: Zpk) -> Zpk:
-        return Zpk(np.concatenate([self.zeros, other.zeros]),
-                   np.concatenate([self.poles, other.poles]), self.gain * other.gain)
+        return Zpk._checked(np.concatenate([self.zeros, other.zeros]),
+                            np.concatenate([self.poles, other.poles]), self.gain * other.gain)
 
     def scaled(self, k: float) -> Zpk:
-        return Zpk(self.zeros, self.poles, self.gain * k, self.label)
+        return Zpk._checked(self.zeros, self.poles, self.gain * k, self.label)
 
     # ------------------------------------------------------------------ properties
     @property
