@@ -290,7 +290,7 @@ def bench_batch(count: int) -> None:
         if rc not in (0, 1) or written != count:
             raise RuntimeError(f"batch exited {rc} with {written} of {count} reviews")
         _line("batch", f"{count} designs, 2 workers, JSON", f"{count / dt:.1f} /s",
-              "target ≥ 50 designs/s")
+              f"target ≥ 50 designs/s; load average now {os.getloadavg()[0]:.2f}")
 
 
 def main() -> int:
@@ -304,7 +304,9 @@ def main() -> int:
 
     print(f"loopwarden benchmark: Python {sys.version.split()[0]}, numpy {numpy.__version__}, "
           f"scipy {scipy.__version__}, {os.cpu_count()} CPUs, "
-          f"OPENBLAS_NUM_THREADS={os.environ.get('OPENBLAS_NUM_THREADS')}", flush=True)
+          f"OPENBLAS_NUM_THREADS={os.environ.get('OPENBLAS_NUM_THREADS')}, "
+          f"load average {os.getloadavg()[0]:.2f} (other processes share these cores)",
+          flush=True)
     parts = {
         "startup": lambda: bench_startup(repeat),
         "reviews": lambda: bench_reviews(1 if args.quick else 3),
