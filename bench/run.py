@@ -237,6 +237,46 @@ def bench_reviews(repeat: int) -> None:
                       note)
             except Exception as exc:  # noqa: BLE001 - one design must not hide the others
                 _line("review", path.name, "failed", f"{type(exc).__name__}: {exc}")
+        try:
+            bench_review_parts(ROOT / "sample_designs" / "conveyor_axis.toml", key, env)
+        except Exception as exc:  # noqa: BLE001 - the breakdown is extra information
+            _line("  part", "review breakdown", "failed", f"{type(exc).__name__}: {exc}")
+
+
+_BREAKDOWN = """\
+import sys, time
+t0 = time.perf_counter()
+from loopwarden.design.loader import load_design
+from loopwarden.review_run import run_review
+t1 = time.perf_counter()
+review = run_review(load_design(sys.argv[1]), today="2026-01-01")
+t2 = time.perf_counter()
+from loopwarden.commands.review import _embedded
+from loopwarden.report import renderer
+from loopwarden.report.pdf import render_pdf
+t3 = time.perf_counter()
+evidence = renderer("json").render(review)
+pdf = render_pdf(review, embedded=_embedded(review, evidence))
+t4 = time.perf_counter()
+from loopwarden.signing.sign import sign_pdf
+sign_pdf(pdf, sys.argv[2], b"bench")
+t5 = time.perf_counter()
+print("PARTS", t1 - t0, t2 - t1, t3 - t2, t4 - t3, t5 - t4)
+"""
+
+
+def bench_review_parts(design: Path, key: Path, env: dict[str, str]) -> None:
+    """Where a signed review's time goes, for one design, in a fresh process."""
+    proc = subprocess.run([sys.executable, "-c", _BREAKDOWN, str(design), str(key)],
+                          capture_output=True, text=True, env=env, check=False)
+    parts = next((ln.split()[1:] for ln in proc.stdout.splitlines()
+                  if ln.startswith("PARTS")), None)
+    if parts is None:
+        raise RuntimeError(proc.stderr.strip()[-300:])
+    names = ("import loader, analysis", "analysis and rules", "import reportlab, mpl",
+             "JSON, PDF and figures", "sign (incl. pyHanko import)")
+    for name, sec in zip(names, parts, strict=True):
+        _line("  part", f"{design.stem}: {name}", f"{float(sec):.3f} s")
 
 
 def bench_ratio(repeat: int) -> None:
