@@ -443,3 +443,20 @@ def _review_with(path: Path, folder: Path, rules: str) -> tuple[int, dict]:
     out = folder / "r.json"
     rc = main(["review", str(path), "--quiet", "--rules", rules, "--json", str(out)])
     return rc, json.loads(out.read_text(encoding="utf-8"))
+
+
+def test_no_phase_crossover_and_negligible_gain_bounds_the_margin(tmp_path):
+    # L = (s + 1)/s · 5/((s + 1)(s + 5)) = 5/(s(s + 5)) never reaches −180° [derived]; a
+    # sweep to 2000 rad/s ends where |L| = 1.25e−6 (−118 dB). Under the stated assumptions a
+    # phase crossover beyond would leave at least that much margin: GM is reported as that
+    # bound ("at least"), not as an error and not as infinity.
+    plant = zpk([], [-1.0, -5.0], 5.0)
+    write_sweep(tmp_path, plant, lo=0.01, hi=2000.0)
+    path = frd_design(tmp_path, PI.format(kp=1.0, ti=1.0))
+    a = analysed(path)
+    l_max = 5.0 / (2000.0 * math.hypot(2000.0, 5.0))       # |L(j2000)| [derived]
+    assert "gain_margin" in a.coverage.bounded and not a.coverage.uncovered
+    assert a.margins.gain_margin_db == pytest.approx(-20 * math.log10(l_max), rel=1e-3)
+    rc, doc = _review(path, tmp_path / "r.json")
+    f = next(f for f in doc["findings"] if f["rule"] == "margin.gain")
+    assert f["status"] == "pass" and "at least" in f["message"]

@@ -263,6 +263,9 @@ class FrequencyCoverage:
     loop_gain_at_max: float                        # |L| at the highest
     assumptions: str
     uncovered: Mapping[str, str] = field(default_factory=lambda: MappingProxyType({}))
+    # Figures set by a bound that holds outside the range, not by a measured crossing or
+    # peak (check names): their values are conservative ("at least" / "at most").
+    bounded: tuple[str, ...] = ()
 
 
 # --------------------------------------------------------------------------- aggregate
