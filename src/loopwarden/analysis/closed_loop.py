@@ -54,6 +54,24 @@ def _realise_block(blk: Zpk) -> tuple[Matrix, Matrix, Matrix, Matrix]:
     """
     if not blk.is_proper:
         raise AnalysisError("an improper block cannot be realised in state space")
+    # The plant, the sensor and most stages are the same objects in a variant's loop and
+    # in the integral alternative's loops: realise each once.
+    try:
+        return _BLOCKS[blk]
+    except KeyError:
+        pass
+    out = _realise_sections(blk)
+    for arr in out:
+        arr.setflags(write=False)
+    _BLOCKS[blk] = out
+    return out
+
+
+_BLOCKS: weakref.WeakKeyDictionary[Zpk, tuple[Matrix, Matrix, Matrix, Matrix]] = (
+    weakref.WeakKeyDictionary())
+
+
+def _realise_sections(blk: Zpk) -> tuple[Matrix, Matrix, Matrix, Matrix]:
     A = np.zeros((0, 0))
     B = np.zeros((0, 1))
     C = np.zeros((1, 0))
