@@ -21,10 +21,12 @@ import math
 from collections.abc import Sequence
 
 import numpy as np
+from numpy.typing import NDArray
 from scipy import optimize
 
 from ..design.model import Stage
 from ..lti import FloatArray, Loop, Zpk
+from .frequency_grid import response
 from .results import Boost, Margins, StageCrossoverCost
 
 __all__ = ["BOOST_STAGE_TYPES", "find_boosts", "improvement", "is_boost"]
@@ -69,8 +71,14 @@ def _without(loop: Loop, stages: Sequence[Stage], stage_index: int) -> Loop:
     return loop.with_controller(models)
 
 
+def _open_loop(loop: Loop, w: FloatArray) -> NDArray[np.complex128]:
+    """``L(jω)`` with the delay, evaluated over all roots at once."""
+    val = response(loop.rational, w)
+    return val * np.exp(-1j * w * loop.delay_s) if loop.delay_s else val
+
+
 def _factor(loop: Loop, without: Loop, w: FloatArray) -> FloatArray:
-    return np.abs(1.0 + loop.open_loop(w)) / np.abs(1.0 + without.open_loop(w))
+    return np.abs(1.0 + _open_loop(loop, w)) / np.abs(1.0 + _open_loop(without, w))
 
 
 def improvement(loop: Loop, stages: Sequence[Stage], stage_index: int,

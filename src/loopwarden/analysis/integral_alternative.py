@@ -325,14 +325,15 @@ def integral_alternatives(loop: Loop, stages: Sequence[Stage], boosts: Sequence[
         base = integral_loop(loop, stages, boost.stage)
         k, met = _choose_gain(base, target)
         tuned = base.scaled(k)
+        w_tuned = loop_grid(tuned)              # one analysis grid for margins and peaks
         step = step_response(tuned, settling_band)
         pairs = () if tuned.has_delay else slow_tail(tuned, step, settling_band).pairs
         out.append(IntegralAlternative(
             stage=boost.stage,
             gain_factor=k,
             closed_loop_stable=closed_loop_stability(tuned).closed_loop_stable,
-            margins=compute_margins(tuned),
-            sensitivity=compute_sensitivity(tuned),
+            margins=compute_margins(tuned, w_tuned),
+            sensitivity=compute_sensitivity(tuned, w_tuned),
             tracking=compute_tracking(tuned),
             step=step.metrics,
             slow_pairs=pairs,
