@@ -96,17 +96,20 @@ def _golden_max(fn: Callable[[FloatArray], FloatArray], a: FloatArray,
         if not active.any():
             break
         left = fc >= fd                      # the maximum lies in [a, d]
-        b = np.where(active & left, d, b)
-        a = np.where(active & ~left, c, a)
-        new_c = np.where(left, a + g * (b - a), d)
-        new_d = np.where(left, c, b - g * (b - a))
-        probe = np.where(left, new_c, new_d)
-        fp = np.where(active, fn(probe), -np.inf)
+        go_left, go_right = active & left, active & ~left
+        b = np.where(go_left, d, b)
+        a = np.where(go_right, c, a)
+        span = g * (b - a)
+        probe = np.where(left, a + span, b - span)
+        fp = fn(probe)
+        fp[~active] = -np.inf
+        # Left: the old c becomes d, the probe the new c; right: d becomes c, probe d.
+        c, d = np.where(go_left, probe, np.where(go_right, d, c)), \
+            np.where(go_left, c, np.where(go_right, probe, d))
         fc, fd = np.where(left, fp, fd), np.where(left, fc, fp)
-        c, d = np.where(active, new_c, c), np.where(active, new_d, d)
         better = fp > best_f
-        best_u = np.where(better, probe, best_u)
-        best_f = np.where(better, fp, best_f)
+        best_u[better] = probe[better]
+        best_f[better] = fp[better]
     return best_u, best_f
 
 
@@ -140,14 +143,14 @@ def _peaks(fns: Sequence[Callable[[ComplexArray], FloatArray]], l_grid: ComplexA
     refined_f = np.full(a.size, -np.inf)
     if live.any():
         own = owner[live]
+        groups = [(fn, np.flatnonzero(own == k)) for k, fn in enumerate(live_fns)]
+        groups = [(fn, sel) for fn, sel in groups if sel.size]
 
         def many(x: FloatArray) -> FloatArray:
             lv = l_of_w(np.exp(x))
             out = np.empty(x.size)
-            for k, fn in enumerate(live_fns):
-                sel = own == k
-                if sel.any():
-                    out[sel] = fn(lv[sel])
+            for fn, sel in groups:
+                out[sel] = fn(lv[sel])
             return out
 
         refined_u[live], refined_f[live] = _golden_max(many, a[live], b[live])
