@@ -32,7 +32,6 @@ from pathlib import Path
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy.interpolate import CubicSpline
 
 from ..errors import DesignError
 from ..lti import ComplexArray, FloatArray
@@ -67,6 +66,9 @@ class MeasuredPlant:
 
     def __post_init__(self) -> None:
         u = np.log(self.frequency_rad_s)
+        # Imported here: scipy.interpolate costs ~0.25 s and most designs have no sweep.
+        from scipy.interpolate import CubicSpline
+
         object.__setattr__(self, "_splines", (CubicSpline(u, self.log_magnitude),
                                               CubicSpline(u, self.phase_rad)))
 
