@@ -29,8 +29,16 @@ from ..lti_discrete import (
     unit_circle_log_magnitude,
     unit_circle_phase_rad,
 )
-from .margins import bracketed_roots, wrap_phase_margin_deg
-from .results import GainCrossing, Margins, PhaseCrossing, Sensitivity
+from .margins import (
+    dedupe,
+    gain_crossing_list,
+    gain_crossings_on,
+    margins_from_crossings,
+    phase_crossing,
+    phase_crossings_on,
+    valid_steps,
+)
+from .results import Margins, Sensitivity
 from .sensitivity import disk_ranges
 
 __all__ = ["closed_loop_bandwidth", "compute_discrete_margins",
@@ -44,7 +52,6 @@ NEAR_CIRCLE = 0.3
 ON_CIRCLE = 1e-9
 #: The interior search stops this far (relative) below π; π itself is judged exactly.
 _NYQUIST_GAP = 1e-7
-_SAME_RTOL = 1e-9
 
 
 #: Grid maxima refined: the largest few, and any other within 0.1 % of the best.
@@ -144,51 +151,18 @@ def unit_circle_grid(zpk: Zpk, points_per_decade: int = POINTS_PER_DECADE,
     return phi
 
 
-def _valid_steps(phi: FloatArray, axis: FloatArray) -> FloatArray:
-    seg = np.searchsorted(axis, phi)
-    return seg[:-1] == seg[1:]
-
-
-def _dedupe(x: FloatArray) -> FloatArray:
-    x = np.sort(x)
-    if x.size < 2:
-        return x
-    return x[np.concatenate([[True], np.diff(x) > _SAME_RTOL * x[1:]])]
-
-
 def _interior(phi: FloatArray) -> FloatArray:
     return phi[phi < math.pi * (1.0 - _NYQUIST_GAP)]
 
 
 def _gain_crossings(rat: Zpk, phi: FloatArray) -> FloatArray:
-    f = unit_circle_log_magnitude(rat, phi)
-    above = f > 0
-    steps = (_valid_steps(phi, _on_circle_angles(rat)) & (above[:-1] != above[1:])
-             & np.isfinite(f[:-1]) & np.isfinite(f[1:]))
-    idx = np.flatnonzero(steps)
-
-    def fn(u: FloatArray, _: FloatArray) -> FloatArray:
-        return unit_circle_log_magnitude(rat, np.exp(u))
-
-    return _dedupe(np.exp(bracketed_roots(fn, np.log(phi[idx]), np.log(phi[idx + 1]))))
+    return gain_crossings_on(lambda p: unit_circle_log_magnitude(rat, p), phi,
+                             valid_steps(phi, _on_circle_angles(rat)))
 
 
 def _phase_crossings(rat: Zpk, phi: FloatArray) -> FloatArray:
-    g = (unit_circle_phase_rad(rat, phi) + math.pi) / (2.0 * math.pi)
-    lo = np.minimum(g[:-1], g[1:])
-    hi = np.maximum(g[:-1], g[1:])
-    first = np.floor(lo) + 1.0
-    count = np.floor(hi) - first + 1.0
-    count[~_valid_steps(phi, _on_circle_angles(rat))] = 0.0
-    count = np.maximum(count, 0.0).astype(int)
-    step = np.repeat(np.arange(count.size), count)
-    offsets = np.arange(step.size) - np.repeat(np.cumsum(count) - count, count)
-    targets = first[step] + offsets
-
-    def fn(u: FloatArray, i: FloatArray) -> FloatArray:
-        return (unit_circle_phase_rad(rat, np.exp(u)) + math.pi) / (2.0 * math.pi) - targets[i]
-
-    return _dedupe(np.exp(bracketed_roots(fn, np.log(phi[step]), np.log(phi[step + 1]))))
+    return dedupe(phase_crossings_on(lambda p: unit_circle_phase_rad(rat, p), phi,
+                                     valid_steps(phi, _on_circle_angles(rat))))
 
 
 def _real_value(rat: Zpk, z: float) -> float | None:
@@ -196,11 +170,6 @@ def _real_value(rat: Zpk, z: float) -> float | None:
     if np.any(np.abs(rat.poles - z) <= 1e-12) or np.any(np.abs(rat.zeros - z) <= 1e-12):
         return None
     return float(np.real(rat(np.array([z], dtype=complex))[0]))
-
-
-def _phase_crossing(w: float, magnitude: float) -> PhaseCrossing:
-    gm_db = -20.0 * math.log10(magnitude) if magnitude > 0 else math.inf
-    return PhaseCrossing(frequency_rad_s=w, magnitude=magnitude, gain_margin_db=gm_db)
 
 
 def compute_discrete_margins(loop: DiscreteLoop) -> Margins:
@@ -228,40 +197,18 @@ def compute_discrete_margins(loop: DiscreteLoop) -> Margins:
     if l_pi is not None and abs(math.log(abs(l_pi))) <= 1e-9:
         phi_gc.append(math.pi)                       # |L| = 1 exactly at the Nyquist frequency
     phi_gc_arr = np.asarray(phi_gc, dtype=float)
-    pm = wrap_phase_margin_deg(np.degrees(unit_circle_phase_rad(rat, phi_gc_arr)))
-    w_gc = phi_gc_arr / T
-    dm = np.radians(np.mod(pm, 360.0)) / w_gc if w_gc.size else np.zeros(0)
-    gains = tuple(GainCrossing(frequency_rad_s=float(w), phase_margin_deg=float(p),
-                               delay_margin_s=float(d))
-                  for w, p, d in zip(w_gc, pm, dm, strict=True))
+    gains = gain_crossing_list(phi_gc_arr / T, unit_circle_phase_rad(rat, phi_gc_arr))
 
     phi_pc = _phase_crossings(rat, phi)
     mags = np.exp(unit_circle_log_magnitude(rat, phi_pc))
-    phases = [_phase_crossing(float(p / T), float(m)) for p, m in zip(phi_pc, mags, strict=True)]
+    phases = [phase_crossing(float(p / T), float(m)) for p, m in zip(phi_pc, mags, strict=True)]
     l_one = _real_value(rat, 1.0)
     if l_one is not None and l_one < 0:
-        phases.append(_phase_crossing(0.0, abs(l_one)))
+        phases.append(phase_crossing(0.0, abs(l_one)))
     if l_pi is not None and l_pi < 0:
-        phases.append(_phase_crossing(math.pi / T, abs(l_pi)))
+        phases.append(phase_crossing(math.pi / T, abs(l_pi)))
     phases.sort(key=lambda c: c.frequency_rad_s)
-
-    upper = [c for c in phases if c.magnitude <= 1.0]
-    lower = [c for c in phases if c.magnitude > 1.0]
-    gm = min(upper, key=lambda c: c.gain_margin_db) if upper else None
-    gm_low = max(lower, key=lambda c: c.gain_margin_db) if lower else None
-    worst = min(gains, key=lambda c: abs(c.phase_margin_deg)) if gains else None
-    dm_s = float(dm.min()) if dm.size else math.inf
-    return Margins(
-        gain_margin_db=gm.gain_margin_db if gm else math.inf,
-        gain_margin_lower_db=gm_low.gain_margin_db if gm_low else None,
-        phase_margin_deg=worst.phase_margin_deg if worst else math.inf,
-        gain_crossover_rad_s=worst.frequency_rad_s if worst else None,
-        phase_crossover_rad_s=gm.frequency_rad_s if gm else None,
-        delay_margin_s=dm_s,
-        gain_crossings=gains,
-        phase_crossings=tuple(phases),
-        delay_margin_samples=dm_s / T,
-    )
+    return margins_from_crossings(gains, phases, period_s=T)
 
 
 def _end_values(rat: Zpk, z: float) -> tuple[float, float, float]:

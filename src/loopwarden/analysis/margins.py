@@ -20,7 +20,7 @@ negative real there.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 
 import numpy as np
 
@@ -38,8 +38,10 @@ from .frequency_grid import (
 from .frequency_grid import phase as loop_phase
 from .results import GainCrossing, Margins, PhaseCrossing
 
-__all__ = ["bracketed_roots", "compute_margins", "dedupe", "gain_crossover_frequencies",
-           "phase_crossover_frequencies", "plot_grid", "valid_steps", "wrap_phase_margin_deg"]
+__all__ = ["bracketed_roots", "compute_margins", "dedupe", "gain_crossing_list",
+           "gain_crossings_on", "gain_crossover_frequencies", "margins_from_crossings",
+           "phase_crossing", "phase_crossings_on", "phase_crossover_frequencies", "plot_grid",
+           "valid_steps", "wrap_phase_margin_deg"]
 
 #: Tolerance of the crossing refinement in u = ln ω (so relative in ω).
 _XTOL = 1e-14
@@ -127,30 +129,45 @@ def gain_crossover_frequencies(loop: Loop, w: FloatArray | None = None) -> Float
         return np.zeros(0)
     if w is None:
         w = loop_grid(loop)
-    f = log_magnitude(rat, w)
+    return gain_crossings_on(lambda x: log_magnitude(rat, x), w,
+                             valid_steps(w, imaginary_axis_frequencies(rat)))
+
+
+def gain_crossings_on(log_mag: Callable[[FloatArray], FloatArray], w: FloatArray,
+                      valid: FloatArray) -> FloatArray:
+    """Roots of the continuous ``log_mag`` (``ln|L|``) inside the span of grid ``w``.
+
+    ``w`` is ascending and positive (rad/s, or rad for a sampled loop's ``φ = ωT``);
+    ``valid`` masks the grid steps that may hold a crossing (:func:`valid_steps`).  Steps
+    with a non-finite end are skipped.  Returns the roots ascending, deduplicated.
+    """
+    f = log_mag(w)
     above = f > 0
-    steps = (valid_steps(w, imaginary_axis_frequencies(rat)) & (above[:-1] != above[1:])
-             & np.isfinite(f[:-1]) & np.isfinite(f[1:]))
+    steps = valid & (above[:-1] != above[1:]) & np.isfinite(f[:-1]) & np.isfinite(f[1:])
     idx = np.flatnonzero(steps)
 
     def fn(u: FloatArray, _: FloatArray) -> FloatArray:
-        return log_magnitude(rat, np.exp(u))
+        return log_mag(np.exp(u))
 
     return dedupe(np.exp(bracketed_roots(fn, np.log(w[idx]), np.log(w[idx + 1]))))
 
 
-def _phase_crossings_on(rat: Zpk, delay_s: float, w: FloatArray) -> FloatArray:
-    """Phase crossings inside the span of grid ``w`` (rad/s)."""
-    def phase(x: FloatArray) -> FloatArray:
-        return loop_phase(rat, x) - x * delay_s
+def phase_crossings_on(phase: Callable[[FloatArray], FloatArray], w: FloatArray,
+                       valid: FloatArray | None = None) -> FloatArray:
+    """Every point where the continuous ``phase`` (rad) passes −π mod 2π within grid ``w``.
 
+    ``w`` is ascending and positive; ``valid`` (optional) masks the grid steps that may
+    hold a crossing.  A step in which the phase turns several times yields every
+    crossing.  Returned in grid-step order, not deduplicated.
+    """
     g = (phase(w) + math.pi) / (2.0 * math.pi)
     lo = np.minimum(g[:-1], g[1:])
     hi = np.maximum(g[:-1], g[1:])
     # Integers n with lo < n ≤ hi: each is one crossing of the phase through −π + 2πn.
     first = np.floor(lo) + 1.0
     count = np.floor(hi) - first + 1.0
-    count[~valid_steps(w, imaginary_axis_frequencies(rat))] = 0.0
+    if valid is not None:
+        count[~valid] = 0.0
     count = np.maximum(count, 0.0).astype(int)
     step = np.repeat(np.arange(count.size), count)
     offsets = np.arange(step.size) - np.repeat(np.cumsum(count) - count, count)
@@ -160,6 +177,12 @@ def _phase_crossings_on(rat: Zpk, delay_s: float, w: FloatArray) -> FloatArray:
         return (phase(np.exp(u)) + math.pi) / (2.0 * math.pi) - targets[i]
 
     return np.exp(bracketed_roots(fn, np.log(w[step]), np.log(w[step + 1])))
+
+
+def _phase_crossings_on(rat: Zpk, delay_s: float, w: FloatArray) -> FloatArray:
+    """Phase crossings inside the span of grid ``w`` (rad/s)."""
+    return phase_crossings_on(lambda x: loop_phase(rat, x) - x * delay_s, w,
+                              valid_steps(w, imaginary_axis_frequencies(rat)))
 
 
 def phase_crossover_frequencies(loop: Loop, w: FloatArray | None = None) -> FloatArray:
@@ -204,15 +227,62 @@ def _endpoint_crossings(loop: Loop) -> list[PhaseCrossing]:
     if rat.origin_poles == 0:
         c0 = rat.low_frequency_coefficient()
         if c0 < 0:
-            out.append(_phase_crossing(0.0, abs(c0)))
+            out.append(phase_crossing(0.0, abs(c0)))
     if rat.relative_degree == 0 and (loop.has_delay or rat.gain < 0):
-        out.append(_phase_crossing(math.inf, abs(rat.gain)))
+        out.append(phase_crossing(math.inf, abs(rat.gain)))
     return out
 
 
-def _phase_crossing(w: float, magnitude: float) -> PhaseCrossing:
+def phase_crossing(w: float, magnitude: float) -> PhaseCrossing:
+    """The crossing at ``w`` (rad/s) with ``|L| = magnitude``; GM ``inf`` where |L| = 0."""
     gm_db = -20.0 * math.log10(magnitude) if magnitude > 0 else math.inf
     return PhaseCrossing(frequency_rad_s=w, magnitude=magnitude, gain_margin_db=gm_db)
+
+
+def gain_crossing_list(w_gc: FloatArray, phase_rad: FloatArray) -> tuple[GainCrossing, ...]:
+    """A :class:`GainCrossing` per frequency ``w_gc`` (rad/s) with ``∠L = phase_rad`` there.
+
+    Phase margin ``180° + ∠L`` wrapped to (−180°, 180°]; delay margin
+    ``(PM mod 360°)[rad]/ω`` (s).
+    """
+    pm = wrap_phase_margin_deg(np.degrees(phase_rad))
+    dm = np.radians(np.mod(pm, 360.0)) / w_gc if w_gc.size else np.zeros(0)
+    return tuple(GainCrossing(frequency_rad_s=float(x), phase_margin_deg=float(p),
+                              delay_margin_s=float(d)) for x, p, d in zip(w_gc, pm, dm,
+                                                                          strict=True))
+
+
+def margins_from_crossings(gains: Sequence[GainCrossing], phases: Sequence[PhaseCrossing],
+                           *, listed_above: float | None = None,
+                           period_s: float | None = None) -> Margins:
+    """The loop's margins chosen from its crossings (conventions of :func:`compute_margins`).
+
+    ``phases`` in the order to list them.  ``listed_above``: list only the phase crossings
+    with ``|L|`` at least this factor times that of the crossing setting the upper margin
+    (the selection itself uses them all).  ``period_s``: a sampled loop's period, for
+    ``delay_margin_samples``.
+    """
+    upper = [c for c in phases if c.magnitude <= 1.0]
+    lower = [c for c in phases if c.magnitude > 1.0]
+    gm = min(upper, key=lambda c: c.gain_margin_db) if upper else None
+    gm_low = max(lower, key=lambda c: c.gain_margin_db) if lower else None
+    if listed_above is not None and gm is not None:
+        phases = [c for c in phases if c.magnitude >= listed_above * gm.magnitude]
+    # The wrapped margin is the smallest phase rotation, either way, that reaches −1 at that
+    # crossing; the loop's margin is the crossing where that rotation is smallest.
+    worst = min(gains, key=lambda c: abs(c.phase_margin_deg)) if gains else None
+    dm_s = min((c.delay_margin_s for c in gains), default=math.inf)
+    return Margins(
+        gain_margin_db=gm.gain_margin_db if gm else math.inf,
+        gain_margin_lower_db=gm_low.gain_margin_db if gm_low else None,
+        phase_margin_deg=worst.phase_margin_deg if worst else math.inf,
+        gain_crossover_rad_s=worst.frequency_rad_s if worst else None,
+        phase_crossover_rad_s=gm.frequency_rad_s if gm else None,
+        delay_margin_s=dm_s,
+        gain_crossings=tuple(gains),
+        phase_crossings=tuple(phases),
+        delay_margin_samples=dm_s / period_s if period_s is not None else None,
+    )
 
 
 def compute_margins(loop: Loop, w: FloatArray | None = None) -> Margins:
@@ -248,36 +318,13 @@ def compute_margins(loop: Loop, w: FloatArray | None = None) -> Margins:
     w_gc = gain_crossover_frequencies(loop, w)
     w_pc = phase_crossover_frequencies(loop, w)
 
-    pm = wrap_phase_margin_deg(np.degrees(loop_phase(rat, w_gc) - w_gc * loop.delay_s))
-    dm = np.radians(np.mod(pm, 360.0)) / w_gc if w_gc.size else np.zeros(0)
-    gains = tuple(GainCrossing(frequency_rad_s=float(x), phase_margin_deg=float(p),
-                               delay_margin_s=float(d)) for x, p, d in zip(w_gc, pm, dm,
-                                                                           strict=True))
+    gains = gain_crossing_list(w_gc, loop_phase(rat, w_gc) - w_gc * loop.delay_s)
     mags = np.exp(log_magnitude(rat, w_pc))
-    phases = [_phase_crossing(float(x), float(m)) for x, m in zip(w_pc, mags, strict=True)]
+    phases = [phase_crossing(float(x), float(m)) for x, m in zip(w_pc, mags, strict=True)]
     phases = sorted(phases + _endpoint_crossings(loop), key=lambda c: c.frequency_rad_s)
-
-    upper = [c for c in phases if c.magnitude <= 1.0]
-    lower = [c for c in phases if c.magnitude > 1.0]
-    gm = min(upper, key=lambda c: c.gain_margin_db) if upper else None
-    if loop.has_delay and gm is not None:
-        # A delay turns L for ever; list only crossings within 60 dB of the upper margin.
-        floor = NEGLIGIBLE_GAIN * gm.magnitude
-        phases = [c for c in phases if c.magnitude >= floor]
-    gm_low = max(lower, key=lambda c: c.gain_margin_db) if lower else None
-    # The wrapped margin is the smallest phase rotation, either way, that reaches −1 at that
-    # crossing; the loop's margin is the crossing where that rotation is smallest.
-    worst = min(gains, key=lambda c: abs(c.phase_margin_deg)) if gains else None
-    return Margins(
-        gain_margin_db=gm.gain_margin_db if gm else math.inf,
-        gain_margin_lower_db=gm_low.gain_margin_db if gm_low else None,
-        phase_margin_deg=worst.phase_margin_deg if worst else math.inf,
-        gain_crossover_rad_s=worst.frequency_rad_s if worst else None,
-        phase_crossover_rad_s=gm.frequency_rad_s if gm else None,
-        delay_margin_s=float(dm.min()) if dm.size else math.inf,
-        gain_crossings=gains,
-        phase_crossings=tuple(phases),
-    )
+    # A delay turns L for ever; list only crossings within 60 dB of the upper margin.
+    return margins_from_crossings(gains, phases,
+                                  listed_above=NEGLIGIBLE_GAIN if loop.has_delay else None)
 
 
 def plot_grid(loop: Loop) -> FloatArray:

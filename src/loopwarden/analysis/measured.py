@@ -36,14 +36,18 @@ from ..errors import AnalysisError
 from ..lti import ComplexArray, FloatArray, Zpk
 from .discrete_margins import refined_peak
 from .internal import internal_stability
-from .margins import bracketed_roots, wrap_phase_margin_deg
+from .margins import (
+    bracketed_roots,
+    gain_crossing_list,
+    margins_from_crossings,
+    phase_crossing,
+    phase_crossings_on,
+)
 from .results import (
     Curves,
     FrequencyCoverage,
-    GainCrossing,
     LoopAnalysis,
     Margins,
-    PhaseCrossing,
     Sensitivity,
     Stability,
     TimeSeries,
@@ -165,48 +169,14 @@ def _gain_crossings(loop: MeasuredLoop, w: FloatArray) -> FloatArray:
     return np.exp(bracketed_roots(fn, np.log(w[idx]), np.log(w[idx + 1])))
 
 
-def _phase_crossings(loop: MeasuredLoop, w: FloatArray) -> FloatArray:
-    g = (loop.phase_rad(w) + math.pi) / (2.0 * math.pi)
-    lo, hi = np.minimum(g[:-1], g[1:]), np.maximum(g[:-1], g[1:])
-    first = np.floor(lo) + 1.0
-    count = np.maximum(np.floor(hi) - first + 1.0, 0.0).astype(int)
-    step = np.repeat(np.arange(count.size), count)
-    targets = first[step] + (np.arange(step.size)
-                             - np.repeat(np.cumsum(count) - count, count))
-
-    def fn(u: FloatArray, i: FloatArray) -> FloatArray:
-        return (loop.phase_rad(np.exp(u)) + math.pi) / (2.0 * math.pi) - targets[i]
-
-    return np.exp(bracketed_roots(fn, np.log(w[step]), np.log(w[step + 1])))
-
-
 def measured_margins(loop: MeasuredLoop, w: FloatArray) -> Margins:
     """Margins from the crossings inside the measured range (see the module notes)."""
     w_gc = _gain_crossings(loop, w)
-    pm = wrap_phase_margin_deg(np.degrees(loop.phase_rad(w_gc)))
-    dm = np.radians(np.mod(pm, 360.0)) / w_gc if w_gc.size else np.zeros(0)
-    gains = tuple(GainCrossing(frequency_rad_s=float(x), phase_margin_deg=float(p),
-                               delay_margin_s=float(d))
-                  for x, p, d in zip(w_gc, pm, dm, strict=True))
-    w_pc = _phase_crossings(loop, w)
+    gains = gain_crossing_list(w_gc, loop.phase_rad(w_gc))
+    w_pc = phase_crossings_on(loop.phase_rad, w)
     mags = np.exp(loop.log_magnitude(w_pc))
-    phases = tuple(PhaseCrossing(frequency_rad_s=float(x), magnitude=float(m),
-                                 gain_margin_db=-20.0 * math.log10(m))
-                   for x, m in zip(w_pc, mags, strict=True))
-    upper = [c for c in phases if c.magnitude <= 1.0]
-    lower = [c for c in phases if c.magnitude > 1.0]
-    gm = min(upper, key=lambda c: c.gain_margin_db) if upper else None
-    gm_low = max(lower, key=lambda c: c.gain_margin_db) if lower else None
-    worst = min(gains, key=lambda c: abs(c.phase_margin_deg)) if gains else None
-    return Margins(
-        gain_margin_db=gm.gain_margin_db if gm else math.inf,
-        gain_margin_lower_db=gm_low.gain_margin_db if gm_low else None,
-        phase_margin_deg=worst.phase_margin_deg if worst else math.inf,
-        gain_crossover_rad_s=worst.frequency_rad_s if worst else None,
-        phase_crossover_rad_s=gm.frequency_rad_s if gm else None,
-        delay_margin_s=float(dm.min()) if dm.size else math.inf,
-        gain_crossings=gains, phase_crossings=phases,
-    )
+    phases = [phase_crossing(float(x), float(m)) for x, m in zip(w_pc, mags, strict=True)]
+    return margins_from_crossings(gains, phases)
 
 
 # --------------------------------------------------------------------------- peaks
