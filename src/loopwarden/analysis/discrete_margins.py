@@ -39,7 +39,7 @@ from .margins import (
     valid_steps,
 )
 from .results import Margins, Sensitivity
-from .sensitivity import disk_ranges
+from .sensitivity import PEAK_FUNCTIONS, disk_ranges, peak_candidates, peak_values_at
 
 __all__ = ["closed_loop_bandwidth", "compute_discrete_margins",
            "compute_discrete_sensitivity", "refined_peak", "unit_circle_grid"]
@@ -52,11 +52,6 @@ NEAR_CIRCLE = 0.3
 ON_CIRCLE = 1e-9
 #: The interior search stops this far (relative) below π; π itself is judged exactly.
 _NYQUIST_GAP = 1e-7
-
-
-#: Grid maxima refined: the largest few, and any other within 0.1 % of the best.
-_CANDIDATES = 6
-_MAX_CANDIDATES = 12
 
 
 def refined_peak(fn: Callable[[ComplexArray], FloatArray], w: FloatArray,
@@ -79,16 +74,12 @@ def refined_peak(fn: Callable[[ComplexArray], FloatArray], w: FloatArray,
         i = int(np.flatnonzero(~np.isfinite(vals))[0])
         return math.inf, float(w[i])
     floor = best_val * (1.0 + 1e-12) if best_val > -math.inf else -math.inf
-    peaks = np.flatnonzero(np.r_[True, vals[1:] >= vals[:-1]] & np.r_[vals[:-1] >= vals[1:], True])
-    ranked = peaks[np.argsort(vals[peaks])[::-1]]
-    close = vals[ranked] >= 0.999 * vals[ranked[0]] if ranked.size else ranked.astype(bool)
-    keep = np.arange(ranked.size) < _CANDIDATES
     u = np.log(w)
 
     def neg(x: float) -> float:
         return -float(fn(l_of_w(np.array([math.exp(x)])))[0])
 
-    for i in ranked[keep | close][:_MAX_CANDIDATES]:
+    for i in peak_candidates(vals):
         if vals[i] > max(best_val, floor):
             best_val, best_w = float(vals[i]), float(w[i])
         a, b = u[max(i - 1, 0)], u[min(i + 1, u.size - 1)]
@@ -218,10 +209,7 @@ def _end_values(rat: Zpk, z: float) -> tuple[float, float, float]:
     value = _real_value(rat, z)
     if value is None:
         return 1.0, 0.0, 0.5
-    den = 1.0 + value
-    if den == 0:
-        return math.inf, math.inf, math.inf
-    return 1.0 / abs(den), abs(value / den), abs((1.0 - value) / (2.0 * den))
+    return peak_values_at(value)
 
 
 def compute_discrete_sensitivity(loop: DiscreteLoop) -> Sensitivity:
@@ -241,18 +229,7 @@ def compute_discrete_sensitivity(loop: DiscreteLoop) -> Sensitivity:
     zero, high = _end_values(rat, 1.0), _end_values(rat, -1.0)
     nyquist = math.pi / T
 
-    def s_mag(lv: ComplexArray) -> FloatArray:
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.abs(1.0 / (1.0 + lv))
-
-    def t_mag(lv: ComplexArray) -> FloatArray:
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.abs(lv / (1.0 + lv))
-
-    def d_mag(lv: ComplexArray) -> FloatArray:
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.abs((1.0 - lv) / (2.0 * (1.0 + lv)))
-
+    s_mag, t_mag, d_mag = PEAK_FUNCTIONS
     ms, w_ms = refined_peak(s_mag, w, l_of_w, ((0.0, zero[0]), (nyquist, high[0])))
     mt, w_mt = refined_peak(t_mag, w, l_of_w, ((0.0, zero[1]), (nyquist, high[1])))
     d_max, _ = refined_peak(d_mag, w, l_of_w, ((0.0, zero[2]), (nyquist, high[2])))

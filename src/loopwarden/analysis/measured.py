@@ -53,7 +53,7 @@ from .results import (
     TimeSeries,
     Tracking,
 )
-from .sensitivity import disk_ranges
+from .sensitivity import PEAK_FUNCTIONS, disk_ranges
 from .stability import open_loop_pole_counts
 
 __all__ = ["ASSUMPTIONS", "MODEL_ONLY", "MeasuredLoop", "analyze_measured",
@@ -204,12 +204,10 @@ def measured_sensitivity(loop: MeasuredLoop, w: FloatArray, low_side_below_one: 
     b = float(np.abs(lv[0]))
     high = _edge_bounds(a, True)
     low = _edge_bounds(b, low_side_below_one)
-    fns = (lambda v: np.abs(1.0 / (1.0 + v)), lambda v: np.abs(v / (1.0 + v)),
-           lambda v: np.abs((1.0 - v) / (2.0 * (1.0 + v))))
     out: list[tuple[float, float]] = []
     bounded: list[str] = []
-    for i, (fn, name) in enumerate(zip(fns, ("peak_sensitivity", "peak_complementary",
-                                              "disk_margin"), strict=True)):
+    names = ("peak_sensitivity", "peak_complementary", "disk_margin")
+    for i, (fn, name) in enumerate(zip(PEAK_FUNCTIONS, names, strict=True)):
         peak, at = refined_peak(fn, w, l_of_w)
         edge = max(low[i], high[i])
         if edge > peak:

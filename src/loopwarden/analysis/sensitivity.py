@@ -24,7 +24,8 @@ from ..lti import ComplexArray, FloatArray, Loop
 from .frequency_grid import loop_grid, response
 from .results import Sensitivity
 
-__all__ = ["compute_sensitivity", "disk_ranges"]
+__all__ = ["PEAK_FUNCTIONS", "compute_sensitivity", "disk_ranges", "peak_candidates",
+           "peak_values_at"]
 
 #: How many of the largest grid maxima are refined at least, and at most.
 _CANDIDATES = 6
@@ -38,13 +39,7 @@ _MAX_GOLDEN = 100
 def _limits(loop: Loop) -> tuple[tuple[float, float, float], tuple[float, float, float]]:
     """``(|S|, |T|, |S − 1/2|)`` at ω = 0 and their suprema as ω → ∞."""
     rat = loop.rational
-
-    def at(value: float) -> tuple[float, float, float]:
-        den = 1.0 + value
-        if den == 0:
-            return math.inf, math.inf, math.inf
-        return 1.0 / abs(den), abs(value / den), abs((1.0 - value) / (2.0 * den))
-
+    at = peak_values_at
     infinite = (0.0, 1.0, 0.5)      # |L| → ∞
     vanishing = (1.0, 0.0, 0.5)     # L → 0
     m = rat.origin_poles
@@ -64,7 +59,34 @@ def _limits(loop: Loop) -> tuple[tuple[float, float, float], tuple[float, float,
     return zero, high
 
 
-def _candidates(vals: FloatArray) -> NDArray[np.int_]:
+def _s_mag(lv: ComplexArray) -> FloatArray:
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.abs(1.0 / (1.0 + lv))
+
+
+def _t_mag(lv: ComplexArray) -> FloatArray:
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.abs(lv / (1.0 + lv))
+
+
+def _d_mag(lv: ComplexArray) -> FloatArray:
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.abs((1.0 - lv) / (2.0 * (1.0 + lv)))
+
+
+#: ``|S|``, ``|T|`` and ``|S − 1/2|`` as functions of values of L (inf where 1 + L = 0).
+PEAK_FUNCTIONS: tuple[Callable[[ComplexArray], FloatArray], ...] = (_s_mag, _t_mag, _d_mag)
+
+
+def peak_values_at(value: float) -> tuple[float, float, float]:
+    """``(|S|, |T|, |S − 1/2|)`` where L takes the finite real ``value`` (inf at −1)."""
+    den = 1.0 + value
+    if den == 0:
+        return math.inf, math.inf, math.inf
+    return 1.0 / abs(den), abs(value / den), abs((1.0 - value) / (2.0 * den))
+
+
+def peak_candidates(vals: FloatArray) -> NDArray[np.int_]:
     """Grid maxima to refine: the largest few and any other within 0.1 % of the best."""
     interior = np.flatnonzero(np.r_[True, vals[1:] >= vals[:-1]]
                               & np.r_[vals[:-1] >= vals[1:], True])
@@ -128,7 +150,7 @@ def _peaks(fns: Sequence[Callable[[ComplexArray], FloatArray]], l_grid: ComplexA
         if not np.all(np.isfinite(vals)):
             plans.append((vals, None))
             continue
-        idx = _candidates(vals)
+        idx = peak_candidates(vals)
         lo = np.maximum(idx - 1, 0)
         hi = np.minimum(idx + 1, u.size - 1)
         plans.append((vals, (idx, lo, hi)))
@@ -213,20 +235,8 @@ def compute_sensitivity(loop: Loop, w: FloatArray | None = None) -> Sensitivity:
     l_grid = l_of_w(w)
     zero, high = _limits(loop)
 
-    def s_mag(lv: ComplexArray) -> FloatArray:
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.abs(1.0 / (1.0 + lv))
-
-    def t_mag(lv: ComplexArray) -> FloatArray:
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.abs(lv / (1.0 + lv))
-
-    def d_mag(lv: ComplexArray) -> FloatArray:
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.abs((1.0 - lv) / (2.0 * (1.0 + lv)))
-
     (ms, w_ms), (mt, w_mt), (d_max, _) = _peaks(
-        (s_mag, t_mag, d_mag), l_grid, w, l_of_w,
+        PEAK_FUNCTIONS, l_grid, w, l_of_w,
         [(zero[0], high[0]), (zero[1], high[1]), (zero[2], high[2])])
     alpha = 1.0 / d_max if d_max > 0 else math.inf
     low, high_gain, phase = disk_ranges(alpha)
