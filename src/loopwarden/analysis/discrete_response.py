@@ -31,9 +31,9 @@ from .results import (
     Stability,
     StepMetrics,
     StepResult,
-    TimeSeries,
     Tracking,
 )
+from .time_response import output_of_powers, plot_series
 from .tracking import error_constant
 
 __all__ = ["DiscreteClosedLoop", "discrete_closed_loop", "discrete_internal_stability",
@@ -46,10 +46,6 @@ CIRCLE_TOL = 1e-9
 #: A zero within this relative distance of a pole cancels it (as in continuous time).
 CANCEL_RTOL = 1e-3
 HORIZON_TAIL_FRACTION = 0.01
-#: Samples kept in the series handed to the plots.
-PLOT_POINTS = 4000
-#: States advanced together: one product with A^block moves a whole block of samples.
-_BLOCK = 256
 MAX_EXTENSIONS = 6
 MAX_SAMPLES = 2_000_000
 MIN_SAMPLES = 200
@@ -214,31 +210,6 @@ def _inverse(x: float) -> float:
 
 
 # --------------------------------------------------------------------------- step
-def _output_of_powers(a: Matrix, v: Matrix, c: Matrix, count: int) -> Matrix:
-    """``c A^k v`` for k = 0 … count−1, shape (count, columns of v).
-
-    The first block of states is built one product at a time, then every further block
-    by one product with ``A^block``: a few hundred matrix products for 10⁵ samples.
-    """
-    n, m = v.shape
-    block = min(_BLOCK, count)
-    first = np.empty((block, n, m))
-    x = v.copy()
-    for k in range(block):
-        first[k] = x
-        x = a @ x
-    states = first.transpose(1, 0, 2).reshape(n, block * m)
-    jump = np.linalg.matrix_power(a, block)
-    out = np.empty((count, m))
-    done = 0
-    while done < count:
-        take = min(block, count - done)
-        out[done:done + take] = (c @ states).reshape(block, m)[:take]
-        done += take
-        states = jump @ states
-    return out
-
-
 def _sampled_metrics(t: NDArray[np.float64], y: NDArray[np.float64], e: NDArray[np.float64],
                      final: float, band: float) -> StepMetrics:
     """Metrics read at the sampling instants (no interpolation between them)."""
@@ -262,14 +233,6 @@ def _sampled_metrics(t: NDArray[np.float64], y: NDArray[np.float64], e: NDArray[
         settling_time_s=settling, settling_band=band, horizon_s=float(t[-1]),
         ramp_error_final=float(e[-1]), exact_delay=True,
     )
-
-
-def _series(t: NDArray[np.float64], v: NDArray[np.float64]) -> TimeSeries:
-    stride = max(1, math.ceil((t.size - 1) / (PLOT_POINTS - 1)))
-    idx = np.arange(0, t.size, stride)
-    if idx[-1] != t.size - 1:
-        idx = np.append(idx, t.size - 1)
-    return TimeSeries(time_s=t[idx].copy(), value=v[idx].copy())
 
 
 def discrete_step_response(loop: DiscreteLoop, band: float) -> StepResult:
@@ -324,7 +287,7 @@ def discrete_step_response(loop: DiscreteLoop, band: float) -> StepResult:
         k = np.arange(samples + 1, dtype=float)
         t = k * T
         if n:
-            powers = _output_of_powers(cl.a, np.hstack([x_inf, b1]), c_y, samples + 1)
+            powers = output_of_powers(cl.a, np.hstack([x_inf, b1]), c_y, samples + 1)
         else:
             powers = np.zeros((samples + 1, 2))
         y = final - powers[:, 0]
@@ -337,7 +300,7 @@ def discrete_step_response(loop: DiscreteLoop, band: float) -> StepResult:
         ramp_tail = abs(float(powers[-1, 1])) if n else 0.0
         ramp_quiet = ramp_tail <= floor * max(abs(float(e[-1])), T)
         if metrics.settling_time_s <= 0.75 * t[-1] and quiet and ramp_quiet:
-            return StepResult(metrics=metrics, step=_series(t, y), ramp_error=_series(t, e))
+            return StepResult(metrics=metrics, step=plot_series(t, y), ramp_error=plot_series(t, e))
         if samples >= MAX_SAMPLES:
             break
         samples *= 2

@@ -206,7 +206,7 @@ class RationalResponse:
                 if a > 0:
                     v = linalg.expm(ab * a) @ v
                 phi = linalg.expm(ab * ((b - a) / steps))
-                powers = _output_of_powers(phi, v, cb, steps + 1)
+                powers = output_of_powers(phi, v, cb, steps + 1)
                 parts.append(powers if i == 0 else powers[1:])
             powers = np.concatenate(parts)
             step_tr, ramp_tr = powers[:, 0], powers[:, 1]
@@ -219,13 +219,14 @@ class RationalResponse:
 _RESPONSES: weakref.WeakKeyDictionary[Loop, RationalResponse] = weakref.WeakKeyDictionary()
 
 
-def _output_of_powers(phi: NDArray[np.float64], v: NDArray[np.float64],
+def output_of_powers(phi: NDArray[np.float64], v: NDArray[np.float64],
                       c: NDArray[np.float64], count: int) -> NDArray[np.float64]:
     """``c Φ^k v`` for k = 0 … count−1, shape (count, columns of v).
 
     Blocks of states are advanced by one multiplication with Φ^B, which keeps the cost at
-    a few hundred matrix products for a 10⁵-sample grid.  Used only when the modal form
-    is not trustworthy (a nearly defective closed-loop matrix).
+    a few hundred matrix products for a 10⁵-sample grid.  Used for a sampled loop's
+    exact step response, and here only when the modal form is not trustworthy (a nearly
+    defective closed-loop matrix).
     """
     n, m = v.shape
     block = min(256, count)
@@ -655,7 +656,8 @@ def _settled(t: FloatArray, y: FloatArray, final: float, band: float) -> bool:
     return ts <= 0.75 * t[-1] and bool(quiet)
 
 
-def _series(t: FloatArray, v: FloatArray) -> TimeSeries:
+def plot_series(t: FloatArray, v: FloatArray) -> TimeSeries:
+    """``v(t)`` thinned to at most :data:`PLOT_POINTS` samples, the last one kept."""
     stride = max(1, math.ceil((t.size - 1) / (PLOT_POINTS - 1)))
     idx = np.arange(0, t.size, stride)
     if idx[-1] != t.size - 1:
@@ -725,7 +727,7 @@ def step_response(loop: Loop, band: float) -> StepResult:
 
     metrics = _metrics(t, y, e, final, band, loop.has_delay,
                        None if loop.has_delay else rational)
-    return StepResult(metrics=metrics, step=_series(t, y), ramp_error=_series(t, e))
+    return StepResult(metrics=metrics, step=plot_series(t, y), ramp_error=plot_series(t, e))
 
 
 def _delay_run(loop: Loop, horizon: float, poles: NDArray[np.complex128], amp: FloatArray,
