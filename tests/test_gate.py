@@ -422,3 +422,73 @@ def test_batch_with_one_broken_design(tmp_path: Path) -> None:
     assert list(ok[ok["design"] == "pump"]["variant"]) == ["nominal", "worn impeller"]
     md = (out / "summary.md").read_text(encoding="utf-8")
     assert sum(line.startswith("| ") and "`" in line for line in md.splitlines()) == 5
+
+
+# --------------------------------------------------------------------------- figures not computed
+SAMPLES = Path(__file__).resolve().parents[1] / "sample_designs"
+
+
+def test_unknown_tracking_constants_compare_as_missing() -> None:
+    # spindle_sweep: the measured nominal plant leaves Kv (type 1: the constant of its own
+    # type) unknown; its stored 0.0 is a placeholder.  Against the model variant (Kv = 1333)
+    # a placeholder compared as a number would be a worsening of 1333 1/s.
+    design = parse_design((SAMPLES / "spindle_sweep.toml").read_text(encoding="utf-8"),
+                          str(SAMPLES / "spindle_sweep.toml"))
+    measured, model = analyze(design)
+    assert "kv" in measured.tracking.unknown and measured.tracking.kv == 0.0
+    assert model.tracking.kv == pytest.approx(1333.33, rel=1e-4)   # kp/ti·(plant DC gain 40)
+    changes = {c.figure: c for c in compare(model, measured)}
+    assert changes["kv"].candidate is None and changes["kv"].change is None
+    assert changes["kv"].worsening is None
+    assert changes["kv"].baseline == pytest.approx(model.tracking.kv)
+    # Kp = inf on both sides (type 1) still compares as a number; so do the margins.
+    assert changes["kp"].change == 0.0
+    assert changes["phase_margin_deg"].change == pytest.approx(
+        measured.margins.phase_margin_deg - model.margins.phase_margin_deg)
+    # the other direction too
+    back = {c.figure: c for c in compare(measured, model)}
+    assert back["kv"].baseline is None and back["kv"].change is None
+
+
+def test_margins_a_sweep_leaves_undecided_compare_as_missing(tmp_path: Path) -> None:
+    from test_plots import write_short_sweep
+
+    design = parse_design(write_short_sweep(tmp_path).read_text(encoding="utf-8"),
+                          str(tmp_path / "short.toml"))
+    (short,) = analyze(design)
+    assert short.coverage is not None and "phase_margin" in short.coverage.uncovered
+    (base,) = analyze(parse_design(loop_design(K_BASE, "base"), "base.toml"))
+    changes = {c.figure: c for c in compare(base, short)}
+    for figure in ("gain_margin_db", "phase_margin_deg", "delay_margin_s", "peak_sensitivity",
+                   "peak_complementary", "disk_margin", "gain_crossover_rad_s", "kv"):
+        assert changes[figure].candidate is None and changes[figure].change is None, figure
+    # and a regression rule on such a figure says so instead of judging a number
+    rs = load_ruleset("general")
+    rule = next(r for r in rs.rules if r.id == "regression.phase_margin")
+    (finding,) = evaluate(design, dataclasses.replace(rs, rules=(rule,)), (short,),
+                          today=dt.date(2025, 1, 1), baseline=(base,))
+    assert finding.status is Status.NA and "not available for the candidate" in finding.message
+
+
+# --------------------------------------------------------------------------- terminal
+def test_terminal_lists_verdicts_and_sums_up_na_rules() -> None:
+    from loopwarden import load_design, review
+    from loopwarden.report import renderer
+
+    r = review(load_design(str(SAMPLES / "spindle_sweep.toml")), today=DATE)
+    out = renderer("terminal").render(r).decode("utf-8")
+    lines = out.splitlines()
+    judged = [f for f in r.findings if f.status is not Status.NA]
+    na_rules = list(dict.fromkeys(f.rule for f in r.findings if f.status is Status.NA))
+    # the header, one line per finding with a verdict (in order), then the one n/a line
+    table = lines[1:1 + len(judged)]
+    for f, line in zip(judged, table, strict=True):
+        assert line.startswith(f.rule + " ") and f" {f.variant} " in line, line
+        assert f" {f.status.value.upper()} " in line, line
+    assert lines[1 + len(judged)].endswith(na_rules[-1])
+    assert not any(" N/A " in ln for ln in lines)
+    summary = next(ln for ln in lines if " n/a: " in ln)
+    assert summary == f"{len(na_rules)} rules n/a: " + ", ".join(na_rules)
+    # the JSON keeps every n/a finding
+    doc = json.loads(renderer("json").render(r))
+    assert sum(f["status"] == "n/a" for f in doc["findings"]) == r.count(Status.NA) > 0

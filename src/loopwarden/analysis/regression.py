@@ -4,6 +4,12 @@ Each figure has a direction ("higher is better" or "lower is better").  The chan
 ``candidate − baseline`` in the figure's unit; it is a worsening when it goes the wrong way.
 Infinite values compare as numbers (an infinite gain margin that becomes finite is a
 worsening of infinite size); a figure missing on one side is reported with ``None``.
+
+A figure is missing when the analysis did not compute it: no step response or slow-tail
+analysis, a tracking constant listed in ``Tracking.unknown`` (its stored value is only a
+placeholder), or a margin the measured range leaves undecided
+(``FrequencyCoverage.uncovered``).  Those are exactly the figures the JSON evidence reports
+as null, and a placeholder must never pass for a number in a comparison.
 """
 
 from __future__ import annotations
@@ -79,6 +85,26 @@ FIGURES: tuple[Figure, ...] = (
 
 FIGURE_NAMES = tuple(f.name for f in FIGURES)
 
+#: Checks a measured range may leave undecided → the figures they decide.
+UNDECIDED_FIGURES = {
+    "gain_margin": ("gain_margin_db",),
+    "phase_margin": ("phase_margin_deg", "gain_crossover_rad_s"),
+    "crossover_band": ("gain_crossover_rad_s",),
+    "delay_margin": ("delay_margin_s",),
+    "peak_sensitivity": ("peak_sensitivity",),
+    "peak_complementary": ("peak_complementary",),
+    "disk_margin": ("disk_margin",),
+}
+
+
+def missing_figures(a: LoopAnalysis) -> frozenset[str]:
+    """Names of the figures of ``FIGURES`` that the analysis of ``a`` did not compute."""
+    out = set(a.tracking.unknown) & set(FIGURE_NAMES)
+    if a.coverage is not None:
+        for check in a.coverage.uncovered:
+            out.update(UNDECIDED_FIGURES.get(check, ()))
+    return frozenset(out)
+
 
 def _difference(new: float, old: float) -> float:
     if new == old:  # also inf == inf
@@ -89,8 +115,10 @@ def _difference(new: float, old: float) -> float:
 def compare(baseline: LoopAnalysis, candidate: LoopAnalysis) -> tuple[FigureChange, ...]:
     """Every figure of ``FIGURES`` for one variant, baseline against candidate."""
     out = []
+    gone_old, gone_new = missing_figures(baseline), missing_figures(candidate)
     for fig in FIGURES:
-        old, new = fig.get(baseline), fig.get(candidate)
+        old = None if fig.name in gone_old else fig.get(baseline)
+        new = None if fig.name in gone_new else fig.get(candidate)
         if old is None or new is None:
             out.append(FigureChange(figure=fig.name, unit=fig.unit, baseline=old, candidate=new,
                                     change=None, worsening=None,

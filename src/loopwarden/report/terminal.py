@@ -1,4 +1,9 @@
-"""The compact findings table printed by ``loopwarden review`` (plain text)."""
+"""The compact findings table printed by ``loopwarden review`` (plain text).
+
+Findings with a verdict are listed one per line; the n/a ones (a check that does not apply,
+or a figure measured without a limit) are summed up in one line naming their rules, so the
+real findings stay visible.  The JSON, JUnit and PDF keep every finding in full.
+"""
 
 from __future__ import annotations
 
@@ -18,15 +23,20 @@ def _clip(text: str, width: int) -> str:
 
 
 def render(review: Review) -> bytes:
-    """One line per finding (rule, variant, status, measured, limit), then the verdict."""
+    """One line per finding with a verdict, one line for the n/a rules, then the verdict."""
+    shown = [f for f in review.findings if f.status is not Status.NA]
     rows = [(f.rule, f.variant or "-", f.status.value.upper(),
              _clip(fmt(f.measured, f.unit) if f.measured is not None else "", _MEASURED_WIDTH),
              limit_text(f))
-            for f in review.findings]
+            for f in shown]
     head = ("RULE", "VARIANT", "STATUS", "MEASURED", "LIMIT")
     widths = [max(len(r[i]) for r in [head, *rows]) for i in range(len(head))]
     lines = ["  ".join(c.ljust(w) for c, w in zip(row, widths, strict=True)).rstrip()
              for row in [head, *rows]]
+    na_rules = list(dict.fromkeys(f.rule for f in review.findings if f.status is Status.NA))
+    if na_rules:
+        lines.append(f"{len(na_rules)} rule{'s' if len(na_rules) != 1 else ''} n/a: "
+                     + ", ".join(na_rules))
     counts = ", ".join(f"{review.count(s)} {s.value}" for s in Status if review.count(s))
     rs = review.ruleset
     lines.append("")
