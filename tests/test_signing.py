@@ -321,3 +321,113 @@ def test_key_issued_by_a_ca_verifies_against_the_ca(keys: dict[str, Path],
     assert report.signer == "Release Engineer"
     assert _failed(verify_pdf(path, trust=keys["alice"].with_suffix(".pem"))) >= {
         "trusted signer"}
+
+
+# --------------------------------------------------------------------------- measured plants
+SPINDLE = ROOT / "sample_designs" / "spindle_sweep.toml"
+
+
+@pytest.fixture(scope="session")
+def spindle_signed(keys: dict[str, Path], tmp_path_factory: pytest.TempPathFactory
+                   ) -> dict[str, Path]:
+    """A signed spindle review made by the review command, and a copy of its inputs."""
+    import shutil
+
+    from loopwarden.cli import main
+
+    folder = tmp_path_factory.mktemp("spindle")
+    inputs = folder / "inputs"
+    inputs.mkdir()
+    for name in ("spindle_sweep.toml", "spindle_sweep.csv"):
+        shutil.copy(SPINDLE.parent / name, inputs / name)
+    pw = folder / "pw.txt"
+    pw.write_bytes(PASS + b"\n")
+    pdf = folder / "review.pdf"
+    code = main(["review", str(inputs / "spindle_sweep.toml"), "--out", str(pdf), "--sign",
+                 str(keys["alice"]), "--passphrase-file", str(pw), "--date", "2026-01-15",
+                 "--quiet"])
+    assert code == 0
+    return {"pdf": pdf, "design": inputs / "spindle_sweep.toml",
+            "csv": inputs / "spindle_sweep.csv", "trust": keys["alice"].with_suffix(".pem")}
+
+
+def test_measured_review_verifies_with_its_csv(spindle_signed: dict[str, Path]) -> None:
+    s = spindle_signed
+    report = verify_pdf(s["pdf"], trust=s["trust"], design=s["design"])
+    assert report.ok, report.checks
+    checks = {c.name: c for c in report.checks}
+    assert "plant-nominal.csv" in checks["embedded inputs match evidence"].detail
+    assert checks["measured-plant files match"].passed
+    assert "spindle_sweep.csv" in checks["measured-plant files match"].detail
+
+
+def test_changed_csv_on_disk_fails(spindle_signed: dict[str, Path], tmp_path: Path) -> None:
+    import shutil
+
+    s = spindle_signed
+    design = tmp_path / "spindle_sweep.toml"
+    shutil.copy(s["design"], design)
+    data = s["csv"].read_bytes()
+    # One measured magnitude changed in its last digit: same design file, other sweep.
+    lines = data.decode().splitlines(keepends=True)
+    row = next(i for i, line in enumerate(lines) if line[:1].isdigit())
+    cells = lines[row].rstrip("\n").split(",")
+    cells[1] = cells[1][:-1] + ("1" if cells[1][-1] != "1" else "2")
+    lines[row] = ",".join(cells) + "\n"
+    (tmp_path / "spindle_sweep.csv").write_text("".join(lines), encoding="utf-8")
+    report = verify_pdf(s["pdf"], trust=s["trust"], design=design)
+    assert _failed(report) == {"measured-plant files match"} and not report.ok
+    (tmp_path / "spindle_sweep.csv").unlink()
+    report = verify_pdf(s["pdf"], trust=s["trust"], design=design)
+    assert _failed(report) == {"measured-plant files match"}
+    assert "cannot read spindle_sweep.csv" in next(
+        c.detail for c in report.checks if not c.passed)
+
+
+def test_csv_named_outside_the_design_folder_is_refused(spindle_signed: dict[str, Path],
+                                                         tmp_path: Path) -> None:
+    # A design that names ../spindle_sweep.csv: verify must not read outside its folder
+    # (the review refuses such a path too), so the check fails even though the file exists.
+    s = spindle_signed
+    inner = tmp_path / "inner"
+    inner.mkdir()
+    (tmp_path / "spindle_sweep.csv").write_bytes(s["csv"].read_bytes())
+    text = s["design"].read_text(encoding="utf-8").replace('file = "spindle_sweep.csv"',
+                                                           'file = "../spindle_sweep.csv"')
+    (inner / "d.toml").write_text(text, encoding="utf-8")
+    report = verify_pdf(s["pdf"], trust=s["trust"], design=inner / "d.toml")
+    assert {"design file matches", "measured-plant files match"} <= _failed(report)
+    assert "outside the design file's folder" in next(
+        c.detail for c in report.checks if c.name == "measured-plant files match")
+
+
+def test_embedded_csv_that_does_not_match_the_evidence_fails(keys: dict[str, Path],
+                                                             tmp_path: Path) -> None:
+    # Signed by the rightful key, but the embedded sweep is not the one the evidence hashes.
+    review = loopwarden.review(loopwarden.load_design(str(SPINDLE)), today="2026-01-15")
+    files = {"review.json": renderer("json").render(review),
+             "design.toml": review.design.text.encode("utf-8"),
+             "rules.toml": review.ruleset.text.encode("utf-8"),
+             "plant-nominal.csv": b"frequency,magnitude,phase\n1,0,0\n"}
+    path = _write(tmp_path, sign_pdf(render_pdf(review, embedded=files), keys["alice"], PASS))
+    report = verify_pdf(path, trust=keys["alice"].with_suffix(".pem"))
+    assert "embedded inputs match evidence" in _failed(report)
+    assert "plant-nominal.csv hashes to" in next(
+        c.detail for c in report.checks if c.name == "embedded inputs match evidence")
+    del files["plant-nominal.csv"]
+    path = _write(tmp_path, sign_pdf(render_pdf(review, embedded=files), keys["alice"], PASS),
+                  "missing.pdf")
+    report = verify_pdf(path, trust=keys["alice"].with_suffix(".pem"))
+    assert "plant-nominal.csv is not embedded" in next(
+        c.detail for c in report.checks if c.name == "embedded inputs match evidence")
+
+
+def test_plant_attachment_names_are_safe_and_distinct() -> None:
+    from loopwarden.signing.verify import plant_attachment_names
+
+    names = plant_attachment_names(["nominal", "heavy load", "heavy/load", "../x", "ü"])
+    assert names["nominal"] == "plant-nominal.csv"
+    assert names["heavy load"] == "plant-heavy-load.csv"
+    assert names["heavy/load"] == "plant-heavy-load-2.csv"
+    assert names["../x"] == "plant-x.csv" and names["ü"] == "plant-variant.csv"
+    assert len(set(names.values())) == len(names)

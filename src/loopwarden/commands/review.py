@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import argparse
 import dataclasses
+import hashlib
 import sys
 from pathlib import Path
 
@@ -53,9 +54,13 @@ def _embedded(review: object, evidence: bytes) -> dict[str, bytes]:
     """Files embedded in the PDF: the evidence JSON and every input file as read.
 
     ``design.toml`` and ``rules.toml`` hash to ``design.sha256`` / ``ruleset.sha256`` of
-    the evidence; sets the rule set extends follow as ``rules-<id>.toml``.
+    the evidence; sets the rule set extends follow as ``rules-<id>.toml``; the CSV of each
+    measured plant as ``plant-<variant>.csv``, hashing to its
+    ``design.measured_plants[j].sha256``.
     """
+    from ..errors import UsageError
     from ..report.review import Review
+    from ..signing.verify import plant_attachment_names
 
     assert isinstance(review, Review)
     files = {"review.json": evidence, "design.toml": review.design.text.encode("utf-8")}
@@ -63,6 +68,20 @@ def _embedded(review: object, evidence: bytes) -> dict[str, bytes]:
         files["rules.toml" if i == 0 else f"rules-{f.id}.toml"] = f.text.encode("utf-8")
     if review.baseline is not None:
         files["baseline.toml"] = review.baseline.design.text.encode("utf-8")
+    measured = [v for v in review.design.variants if v.measured is not None]
+    names = plant_attachment_names([v.name for v in measured])
+    for v in measured:
+        assert v.measured is not None
+        try:
+            data = Path(v.measured.path).read_bytes()
+        except OSError as exc:
+            raise UsageError(f"cannot read the measured response again to embed it: "
+                             f"{exc.strerror or exc}", file=v.measured.path) from exc
+        if hashlib.sha256(data).hexdigest() != v.measured.sha256:
+            # The evidence records the file the analysis read; embed nothing else.
+            raise UsageError("the measured response changed while the review ran",
+                             file=v.measured.path, hint="run the review again")
+        files[names[v.name]] = data
     return files
 
 

@@ -10,8 +10,9 @@ EPILOG = """\
 passes only when: the PDF carries exactly one PAdES signature; it is intact; the signing
 certificate chains to --trust; it covers every byte of the file (nothing appended, no later
 incremental update); the embedded evidence, read from the signed revision, is a
-loopwarden-review/1 document whose embedded design and rule-set files hash to what it
-records; and the --design / --rules files given hash to the same values.
+loopwarden-review/1 document whose embedded design, rule-set and measured-plant (CSV) files
+hash to what it records; and the --design / --rules files given hash to the same values,
+as do the CSV files the design names (read relative to the design file).
 
 Without --trust the signature cannot be trusted and verification fails.
 

@@ -11,8 +11,11 @@ A review verifies only when every check passes:
 4. the signature **covers the entire file**: the signed revision is the last one and no
    byte follows the signed range (appended bytes or another incremental update fail);
 5. the embedded evidence, read **from the signed revision**, is a ``loopwarden-review/1``
-   JSON document, and the embedded design and rule-set files hash to what it records;
-6. when given, the design and rule-set files on disk hash to what the evidence records.
+   JSON document, and the embedded design, rule-set and measured-plant files (the
+   frequency-response CSVs, ``plant-<variant>.csv``) hash to what it records;
+6. when given, the design and rule-set files on disk hash to what the evidence records, and
+   so do the measured-plant CSV files the design names (read relative to the design file,
+   inside its folder tree, as the review read them).
 
 Any exception inside a check makes that check fail; nothing passes by default.
 Unreadable input (a missing file, not a PDF at all, a trust file that holds no
@@ -26,14 +29,16 @@ import hashlib
 import io
 import json
 import logging
-from collections.abc import Iterator
+import re
+import tomllib
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, NamedTuple
 
 from ..errors import UsageError
 
-__all__ = ["Check", "VerifyReport", "verify_pdf", "SCHEMA"]
+__all__ = ["Check", "VerifyReport", "verify_pdf", "SCHEMA", "plant_attachment_names"]
 
 SCHEMA = "loopwarden-review/1"
 _PADES = "/ETSI.CAdES.detached"
@@ -55,6 +60,26 @@ class VerifyReport:
     checks: tuple[Check, ...]
     signer: str | None = None           # subject of the signing certificate, when read
     verdict: str | None = None          # the review's verdict per the signed evidence
+
+
+def plant_attachment_names(variants: Sequence[str]) -> dict[str, str]:
+    """Embedded-file name of each measured plant variant's CSV: ``plant-<variant>.csv``.
+
+    The variant name is kept where it is a safe file name (letters, digits, ``.``, ``_``,
+    ``-``; anything else becomes ``-``); names that would coincide get ``-2``, ``-3``… in
+    the given order.  The review command and ``verify`` both use this, in the order of
+    ``design.measured_plants`` in the evidence, so the names need not be recorded.
+    """
+    out: dict[str, str] = {}
+    taken: set[str] = set()
+    for variant in variants:
+        stem = re.sub(r"[^A-Za-z0-9._-]+", "-", variant).strip("-.") or "variant"
+        name, k = f"plant-{stem}.csv", 2
+        while name in taken:
+            name, k = f"plant-{stem}-{k}.csv", k + 1
+        taken.add(name)
+        out[variant] = name
+    return out
 
 
 def _read(path: Path | str, what: str) -> bytes:
@@ -164,11 +189,13 @@ def verify_pdf(path: Path | str, *, trust: Path | str | None = None,
     design_bytes = _read(design, "design file") if design is not None else None
     rules_bytes = _read(rules, "rule-set file") if rules is not None else None
     with _quiet():
-        return _verify(data, roots, trust, design_bytes, rules_bytes)
+        return _verify(data, roots, trust, design_bytes, rules_bytes,
+                       Path(design) if design is not None else None)
 
 
 def _verify(data: bytes, roots: list[Any] | None, trust: Path | str | None,
-            design_bytes: bytes | None, rules_bytes: bytes | None) -> VerifyReport:
+            design_bytes: bytes | None, rules_bytes: bytes | None,
+            design_path: Path | None = None) -> VerifyReport:
     checks: list[Check] = []
     signer: str | None = None
     verdict: str | None = None
@@ -286,6 +313,8 @@ def _verify(data: bytes, roots: list[Any] | None, trust: Path | str | None,
             got = _sha(design_bytes)
             checks.append(Check("design file matches", got == rec_design,
                                 f"sha256 {_short(got)}; evidence records {_short(rec_design)}"))
+            if design_path is not None:
+                _measured_on_disk(design_bytes, design_path, evidence, checks)
         if rules_bytes is not None:
             got = _sha(rules_bytes)
             checks.append(Check("rule-set file matches", got == rec_rules,
@@ -337,6 +366,10 @@ def _consistency(files: dict[str, bytes], evidence: dict[str, Any],
                 "rules.toml": str(_table(evidence, "ruleset").get("sha256", ""))}
     for f in _table(evidence, "ruleset").get("files", [])[1:]:
         expected[f"rules-{f.get('id')}.toml"] = str(f.get("sha256", ""))
+    measured = _measured_plants(evidence)
+    names = plant_attachment_names([m["variant"] for m in measured])
+    for m in measured:
+        expected[names[m["variant"]]] = m["sha256"]
     for name, digest in expected.items():
         if name not in files:
             problems.append(f"{name} is not embedded")
@@ -346,3 +379,77 @@ def _consistency(files: dict[str, bytes], evidence: dict[str, Any],
     checks.append(Check("embedded inputs match evidence", not problems,
                         "; ".join(problems) if problems else
                         f"{', '.join(sorted(expected))} hash to the recorded sha256"))
+
+
+def _measured_plants(evidence: dict[str, Any]) -> list[dict[str, str]]:
+    """``design.measured_plants`` of the evidence: variant, file and sha256 of each CSV."""
+    rows = _table(evidence, "design").get("measured_plants", [])
+    if not isinstance(rows, list):
+        raise ValueError("design.measured_plants is not a list")
+    out = []
+    for row in rows:
+        if not isinstance(row, dict):
+            raise ValueError("an entry of design.measured_plants is not a table")
+        out.append({k: str(row.get(k, "")) for k in ("variant", "file", "sha256")})
+    return out
+
+
+def _named_csv_files(design_bytes: bytes) -> dict[str, str]:
+    """Variant → frequency-response file, as the design file names them (``frd.file``)."""
+    doc = tomllib.loads(design_bytes.decode("utf-8"))
+    plant = doc.get("plant", {})
+    out: dict[str, str] = {}
+    if isinstance(plant, dict):
+        if isinstance(plant.get("frd"), dict) and "file" in plant["frd"]:
+            out["nominal"] = str(plant["frd"]["file"])
+        for v in plant.get("variants", []) or []:
+            if isinstance(v, dict) and isinstance(v.get("frd"), dict) and "file" in v["frd"]:
+                out[str(v.get("name", ""))] = str(v["frd"]["file"])
+    return out
+
+
+def _measured_on_disk(design_bytes: bytes, design_path: Path, evidence: dict[str, Any],
+                      checks: list[Check]) -> None:
+    """The CSV files the design on disk names hash to what the evidence records.
+
+    Read as the review read them: relative to the design file and inside its folder tree
+    (a name that leaves it is refused, not followed).
+    """
+    try:
+        named = _named_csv_files(design_bytes)
+    except (UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
+        checks.append(Check("measured-plant files match", False,
+                            f"the design file cannot be read as TOML: {exc}"))
+        return
+    recorded = {m["variant"]: m for m in _measured_plants(evidence)}
+    if not named and not recorded:
+        return
+    base = design_path.resolve().parent
+    problems, matched = [], []
+    for variant, file in named.items():
+        rec = recorded.get(variant)
+        if rec is None:
+            problems.append(f"{file} ({variant}): the evidence records no measured plant for "
+                            "this variant")
+            continue
+        target = Path(file)
+        target = (target if target.is_absolute() else base / target).resolve()
+        if not target.is_relative_to(base):
+            problems.append(f"{file} ({variant}) lies outside the design file's folder")
+            continue
+        try:
+            got = _sha(target.read_bytes())
+        except OSError as exc:
+            problems.append(f"cannot read {file} ({variant}): {exc.strerror or exc}")
+            continue
+        if got != rec["sha256"]:
+            problems.append(f"{file} ({variant}) hashes to {_short(got)}, the evidence "
+                            f"records {_short(rec['sha256'])}")
+        else:
+            matched.append(file)
+    for variant in sorted(set(recorded) - set(named)):
+        problems.append(f"the evidence records {recorded[variant]['file']} ({variant}), which "
+                        "the design file does not name")
+    checks.append(Check("measured-plant files match", not problems,
+                        "; ".join(problems) if problems else
+                        f"{', '.join(matched)} hash to the recorded sha256"))
