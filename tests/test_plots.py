@@ -111,3 +111,150 @@ def test_slow_pair_tail_is_drawn_from_the_analysis() -> None:
     assert "slow pair" in plots.time_figure(a).caption
     no_tail = dataclasses.replace(a, slow_tail=dataclasses.replace(a.slow_tail, pairs=()))
     assert "slow pair" not in plots.time_figure(no_tail).caption
+
+
+# --------------------------------------------------------------------------- sampled loops
+def test_sampled_frequency_axis_ends_at_the_nyquist_frequency() -> None:
+    # pump_pressure samples at T = 0.05 s and is written in Hz: π/T = 62.83 rad/s = 10 Hz
+    # [derived: f_N = 1/(2T)].
+    review = sample_review("pump_pressure")
+    unit = plots.FrequencyUnit.of(review.design)
+    for a in review.analyses:
+        lo, hi = plots.frequency_view(a, unit)
+        assert hi == pytest.approx(1.0 / (2 * 0.05), rel=1e-12)
+        assert lo == pytest.approx(a.curves.frequency_rad_s[0] / (2 * math.pi))
+        figs = plots.variant_plots(review.design, a)
+        assert "Nyquist frequency π/T = 10 Hz" in figs["bode"].caption
+        assert "Nyquist frequency" in figs["sensitivity"].caption
+        assert "π/T" in figs["nyquist"].caption
+        assert "sampling instants t = kT" in figs["time"].caption
+
+
+def test_z_plane_keeps_the_unit_circle_in_view_and_names_far_roots() -> None:
+    review = sample_review("pump_pressure")
+    a = review.analyses[0]
+    poles = np.asarray(a.stability.closed_loop_poles, dtype=complex)
+    zeros = plots.closed_loop_zeros(review.design, "nominal")
+    r, outside = plots.z_plane_view(poles, zeros)
+    # Every closed-loop pole of a stable sampled loop is inside the unit circle
+    # [definition], so the view is set by the circle and the roots within 2.5.
+    assert np.all(np.abs(poles) < 1.0) and 1.25 <= r <= 1.1 * plots.Z_VIEW_MAX
+    assert all(abs(x) > r for x in outside)
+    assert set(np.round(outside, 9)) == set(np.round(zeros[np.abs(zeros) > r], 9))
+    caption = plots.pole_zero_figure(a, zeros).caption
+    assert "z-plane" in caption and "unit circle" in caption
+    for x in outside:
+        assert f"z = {plots._fmt_z(x)}" in caption
+
+
+def test_sampled_closed_loop_zeros_against_scipy(tmp_path: Path) -> None:
+    # y/r = C·P_y/(1 + C·P_ym) for a digital PI C(z) = 2(z − 0.9)/(z − 1) around
+    # P(s) = (s + 2)/((s + 1)(s + 3)) with a sensor 1/(0.02 s + 1), T = 0.1 s: its zeros are
+    # C's zero 0.9, the ZOH zeros of P [scipy.signal.cont2discrete] and the sensor's mode
+    # e^(−50·T) (a zero of y/r, as the sensor pole is in continuous time) [derived].
+    from scipy.signal import cont2discrete
+
+    design = loopwarden.load_design(str(_write(tmp_path, "pi_z.toml", """
+        [design]
+        name = "digital PI"
+        [sampling]
+        period = 0.1
+        [plant]
+        zpk = { zeros = [-2.0], poles = [-1.0, -3.0], gain = 1.0 }
+        [sensor]
+        tf = { num = [1.0], den = [0.02, 1.0] }
+        [[controller]]
+        type = "tf"
+        domain = "z"
+        num = [2.0, -1.8]
+        den = [1.0, -1.0]
+        """)))
+    num, _den, _ = cont2discrete(([1.0, 2.0], np.poly([-1.0, -3.0])), 0.1, method="zoh")
+    expected = np.concatenate([[0.9], np.roots(np.trim_zeros(num[0], "f")), [math.exp(-5.0)]])
+    got = plots.closed_loop_zeros(design, "nominal")
+    assert sorted(got.real) == pytest.approx(sorted(expected.real), abs=1e-7)
+    assert np.all(np.abs(got.imag) < 1e-9)
+
+
+def _write(folder: Path, name: str, body: str) -> Path:
+    import textwrap
+
+    path = folder / name
+    path.write_text(textwrap.dedent(body), encoding="utf-8")
+    return path
+
+
+# --------------------------------------------------------------------------- measured plants
+#: A sweep too short for its loop: P(s) = 50/((s + 1)(s/200 + 1)) measured over 0.1–5 rad/s
+#: under a PI (kp = 1, ti = 1 s).  At 5 rad/s |L| = |1 + 1/(5j)|·50/(|1 + 5j|·|1 + j/40|)
+#: = 9.997 ≥ 1 [derived], so the gain crossover lies above the sweep.
+SHORT_SWEEP = """
+    [design]
+    name = "Short sweep"
+    [plant.frd]
+    file = "short.csv"
+    frequency_unit = "rad/s"
+    magnitude_unit = "db"
+    phase_unit = "deg"
+    [[controller]]
+    type = "pi"
+    kp = 1.0
+    ti = 1.0
+    """
+
+
+def write_short_sweep(folder: Path) -> Path:
+    """The SHORT_SWEEP design and its CSV (40 points from the model) in ``folder``."""
+    w = np.logspace(-1.0, math.log10(5.0), 40)
+    p = 50.0 / ((1j * w + 1.0) * (1j * w / 200.0 + 1.0))
+    rows = ["frequency,magnitude,phase"] + [
+        f"{wi:.10g},{20 * math.log10(abs(pi)):.10g},{math.degrees(np.angle(pi)):.10g}"
+        for wi, pi in zip(w, p, strict=True)]
+    (folder / "short.csv").write_text("\n".join(rows) + "\n", encoding="utf-8")
+    return _write(folder, "short.toml", SHORT_SWEEP)
+
+
+def test_measured_view_extends_past_the_sweep_and_shades_it() -> None:
+    # spindle_sweep.csv runs from 0.5 Hz to 1000 Hz (its first and last rows, read here with
+    # the csv module); the axis reaches MEASURED_MARGIN beyond each end.
+    import csv
+
+    review = sample_review("spindle_sweep")
+    with open(SAMPLES / "spindle_sweep.csv", newline="", encoding="utf-8") as fh:
+        rows = [r for r in csv.reader(line for line in fh if not line.startswith("#"))]
+    freqs = [float(r[rows[0].index("frequency")]) for r in rows[1:] if r]
+    a = review.analyses[0]
+    lo, hi = plots.frequency_view(a, plots.FrequencyUnit.of(review.design))
+    assert lo == pytest.approx(freqs[0] / plots.MEASURED_MARGIN, rel=1e-9)
+    assert hi == pytest.approx(freqs[-1] * plots.MEASURED_MARGIN, rel=1e-9)
+    figs = plots.variant_plots(review.design, a)
+    assert "Shaded: the measured range of spindle_sweep.csv" in figs["bode"].caption
+    assert f"({len(freqs)} points)" in figs["bode"].caption
+    assert "measured range" in figs["sensitivity"].caption
+    assert "not decided" not in figs["bode"].caption      # every crossing is inside it
+
+
+def test_measured_variant_has_no_model_figures() -> None:
+    review = sample_review("spindle_sweep")
+    measured = plots.variant_plots(review.design, review.analyses[0])
+    assert list(measured) == ["bode", "nyquist", "sensitivity"]
+    assert set(plots.MODEL_FIGURES) == {"poles", "time"}
+    # the model variant beside it keeps all five
+    model = plots.variant_plots(review.design, review.analyses[1])
+    assert list(model) == ["bode", "nyquist", "poles", "time", "sensitivity"]
+
+
+def test_crossing_beyond_a_short_sweep_is_flagged(tmp_path: Path) -> None:
+    review = loopwarden.review(loopwarden.load_design(str(write_short_sweep(tmp_path))),
+                               today="2026-01-15")
+    a = review.analyses[0]
+    assert a.coverage is not None
+    assert a.coverage.loop_gain_at_max == pytest.approx(9.997, abs=1e-3)   # [derived] above
+    sides = plots.uncovered_sides(a)
+    assert sides and set(sides.values()) == {"above"}
+    assert set(sides) == set(a.coverage.uncovered)
+    figs = plots.variant_plots(review.design, a)
+    bode = figs["bode"].caption
+    assert "a crossing may lie above it" in bode and "PM not decided by the sweep" in bode
+    assert "Ms = not decided by the sweep" in figs["sensitivity"].caption
+    assert "No Ms disc" in figs["nyquist"].caption

@@ -62,7 +62,19 @@ _EMBED_INFO = {
     "review.json": ("application/json", "Review evidence (loopwarden-review/1 JSON)"),
     "design.toml": ("application/toml", "Design file as read"),
     "rules.toml": ("application/toml", "Rule set as read"),
+    "baseline.toml": ("application/toml", "Baseline design file as read"),
 }
+
+
+def _embed_info(name: str) -> tuple[str, str]:
+    """MIME type and description of an embedded file."""
+    if name in _EMBED_INFO:
+        return _EMBED_INFO[name]
+    if name.startswith("plant-") and name.endswith(".csv"):
+        return "text/csv", "Measured frequency response of a plant variant, as read"
+    if name.startswith("rules-") and name.endswith(".toml"):
+        return "application/toml", "Rule set extended by the review's rule set, as read"
+    return "application/octet-stream", name
 
 
 def render_pdf(review: Review, *, embedded: Mapping[str, bytes]) -> bytes:
@@ -306,11 +318,23 @@ def _glance_table(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> Ta
         if m.gain_crossover_rad_s is not None:
             pm += f" @ {num(unit.show(m.gain_crossover_rad_s))} {unit.label}"
         gm = f"{num(m.gain_margin_db)} dB"
+        if a.coverage is not None:
+            # A figure the measured range leaves open is not a number (as in the JSON).
+            if "gain_margin" in a.coverage.bounded:
+                gm = f"≥ {gm}"
+            if "gain_margin" in a.coverage.uncovered:
+                gm = "not decided"
+            if "phase_margin" in a.coverage.uncovered:
+                pm = "not decided"
         settle = f"{num(a.step.settling_time_s)} s" if a.step is not None else "—"
         stable = "stable" if a.stability.closed_loop_stable else "UNSTABLE"
+        if a.coverage is not None and "closed_loop_stability" in a.coverage.uncovered:
+            stable = "not decided"
         data.append([Paragraph(text(a.variant), st["cell_bold"]), Paragraph(stable, st["cell"]),
                      Paragraph(text(pm), st["cell"]), Paragraph(text(gm), st["cell"]),
-                     Paragraph(num(a.sensitivity.peak_sensitivity), st["cell"]),
+                     Paragraph("not decided" if a.coverage is not None
+                               and "peak_sensitivity" in a.coverage.uncovered
+                               else num(a.sensitivity.peak_sensitivity), st["cell"]),
                      Paragraph(text(settle), st["cell"]),
                      Paragraph(f"{len(mine)} checked, {bad} blocking", st["cell"])])
     table = Table(data, colWidths=widths(30, 20, 33, 22, 14, 19, 36), repeatRows=1)
@@ -334,6 +358,22 @@ def _limit_text(review: Review, f: Finding, unit: FrequencyUnit) -> str:
     return shown
 
 
+#: Order of the findings table: what needs attention first, n/a last (in its own table).
+FINDING_ORDER = (Status.FAIL, Status.ERROR, Status.WARN, Status.WAIVED, Status.PASS, Status.NA)
+
+
+def ordered_findings(review: Review) -> tuple[tuple[Finding, ...], tuple[Finding, ...]]:
+    """The findings with a verdict (fail, error, warn, waived, then pass) and the n/a ones.
+
+    Every finding is in exactly one of the two; within a status the review's own order
+    (variant, then rule) is kept.
+    """
+    rank = {s: i for i, s in enumerate(FINDING_ORDER)}
+    ordered = sorted(review.findings, key=lambda f: rank[f.status])    # stable
+    return (tuple(f for f in ordered if f.status is not Status.NA),
+            tuple(f for f in ordered if f.status is Status.NA))
+
+
 def _finding_widths(review: Review, unit: FrequencyUnit) -> list[float]:
     """Column widths wide enough that no rule id or limit source word is broken."""
     fs = review.findings
@@ -345,31 +385,14 @@ def _finding_widths(review: Review, unit: FrequencyUnit) -> list[float]:
                       fonts=(SANS_BOLD, SANS, SANS, SANS, SANS_BOLD, SANS))
 
 
-def _findings(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[Any]:
-    out: list[Any] = [Paragraph("1  Findings", st["h1"])]
-    counts = ", ".join(f"{review.count(s)} {STATUS_LOOK[s][2].lower()}" for s in Status
-                       if review.count(s))
-    out.append(Paragraph(
-        f"{len(review.findings)} findings from rule set {text(review.ruleset.id)} "
-        f"{text(review.ruleset.version)} on {len(review.analyses)} plant variant"
-        f"{'s' if len(review.analyses) != 1 else ''}: {counts}. Waived findings do not "
-        "block; an error means a figure could not be computed and blocks like a failure.",
-        st["body"]))
-    blocking = [f for f in review.findings if f.status.blocks]
-    if blocking:
-        out.append(Paragraph("What blocks the release", st["h3"]))
-        for f in blocking:
-            fg = STATUS_LOOK[f.status][0]
-            out.append(Paragraph(
-                f"<font color='{hexcolor(fg)}'><b>{STATUS_LOOK[f.status][2]}</b></font> "
-                f"<b>{text(f.rule)}</b> ({text(f.variant or 'design')}): {text(f.message)}",
-                st["body"]))
-        out.append(Spacer(1, 2 * mm))
-    out.append(Paragraph("All findings", st["h3"]))
+def _findings_table(review: Review, findings: tuple[Finding, ...], st: dict[str, Any],
+                    unit: FrequencyUnit) -> Table:
+    """Findings as rows (rule, variant, measured, limit, status, limit source), each with
+    its message on a grey line below."""
     head = ["Rule", "Variant", "Measured", "Limit", "Status", "Limit source"]
     data: list[list[Any]] = [[Paragraph(h, st["cell_head"]) for h in head]]
     style = grid_style()
-    for f in review.findings:
+    for f in findings:
         fg, bg, word = STATUS_LOOK[f.status]
         row = len(data)
         data.append([
@@ -391,7 +414,68 @@ def _findings(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[A
         style.add("TOPPADDING", (0, row + 1), (-1, row + 1), 0)
     table = Table(data, colWidths=_finding_widths(review, unit), repeatRows=1)
     table.setStyle(style)
-    out.append(table)
+    return table
+
+
+def _na_table(review: Review, findings: tuple[Finding, ...], st: dict[str, Any],
+              unit: FrequencyUnit) -> Table:
+    """The n/a findings, one line each: rule, variant, what was measured, and why."""
+    head = ["Rule", "Variant", "Measured", "Why no verdict"]
+    data: list[list[Any]] = [[Paragraph(h, st["cell_head"]) for h in head]]
+    for f in findings:
+        limit = "" if f.limit is None else f" (limit {text(_limit_text(review, f, unit))})"
+        data.append([
+            Paragraph(f"<b>{text(f.rule)}</b><br/><font color='#5f6368' size='6.6'>"
+                      f"{text(f.check)}</font>", st["cell"]),
+            Paragraph(text(f.variant or "design"), st["cell"]),
+            Paragraph(text(value_text(f.measured, f.unit, unit)), st["cell"]),
+            Paragraph(f"{text(f.message)}{limit}", st["cell_note"]),
+        ])
+    cols = [[f.rule for f in findings], [f.variant or "design" for f in findings],
+            [value_text(f.measured, f.unit, unit) for f in findings], ["because"]]
+    table = Table(data, colWidths=fit_widths(cols, (34, 22, 22, 96),
+                                             fonts=(SANS_BOLD, SANS, SANS, SANS)),
+                  repeatRows=1)
+    table.setStyle(grid_style())
+    return table
+
+
+def _findings(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[Any]:
+    out: list[Any] = [Paragraph("1  Findings", st["h1"])]
+    counts = ", ".join(f"{review.count(s)} {STATUS_LOOK[s][2].lower()}" for s in Status
+                       if review.count(s))
+    judged, not_applicable = ordered_findings(review)
+    out.append(Paragraph(
+        f"{len(review.findings)} findings from rule set {text(review.ruleset.id)} "
+        f"{text(review.ruleset.version)} on {len(review.analyses)} plant variant"
+        f"{'s' if len(review.analyses) != 1 else ''}: {counts}. Waived findings do not "
+        "block; an error means a figure could not be computed and blocks like a failure. "
+        "The table lists failures, errors, warnings and waivers first, then passes; the "
+        f"{len(not_applicable)} findings without a verdict (not applicable to this loop, or "
+        "measured without a limit) follow in a table of their own.", st["body"]))
+    blocking = [f for f in review.findings if f.status.blocks]
+    if blocking:
+        out.append(Paragraph("What blocks the release", st["h3"]))
+        for f in blocking:
+            fg = STATUS_LOOK[f.status][0]
+            out.append(Paragraph(
+                f"<font color='{hexcolor(fg)}'><b>{STATUS_LOOK[f.status][2]}</b></font> "
+                f"<b>{text(f.rule)}</b> ({text(f.variant or 'design')}): {text(f.message)}",
+                st["body"]))
+        out.append(Spacer(1, 2 * mm))
+    out.append(Paragraph("Findings", st["h3"]))
+    if judged:
+        out.append(_findings_table(review, judged, st, unit))
+    else:
+        out.append(Paragraph("No rule gave a verdict on this design.", st["body"]))
+    if not_applicable:
+        out.append(Paragraph("Measured without a limit / not applicable", st["h3"]))
+        out.append(Paragraph(
+            "These rules gave no verdict: the check does not apply to this loop, or the rule "
+            "set and the design give no limit for it. Each keeps its measured value (where "
+            "there is one) and its reason; none of them blocks the release.", st["small"]))
+        out.append(Spacer(1, 1.5 * mm))
+        out.append(_na_table(review, not_applicable, st, unit))
     out.append(Spacer(1, 3 * mm))
     out.append(Paragraph(
         "Measured values and limits are in the units shown; frequencies are in "
@@ -417,7 +501,7 @@ def _attach(pdf: bytes, review: Review, embedded: Mapping[str, bytes]) -> bytes:
     files = []
     for name in sorted(embedded):
         data = bytes(embedded[name])
-        mime, desc = _EMBED_INFO.get(name, ("application/octet-stream", name))
+        mime, desc = _embed_info(name)
         ef = writer.add_attachment(name, data)
         ef.subtype = NameObject("/" + mime.replace("/", "#2F"))
         ef.description = TextStringObject(desc)

@@ -9,7 +9,7 @@ from typing import Any
 from reportlab.lib.units import mm
 from reportlab.platypus import CondPageBreak, Paragraph, Preformatted, Spacer, Table, TableStyle
 
-from .pdf_evidence import grid_table
+from .pdf_evidence import grid_table, measured_plant_text, method_text
 from .pdf_style import FRAME_W, HEAD_BG, SANS, SANS_BOLD, num, text, zpk_text
 from .plots import FrequencyUnit
 from .review import Review
@@ -40,29 +40,67 @@ def _tf(model: Any, var: str = "s") -> str:
     return f"<font name='LW-Mono' size='7'>{text(tf)}</font>"
 
 
+def _digital_controller(review: Review, st: dict[str, Any], unit: FrequencyUnit
+                        ) -> list[Any]:
+    """The controller as it runs: continuous stages discretised, digital stages, delay."""
+    d = review.design
+    sampling = d.sampling
+    assert sampling is not None
+    loop = d.sampled_loop(d.variants[0])        # the controller is the same for every plant
+    continuous = [s for s in d.controller if s.domain == "s"]
+    digital = [s for s in d.controller if s.domain == "z"]
+    rows = [["Block", "How it was formed", "Transfer function in z"]]
+    blocks = list(loop.stages)
+    if continuous:
+        names = ", ".join(f"controller[{s.index}]" for s in continuous)
+        together = (" (their product, discretised together)" if len(continuous) > 1 else "")
+        rows.append([text(names), f"continuous, discretised by {text(method_text(sampling, unit))}"
+                     f"{together}", "C_d(z) = " + _tf(blocks.pop(0), "z")])
+    for s in digital:
+        rows.append([f"controller[{s.index}]", "digital, as written",
+                     f"C{s.index}(z) = " + _tf(blocks.pop(0), "z")])
+    if sampling.compute_delay_samples:
+        n = sampling.compute_delay_samples
+        rows.append(["compute delay", f"{n} sample(s) between reading the input and writing "
+                                      "the output", f"z^−{n}"])
+    rows.append(["<b>digital controller</b>", "the product, as the computer runs it",
+                 "C(z) = " + _tf(loop.controller, "z")])
+    return [Paragraph("The controller as it runs, in z", st["h3"]),
+            grid_table(rows, st, (18, 32, 50))]
+
+
 def appendix(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[Any]:
     """Appendix A (model as read) and B (rule set)."""
     d = review.design
+    sampling = d.sampling
+    if sampling is None:
+        domains = ("Transfer functions are in s with frequencies in rad/s; parameters are "
+                   f"shown in the design's unit ({text(unit.label)}).")
+    else:
+        domains = ("The controller runs every T = "
+                   f"{num(sampling.period_s)} s: digital stages and the loop are functions "
+                   "of z (descending powers, z = e^(sT)); continuous stages, plant and sensor "
+                   "are shown as read in s (rad/s) and then as the computer sees them, in z. "
+                   f"Parameters are shown in the design's unit ({text(unit.label)}).")
     out: list[Any] = [Paragraph("A  The model as read", st["h1"]),
                       Paragraph(f"Design file {text(d.path)} (sha256 <font name='LW-Mono' "
-                                f"size='7'>{d.sha256}</font>). Transfer functions are in s "
-                                "with frequencies in rad/s; parameters are shown in the "
-                                f"design's unit ({text(unit.label)}).", st["body"])]
+                                f"size='7'>{d.sha256}</font>). {domains}", st["body"])]
 
     out.append(Paragraph("Controller stages, in signal order", st["h3"]))
     rows = [["Stage", "Type", "Parameters", "Transfer function"]]
     for s in d.controller:
-        var = "z" if getattr(s, "domain", "s") == "z" else "s"
+        var = "z" if s.domain == "z" else "s"
         rows.append([f"controller[{s.index}]", text(s.type), text(_params(s.params, unit)),
-                     _tf(s.model, var)])
+                     f"C{s.index}({var}) = " + _tf(s.model, var)])
     out.append(grid_table(rows, st, (14, 10, 34, 42)))
+    if sampling is not None:
+        out += _digital_controller(review, st, unit)
 
     out.append(Paragraph("Plant variants", st["h3"]))
     rows = [["Variant", "Read from", "Transfer function", "Delay"]]
     for v in d.variants:
-        measured = getattr(v, "measured", None)
-        model = (_tf(v.model) if measured is None else
-                 f"measured response {text(measured.file)} ({measured.points} points)")
+        model = ("P(s) = " + _tf(v.model) if v.measured is None else
+                 measured_plant_text(v.measured, unit))
         rows.append([text(v.name), f"{text(v.where)} ({text(v.form)})", model,
                      f"{num(v.delay_s)} s"])
     out.append(grid_table(rows, st, (16, 18, 54, 12)))
@@ -73,23 +111,36 @@ def appendix(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[An
         sensor += f", delay {num(d.sensor_delay_s)} s"
     out.append(Paragraph(sensor, st["body"]))
 
-    sampling = getattr(d, "sampling", None)
     if sampling is not None:
-        out.append(Paragraph("Sampling", st["h3"]))
-        prewarp = (f", prewarp {num(unit.show(sampling.prewarp_rad_s))} {unit.label}"
-                   if sampling.prewarp_rad_s else "")
-        out.append(Paragraph(f"period {num(sampling.period_s)} s, continuous stages "
-                             f"discretised by {text(sampling.method)}{text(prewarp)}, compute "
-                             f"delay {sampling.compute_delay_samples} sample(s); plant, "
-                             "sensor and delays sampled through a zero-order hold.",
-                             st["body"]))
-    if getattr(d.variants[0], "measured", None) is None:
-        nominal = d.loop(d.variants[0])
-        var = "z" if sampling is not None else "s"
-        out.append(Paragraph("Loop, nominal plant", st["h3"]))
-        delay = (f" · e^(−{num(nominal.delay_s)}·s)"
-                 if nominal.delay_s and sampling is None else "")
-        out.append(Paragraph(f"L({var}) = C·P·H = {_tf(nominal.rational, var)}{text(delay)}",
+        out.append(Paragraph("Plant, sensor and delay as the computer sees them", st["h3"]))
+        out.append(Paragraph(
+            "From the computer's output through the zero-order hold, the plant, the sensor "
+            "and every transport delay to the sampler, exactly (matrix exponential; a delay "
+            "that is not a whole number of periods included): P_d(z), in descending powers "
+            "of z.", st["body"]))
+        rows = [["Variant", "Sampled through the hold, in z"]]
+        for v in d.variants:
+            rows.append([text(v.name), "P_d(z) = " + _tf(d.sampled_loop(v).plant, "z")])
+        out.append(grid_table(rows, st, (16, 84)))
+
+    nominal_variant = d.variants[0]
+    out.append(Paragraph("Loop, nominal plant", st["h3"]))
+    if nominal_variant.measured is not None:
+        ctrl = d.continuous_loop(nominal_variant)
+        delay = nominal_variant.delay_s + d.sensor_delay_s
+        h = " · H(s)" if d.sensor is not None else ""
+        out.append(Paragraph(
+            f"L(jω) = C(jω) · P_meas(jω){h}" + (f" · e^(−jω·{num(delay)})" if delay else "")
+            + f", with C(s) = {_tf(ctrl.controller)} and P_meas the measured response "
+            f"{text(nominal_variant.measured.file)}, known on its measured range only.",
+            st["body"]))
+    elif sampling is not None:
+        loop = d.sampled_loop(nominal_variant)
+        out.append(Paragraph(f"L(z) = C(z)·P_d(z) = {_tf(loop.rational, 'z')}", st["body"]))
+    else:
+        nominal = d.continuous_loop(nominal_variant)
+        delay_text = f" · e^(−{num(nominal.delay_s)}·s)" if nominal.delay_s else ""
+        out.append(Paragraph(f"L(s) = C·P·H = {_tf(nominal.rational)}{text(delay_text)}",
                              st["body"]))
 
     req = d.requirements

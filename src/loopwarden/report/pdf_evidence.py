@@ -6,6 +6,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
+from reportlab.lib import colors
 from reportlab.lib.units import inch, mm
 from reportlab.platypus import (
     Flowable,
@@ -34,7 +35,8 @@ from .pdf_style import (
 from .plots import FrequencyUnit, Plot, variant_plots
 from .review import Review
 
-__all__ = ["evidence_section", "alternative_section", "grid_table"]
+__all__ = ["evidence_section", "alternative_section", "grid_table", "method_text",
+           "measured_plant_text"]
 
 
 def grid_table(rows: list[list[str]], st: dict[str, Any], parts: tuple[float, ...],
@@ -128,22 +130,49 @@ def _stability_text(a: LoopAnalysis) -> str:
     s = a.stability
     word = "<b>stable</b>" if s.closed_loop_stable else "<font color='#9b0019'><b>UNSTABLE" \
                                                         "</b></font>"
+    if a.coverage is not None and "closed_loop_stability" in a.coverage.uncovered:
+        return (f"<font color='#5b1a87'><b>not decided</b></font> by the measured range "
+                f"(P = {s.open_loop_rhp_poles} declared open-loop RHP poles): "
+                f"{text(s.note.removeprefix('not decided: '))}")
     if s.method == "nyquist":
         how = (f"Nyquist count: N = {s.clockwise_encirclements} clockwise encirclements, "
                f"P = {s.open_loop_rhp_poles} open-loop RHP poles, "
                f"Z = {s.rhp_closed_loop_poles}")
-    elif getattr(s, "domain", "s") == "z":
+    elif s.domain == "z":
         how = (f"{len(s.closed_loop_poles)} closed-loop poles in z, "
                f"{s.rhp_closed_loop_poles} on or outside the unit circle")
     else:
         how = (f"{len(s.closed_loop_poles)} closed-loop poles, "
                f"{s.rhp_closed_loop_poles} in the closed right half-plane")
     extra = " (a pole on the stability boundary)" if s.marginal else ""
-    note = f" {text(s.note)}" if s.note else ""
+    note = f" {text(s.note[:1].upper() + s.note[1:])}" if s.note else ""
     return f"{word}: {how}{extra}.{note}"
 
 
-def _margin_items(m: Margins, unit: FrequencyUnit) -> list[tuple[str, str]]:
+#: The checks a measured range may leave undecided → the key-figure labels they decide.
+_UNDECIDED_LABELS = {
+    "gain_margin": ("Gain margin", "Gain-reduction margin"),
+    "phase_margin": ("Phase margin",),
+    "delay_margin": ("Delay margin",),
+    "peak_sensitivity": ("Peak sensitivity Ms",),
+    "peak_complementary": ("Peak compl. Mt",),
+    "disk_margin": ("Disk margin α",),
+}
+UNDECIDED = "<font color='#5b1a87'><b>not decided</b></font> by the measured range (below)"
+#: Tracking fields a measured plant leaves unknown → the label shown instead of a number.
+UNKNOWN = "unknown (needs the plant's low-frequency gain)"
+
+
+def _delay_text(delay_s: float, period_s: float | None) -> str:
+    """A delay margin in seconds and, for a sampled loop, in samples of the period."""
+    shown = f"{num(delay_s)} s"
+    if period_s is not None and math.isfinite(delay_s):
+        shown += f" = {num(delay_s / period_s)} samples"
+    return shown
+
+
+def _margin_items(m: Margins, unit: FrequencyUnit,
+                  period_s: float | None = None) -> list[tuple[str, str]]:
     gm = f"{num(m.gain_margin_db)} dB"
     if m.phase_crossover_rad_s is not None:
         gm += f" @ {_freq(m.phase_crossover_rad_s, unit)}"
@@ -151,14 +180,59 @@ def _margin_items(m: Margins, unit: FrequencyUnit) -> list[tuple[str, str]]:
     if m.gain_crossover_rad_s is not None:
         pm += f" @ {_freq(m.gain_crossover_rad_s, unit)}"
     lower = "—" if m.gain_margin_lower_db is None else f"{num(m.gain_margin_lower_db)} dB"
+    delay = f"{num(m.delay_margin_s)} s"
+    if m.delay_margin_samples is not None:
+        delay += f" = {num(m.delay_margin_samples)} samples"
+    elif period_s is not None:
+        delay = _delay_text(m.delay_margin_s, period_s)
     return [("Gain margin", gm), ("Gain-reduction margin", lower), ("Phase margin", pm),
-            ("Delay margin", f"{num(m.delay_margin_s)} s"),
+            ("Delay margin", delay),
             ("Crossings", f"{len(m.gain_crossings)} gain, {len(m.phase_crossings)} phase")]
 
 
+def _tracking_items(a: LoopAnalysis) -> list[tuple[str, str]]:
+    tr = a.tracking
+
+    def value(name: str, unit_text: str = "") -> str:
+        if name in tr.unknown:
+            return "unknown"
+        return f"{num(getattr(tr, name))}{unit_text}"
+
+    items = [("System type", str(tr.system_type)),
+             ("Kp / Kv / Ka", f"{value('kp')} / {value('kv', ' 1/s')} / "
+                              f"{value('ka', ' 1/s²')}"),
+             ("Steady-state errors", f"step {value('step_error')}, ramp "
+                                     f"{value('ramp_error')}, parabola "
+                                     f"{value('parabola_error')}")]
+    if tr.unknown:
+        items.append(("Unknown constants", f"{', '.join(tr.unknown)}: {UNKNOWN}"))
+    return items
+
+
+def _measured_marks(items: list[tuple[str, str]], a: LoopAnalysis) -> list[tuple[str, str]]:
+    """Key figures of a measured loop: undecided ones replaced, bounded ones marked."""
+    assert a.coverage is not None
+    undecided = {label for check in a.coverage.uncovered
+                 for label in _UNDECIDED_LABELS.get(check, ())}
+    bounded = {label: check for check in a.coverage.bounded
+               for label in _UNDECIDED_LABELS.get(check, ())[:1]}
+    out = []
+    for label, value in items:
+        if label in undecided:
+            value = UNDECIDED
+        elif label == "Gain margin" and label in bounded:
+            value = (f"at least {value} (no phase crossover in the sweep and |L| ≤ −60 dB at "
+                     "its top: a bound, not a crossing)")
+        elif label in bounded:
+            value += " (set at an end of the sweep: a bound, not a measured peak)"
+        out.append((label, value))
+    return out
+
+
 def _key_figures(a: LoopAnalysis, st: dict[str, Any], unit: FrequencyUnit) -> list[Any]:
-    sens, tr = a.sensitivity, a.tracking
-    items = _margin_items(a.margins, unit)
+    sens = a.sensitivity
+    period = a.sampling.period_s if a.sampling is not None else None
+    items = _margin_items(a.margins, unit, period)
     items += [
         ("Peak sensitivity Ms", f"{num(sens.peak_sensitivity)} "
                                 f"({num(20 * math.log10(sens.peak_sensitivity))} dB) @ "
@@ -167,11 +241,10 @@ def _key_figures(a: LoopAnalysis, st: dict[str, Any], unit: FrequencyUnit) -> li
                            f"{_freq(sens.peak_complementary_rad_s, unit)}"),
         ("Disk margin α", f"{num(sens.disk_margin)}: gain {num(sens.disk_gain_low, 3)}–"
                           f"{num(sens.disk_gain_high, 3)}×, phase ±{num(sens.disk_phase_deg, 3)}°"),
-        ("System type", str(tr.system_type)),
-        ("Kp / Kv / Ka", f"{num(tr.kp)} / {num(tr.kv)} 1/s / {num(tr.ka)} 1/s²"),
-        ("Steady-state errors", f"step {num(tr.step_error)}, ramp {num(tr.ramp_error)}, "
-                                f"parabola {num(tr.parabola_error)}"),
     ]
+    items += _tracking_items(a)
+    if a.coverage is not None:
+        items = _measured_marks(items, a)
     if a.step is not None:
         sm = a.step
         items += [
@@ -180,7 +253,8 @@ def _key_figures(a: LoopAnalysis, st: dict[str, Any], unit: FrequencyUnit) -> li
             ("Rise time 10–90 %", "—" if sm.rise_time_s is None else f"{num(sm.rise_time_s)} s"),
             ("Settling time", f"{num(sm.settling_time_s)} s ({100 * sm.settling_band:g} % band, "
                               f"{num(sm.horizon_s)} s simulated"
-                              + (", delay exact" if sm.exact_delay else "") + ")"),
+                              + (", delay exact" if sm.exact_delay else "")
+                              + (", at t = kT" if a.sampling is not None else "") + ")"),
         ]
     if a.slow_tail is not None:
         items.append(("Settling without tail",
@@ -201,6 +275,28 @@ def _key_figures(a: LoopAnalysis, st: dict[str, Any], unit: FrequencyUnit) -> li
 MAX_LISTED_PHASE = 8
 
 
+def _beyond_the_sweep(a: LoopAnalysis, unit: FrequencyUnit) -> list[list[str]]:
+    """Rows for crossings a measured range leaves open, flagged in the crossings table."""
+    from .plots import uncovered_sides
+
+    cov = a.coverage
+    if cov is None:
+        return []
+    rows = []
+    for side in ("above", "below"):
+        checks = sorted(c for c, where in uncovered_sides(a).items() if where == side)
+        if not checks:
+            continue
+        edge = cov.frequency_max_rad_s if side == "above" else cov.frequency_min_rad_s
+        kind = ("phase" if checks == ["gain_margin"] else "gain")
+        rows.append([f"<font color='#9b0019'><b>{kind} crossing {side} the sweep?"
+                     "</b></font>",
+                     f"{'&gt;' if side == 'above' else '&lt;'} {num(unit.show(edge))}",
+                     "not measured: " + text(", ".join(checks)) + " not decided", "—",
+                     "unknown"])
+    return rows
+
+
 def _crossings(a: LoopAnalysis, st: dict[str, Any], unit: FrequencyUnit) -> list[Any]:
     m = a.margins
     rows = [["Crossing", f"Frequency ({text(unit.label)})", "Margin", "Delay margin",
@@ -217,14 +313,16 @@ def _crossings(a: LoopAnalysis, st: dict[str, Any], unit: FrequencyUnit) -> list
                 f"{_freq(min(p.frequency_rad_s for p in rest), unit)} and "
                 f"{_freq(max(p.frequency_rad_s for p in rest), unit)}; their gain margins "
                 f"are all at least {num(min(abs(p.gain_margin_db) for p in rest), 3)} dB.")
+    period = a.sampling.period_s if a.sampling is not None else None
     for g in m.gain_crossings:
         rows.append(["gain, |L| = 1", num(unit.show(g.frequency_rad_s)),
-                     f"PM {num(g.phase_margin_deg)}°", f"{num(g.delay_margin_s)} s",
+                     f"PM {num(g.phase_margin_deg)}°", _delay_text(g.delay_margin_s, period),
                      "yes" if g.frequency_rad_s == m.gain_crossover_rad_s else ""])
     for p in phases:
         rows.append(["phase, ∠L = −180°", num(unit.show(p.frequency_rad_s)),
                      f"GM {num(p.gain_margin_db)} dB (|L| = {num(p.magnitude)})", "",
                      "yes" if p.frequency_rad_s == m.phase_crossover_rad_s else ""])
+    rows += _beyond_the_sweep(a, unit)
     if len(rows) == 1:
         return []
     out: list[Any] = [Paragraph("Every crossing", st["h3"]),
@@ -266,52 +364,120 @@ def _boosts(a: LoopAnalysis, st: dict[str, Any], unit: FrequencyUnit) -> list[An
             grid_table(rows, st, (18, 20, 10, 13, 13, 14, 26))]
 
 
+def measured_plant_text(measured: Any, unit: FrequencyUnit) -> str:
+    """"measured frequency response: FILE (sha256 …, N points, range, declarations)"."""
+    return (f"measured frequency response: <b>{text(measured.file)}</b> (sha256 "
+            f"<font name='LW-Mono' size='7'>{measured.sha256}</font>, {measured.points} "
+            f"points, {_freq(measured.frequency_min_rad_s, unit)} to "
+            f"{_freq(measured.frequency_max_rad_s, unit)}, declared unstable poles "
+            f"{measured.unstable_poles}, declared integrators {measured.integrators})")
+
+
 def _plant_text(variant: Any, unit: FrequencyUnit) -> str:
     """One line saying which plant this variant is: its model, or its measured response."""
     delay = f", transport delay {num(variant.delay_s)} s" if variant.delay_s else ""
     where = "" if variant.where == "plant" else f" ({text(variant.where)})"
-    measured = getattr(variant, "measured", None)
-    if measured is not None:
-        return (f"Plant{where}: measured frequency response <b>{text(measured.file)}</b>, "
-                f"{measured.points} points from {_freq(measured.frequency_min_rad_s, unit)} "
-                f"to {_freq(measured.frequency_max_rad_s, unit)} (sha256 <font "
-                f"name='LW-Mono' size='7'>{measured.sha256}</font>){delay}.")
+    if variant.measured is not None:
+        return f"Plant{where}: {measured_plant_text(variant.measured, unit)}{delay}."
     model = variant.model
     plant = zpk_text(model.zeros, model.poles, model.gain)
     return (f"Plant{where}: P(s) = <font name='LW-Mono' size='7.6'>{text(plant)}</font>"
             f"{delay}.")
 
 
+_METHOD_NAMES = {"tustin": "Tustin (bilinear)", "zoh": "zero-order hold (step invariant)",
+                 "matched": "matched pole-zero"}
+
+
+def method_text(sampling: Any, unit: FrequencyUnit) -> str:
+    """How continuous stages are discretised, with the period: "Tustin …, T = 0.05 s"."""
+    name = _METHOD_NAMES.get(sampling.method, sampling.method)
+    if sampling.prewarp_rad_s:
+        name += f" prewarped at {_freq(sampling.prewarp_rad_s, unit)}"
+    return f"{name}, T = {num(sampling.period_s)} s"
+
+
+#: The inter-sample caveat, printed on every sampled variant's evidence page.
+BETWEEN_SAMPLES = (
+    "<b>Only the sampling instants are analysed.</b> Every figure and plot for this variant "
+    "describes the loop at t = kT, as the controller sees it. What the plant output does "
+    "between two instants is not computed, so ripple or a hidden oscillation between "
+    "samples would not show here, and disturbances above the Nyquist frequency fold back "
+    "onto lower frequencies. Where the output between samples matters, check it with a "
+    "continuous-time simulation or on the machine.")
+
+
+def _caveat_box(body: str, st: dict[str, Any]) -> Table:
+    box = Table([[Paragraph(body, st["small"])]], colWidths=[FRAME_W])
+    box.setStyle(TableStyle([("BACKGROUND", (0, 0), (-1, -1), colors.HexColor("#fdf0d9")),
+                             ("LINEBEFORE", (0, 0), (0, -1), 3, colors.HexColor("#8a4b00")),
+                             ("LEFTPADDING", (0, 0), (-1, -1), 7),
+                             ("TOPPADDING", (0, 0), (-1, -1), 4),
+                             ("BOTTOMPADDING", (0, 0), (-1, -1), 4)]))
+    return box
+
+
 def _sampled_and_measured(a: LoopAnalysis, st: dict[str, Any],
                           unit: FrequencyUnit) -> list[Any]:
     """What sampling does to this loop, and what a measured response leaves undecided."""
     out: list[Any] = []
-    sampling = getattr(a, "sampling", None)
+    sampling = a.sampling
     if sampling is not None:
         bw = sampling.closed_loop_bandwidth_rad_s
-        prewarp = (f", prewarped at {_freq(sampling.prewarp_rad_s, unit)}"
-                   if sampling.prewarp_rad_s else "")
         out.append(Paragraph(
-            f"Sampled loop: period {num(sampling.period_s)} s ({text(sampling.method)}"
-            f"{prewarp}), compute delay {sampling.compute_delay_samples} sample(s), "
-            f"plant delay {num(sampling.plant_delay_samples)} samples; Nyquist frequency "
+            f"Sampled loop: continuous stages discretised by "
+            f"{text(method_text(sampling, unit))}; compute delay "
+            f"{sampling.compute_delay_samples} sample(s), plant delay "
+            f"{num(sampling.plant_delay_samples)} samples; Nyquist frequency π/T = "
             f"{_freq(sampling.nyquist_rad_s, unit)}; closed-loop bandwidth "
             f"{_freq(bw, unit) if bw is not None else 'not below the Nyquist frequency'}, "
-            f"sample rate {num(sampling.sample_rate_ratio, 3)}× the bandwidth. "
-            f"{text(sampling.note)}", st["body"]))
-    coverage = getattr(a, "coverage", None)
+            f"sample rate {num(sampling.sample_rate_ratio, 3)}× the bandwidth.", st["body"]))
+        out.append(_caveat_box(BETWEEN_SAMPLES, st))
+        out.append(Spacer(1, 2 * mm))
+    coverage = a.coverage
     if coverage is not None:
         out.append(Paragraph(
-            f"Measured response {text(coverage.file)}: {coverage.points} points, "
-            f"{_freq(coverage.frequency_min_rad_s, unit)} to "
-            f"{_freq(coverage.frequency_max_rad_s, unit)}; |L| from "
-            f"{num(coverage.loop_gain_at_min, 3)} to {num(coverage.loop_gain_at_max, 3)} "
-            f"across it; declared open-loop unstable poles {coverage.unstable_poles}, "
-            f"integrators {coverage.integrators}. {text(coverage.assumptions)}", st["body"]))
+            f"On the measured range |L| runs from {num(coverage.loop_gain_at_min, 3)} to "
+            f"{num(coverage.loop_gain_at_max, 3)}; the loop has {coverage.integrators} "
+            f"integrator(s) (controller and declared). {text(coverage.assumptions)}",
+            st["body"]))
+        by_reason: dict[str, list[str]] = {}
         for check, why in sorted(coverage.uncovered.items()):
-            out.append(Paragraph(f"<b>{text(check)}</b> not decided by the measured range: "
-                                 f"{text(why)}", st["small"]))
+            by_reason.setdefault(why, []).append(check)
+        for why, checks in by_reason.items():
+            out.append(Paragraph(f"<font color='#5b1a87'><b>Not decided by the measured range"
+                                 f"</b></font> ({text(', '.join(checks))}): {text(why)}",
+                                 st["small"]))
+        if coverage.uncovered:
+            out.append(Spacer(1, 2 * mm))
     return out
+
+
+def _absent_figures(plots: dict[str, Plot], st: dict[str, Any]) -> list[Any]:
+    """A short note for each figure that is not drawn, saying why (empty when all are)."""
+    from .plots import MODEL_FIGURES
+
+    names = {"poles": "Pole-zero map", "time": "Step and ramp responses"}
+    missing = [k for k in ("poles", "time") if k not in plots]
+    out: list[Any] = [Paragraph(f"<b>{names[k]}: not drawn.</b> {text(MODEL_FIGURES[k])}; "
+                                "the review shows nothing it could only guess.", st["body"])
+                      for k in missing]
+    if out:
+        out.append(Paragraph("The frequency-domain figures are drawn from the measured "
+                             "response itself, on its measured range.", st["small"]))
+    return out
+
+
+def _figure_beside(plot: Plot, notes: list[Any], st: dict[str, Any]) -> Table:
+    """A square figure with notes in the other half of the width."""
+    table = Table([[[Picture(plot), Paragraph(text(plot.caption), st["caption"])], notes]],
+                  colWidths=[FRAME_W / 2, FRAME_W / 2])
+    table.setStyle(TableStyle([("VALIGN", (0, 0), (-1, -1), "TOP"),
+                               ("LEFTPADDING", (0, 0), (-1, -1), 2),
+                               ("RIGHTPADDING", (0, 0), (-1, -1), 2),
+                               ("TOPPADDING", (1, 0), (1, 0), 14),
+                               ("BACKGROUND", (1, 0), (1, 0), ZEBRA)]))
+    return table
 
 
 def evidence_section(review: Review, a: LoopAnalysis, st: dict[str, Any],
@@ -325,22 +491,48 @@ def evidence_section(review: Review, a: LoopAnalysis, st: dict[str, Any],
     out += _crossings(a, st, unit)
     out += _slow_pairs(a, st)
     out += _boosts(a, st, unit)
-    if a.errors:
-        out.append(Paragraph("Not computed", st["h3"]))
-        for part, why in sorted(a.errors.items()):
-            out.append(Paragraph(f"<b>{text(part)}</b>: {text(why)}", st["small"]))
-    not_applicable = getattr(a, "not_applicable", None) or {}
-    if not_applicable:
-        out.append(Paragraph("Not applicable to this loop", st["h3"]))
-        for part, why in sorted(not_applicable.items()):
-            out.append(Paragraph(f"<b>{text(part)}</b>: {text(why)}", st["small"]))
     out.append(Spacer(1, 3 * mm))
     plots = variant_plots(review.design, a)
+    notes = _notes(a, st)
     # The square pair first: it fits under the tables more often than the tall Bode plot.
-    out.append(_side_by_side(plots["nyquist"], plots["poles"], st))
+    if "poles" in plots:
+        out.append(_side_by_side(plots["nyquist"], plots["poles"], st))
+    else:
+        # The half page beside the Nyquist plot holds why the other figures are absent
+        # and what else was not computed.
+        out.append(_figure_beside(plots["nyquist"], _absent_figures(plots, st)
+                                  + _notes(a, st, compact=True), st))
+        notes = []
     out.append(_figure(plots["bode"], st))
-    out.append(_figure(plots["time"], st))
+    if "time" in plots:
+        out.append(_figure(plots["time"], st))
     out.append(_figure(plots["sensitivity"], st))
+    # Notes last: the figures fit under the tables more often without them in between.
+    return out + notes
+
+
+def _notes(a: LoopAnalysis, st: dict[str, Any], *, compact: bool = False) -> list[Any]:
+    """What was not computed for this variant, and what does not apply to it, with why.
+
+    ``compact``: names only, in one paragraph (the reasons are in the findings table).
+    """
+    if compact:
+        parts = []
+        if a.errors:
+            parts.append("<b>Not computed:</b> " + text("; ".join(
+                f"{k} ({v})" for k, v in sorted(a.errors.items()))))
+        if a.not_applicable:
+            parts.append("<b>Not applicable to this loop:</b> "
+                         + text(", ".join(sorted(a.not_applicable)))
+                         + "; each finding in section 1 gives the reason.")
+        return [Spacer(1, 2 * mm), Paragraph("<br/>".join(parts), st["small"])] if parts else []
+    out: list[Any] = []
+    for title, items in (("Not computed", a.errors), ("Not applicable to this loop",
+                                                      a.not_applicable)):
+        if items:
+            out.append(Paragraph(title, st["h3"]))
+            out += [Paragraph(f"<b>{text(part)}</b>: {text(why)}", st["small"])
+                    for part, why in sorted(items.items())]
     return out
 
 

@@ -241,6 +241,117 @@ def _interp_log(w_rad_s: NDArray[np.float64], y: NDArray[np.float64], at_rad_s: 
     return float(np.interp(math.log(at_rad_s), np.log(w_rad_s), y))
 
 
+# --------------------------------------------------------------------------- frequency view
+#: A measured response is drawn with this factor of unmeasured axis on either side, so that
+#: the ends of the sweep are visible as ends (and not mistaken for the ends of the plot).
+MEASURED_MARGIN = 10.0 ** 0.3
+
+
+def frequency_view(analysis: LoopAnalysis, unit: FrequencyUnit) -> tuple[float, float]:
+    """The frequency axis of the Bode and sensitivity figures, in the shown unit.
+
+    The stored curve's range, except: a sampled loop's axis ends exactly at the Nyquist
+    frequency π/T (L(e^{jωT}) repeats beyond it, so nothing further exists to draw); a
+    measured loop's axis extends :data:`MEASURED_MARGIN` beyond each end of the sweep.
+    """
+    assert analysis.curves is not None
+    w = analysis.curves.frequency_rad_s
+    lo, hi = float(w[0]), float(w[-1])
+    if analysis.sampling is not None:
+        hi = analysis.sampling.nyquist_rad_s
+    if analysis.coverage is not None:
+        lo = min(lo, analysis.coverage.frequency_min_rad_s) / MEASURED_MARGIN
+        hi = max(hi, analysis.coverage.frequency_max_rad_s) * MEASURED_MARGIN
+    return unit.show(lo), unit.show(hi)
+
+
+def _mark_nyquist_frequency(analysis: LoopAnalysis, unit: FrequencyUnit,
+                            axes: Sequence[Axes]) -> None:
+    """A sampled loop: the axis ends at π/T; say so at the end of the axis."""
+    if analysis.sampling is None:
+        return
+    fn = unit.show(analysis.sampling.nyquist_rad_s)
+    for ax in axes:
+        ax.axvline(fn, color=C_FAIL, linewidth=0.9, linestyle="-.")
+    axes[0].annotate(f"Nyquist frequency\nπ/T = {fn:.4g} {unit.label}", (fn, 1.0),
+                     xycoords=("data", "axes fraction"), xytext=(-4, -4),
+                     textcoords="offset points", ha="right", va="top", fontsize=6.5,
+                     color=C_FAIL, bbox={"boxstyle": "round,pad=0.15", "fc": "white",
+                                         "ec": "none", "alpha": 0.85})
+
+
+def uncovered_sides(analysis: LoopAnalysis) -> dict[str, str]:
+    """Checks the sweep leaves undecided → "above" or "below" (the side of the sweep
+    where the crossing may lie), or "" when the side is not known.
+
+    Read from the coverage the analysis recorded: |L| ≥ 1 at the top of the sweep means a
+    gain crossover above it; otherwise a gain margin left open has its phase crossover
+    above the sweep, and the other margins a gain crossover below it.
+    """
+    cov = analysis.coverage
+    if cov is None:
+        return {}
+    out = {}
+    for check in cov.uncovered:
+        if cov.loop_gain_at_max >= 1.0 or check == "gain_margin":
+            out[check] = "above"
+        elif cov.loop_gain_at_min <= 1.0:
+            out[check] = "below"
+        else:
+            out[check] = ""
+    return out
+
+
+def _mark_measured_range(analysis: LoopAnalysis, unit: FrequencyUnit,
+                         axes: Sequence[Axes]) -> str:
+    """Shade the measured range, hatch what lies outside it, flag crossings beyond it.
+
+    Returns the caption sentence that explains the marks.
+    """
+    cov = analysis.coverage
+    if cov is None:
+        return ""
+    lo, hi = unit.show(cov.frequency_min_rad_s), unit.show(cov.frequency_max_rad_s)
+    view_lo, view_hi = frequency_view(analysis, unit)
+    for i, ax in enumerate(axes):
+        ax.axvspan(lo, hi, color="#eef3f9", linewidth=0, zorder=0,
+                   label="measured range" if i == 0 else None)
+        for a, b in ((view_lo, lo), (hi, view_hi)):
+            ax.axvspan(a, b, facecolor="none", edgecolor="#c8c8c8", hatch="////",
+                       linewidth=0, zorder=0)
+        for edge in (lo, hi):
+            ax.axvline(edge, color=C_MARK, linewidth=0.7)
+    top = axes[0]
+    for x, ha in ((math.sqrt(view_lo * lo), "center"), (math.sqrt(hi * view_hi), "center")):
+        top.text(x, 0.5, "not measured", transform=top.get_xaxis_transform(), rotation=90,
+                 ha=ha, va="center", fontsize=6.3, color=C_MARK,
+                 bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none",
+                       "alpha": 0.9})
+    sides = uncovered_sides(analysis)
+    for side in ("above", "below"):
+        names = sorted(c for c, s in sides.items() if s == side)
+        if not names:
+            continue
+        x = math.sqrt(hi * view_hi) if side == "above" else math.sqrt(view_lo * lo)
+        top.annotate("crossing\nbeyond\nthe sweep?" if side == "above" else
+                     "crossing\nbelow\nthe sweep?", (x, 0.97),
+                     xycoords=("data", "axes fraction"), ha="center", va="top",
+                     fontsize=6.2, color=C_FAIL, fontweight="bold",
+                     bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none"})
+    caption = (f" Shaded: the measured range of {cov.file}, {_fmt(lo)}–{_fmt(hi)} "
+               f"{unit.label} ({cov.points} points); hatched: not measured, nothing is "
+               "drawn or assumed there.")
+    for side in ("above", "below"):
+        names = sorted(c for c, s in sides.items() if s == side)
+        if names:
+            caption += (f" Not decided by the sweep, a crossing may lie {side} it: "
+                        f"{', '.join(names)} (red mark; extend the sweep).")
+    unknown = sorted(c for c, s in sides.items() if not s)
+    if unknown:
+        caption += f" Not decided by the sweep: {', '.join(unknown)}."
+    return caption
+
+
 # --------------------------------------------------------------------------- open loop
 #: At most this many gain and phase crossings are marked in a figure (the ones with the
 #: smallest margins); a delay makes the phase cross −180° again and again at high frequency.
@@ -292,7 +403,7 @@ def bode_figure(analysis: LoopAnalysis, unit: FrequencyUnit, *,
         ax_m.semilogx(f, mag, color=C_MAIN, label="|L(jω)|")
         ax_m.axhline(0.0, color=C_MARK, linewidth=0.7, linestyle="--")
         ax_p.semilogx(f, ph, color=C_MAIN, label="∠L(jω)")
-        ax_m.set_xlim(f[0], f[-1])
+        ax_m.set_xlim(*frequency_view(analysis, unit))
 
         # Phase view: up to a decade past the last marked crossing.  Beyond it a delay's
         # phase falls without bound and would squash the interesting part flat.
@@ -328,14 +439,8 @@ def bode_figure(analysis: LoopAnalysis, unit: FrequencyUnit, *,
             _label(ax_m, fp, -pc.gain_margin_db / 2.0,
                    f"GM {_fmt(pc.gain_margin_db)} dB\n@ {_fmt(fp)} {unit.label}", col)
 
-        sampling = getattr(analysis, "sampling", None)
-        if sampling is not None and w[0] <= sampling.nyquist_rad_s <= w[-1] * 1.001:
-            fn = unit.show(sampling.nyquist_rad_s)
-            for ax in (ax_m, ax_p):
-                ax.axvline(fn, color=C_FAIL, linewidth=0.8, linestyle="-.")
-            ax_m.annotate("Nyquist\nfrequency", (fn, 1.0), xycoords=("data", "axes fraction"),
-                          xytext=(-4, -4), textcoords="offset points", ha="right", va="top",
-                          fontsize=6.5, color=C_FAIL)
+        _mark_nyquist_frequency(analysis, unit, (ax_m, ax_p))
+        coverage_caption = _mark_measured_range(analysis, unit, (ax_m, ax_p))
 
         # Magnitude view: clip the steep ends, but never hide a marked gain-margin arrow.
         need = [0.0] + [-pc.gain_margin_db for pc in phases]
@@ -353,6 +458,14 @@ def bode_figure(analysis: LoopAnalysis, unit: FrequencyUnit, *,
         _place(fig, rows=2, hgap=0.08)
         gm = "∞" if math.isinf(m.gain_margin_db) else f"{_fmt(m.gain_margin_db)} dB"
         pm = "∞" if math.isinf(m.phase_margin_deg) else f"{_fmt(m.phase_margin_deg)}°"
+        cov = analysis.coverage
+        if cov is not None:
+            if "gain_margin" in cov.bounded:
+                gm = f"at least {gm} (bound at the top of the sweep)"
+            if "gain_margin" in cov.uncovered:
+                gm = "not decided by the sweep"
+            if "phase_margin" in cov.uncovered:
+                pm = "not decided by the sweep"
         omitted = (len(m.gain_crossings) - len(gains)
                    + sum(1 for p in m.phase_crossings if 0 < p.frequency_rad_s < math.inf)
                    - len(phases))
@@ -362,6 +475,11 @@ def bode_figure(analysis: LoopAnalysis, unit: FrequencyUnit, *,
         if omitted > 0:
             caption += (f" {omitted} further crossing{'s' if omitted != 1 else ''} with larger "
                         "margins not drawn (see the table of crossings).")
+        if analysis.sampling is not None:
+            caption += (" The frequency axis ends at the Nyquist frequency π/T = "
+                        f"{unit.show(analysis.sampling.nyquist_rad_s):.4g} {unit.label} "
+                        "(dash-dotted): the sampled response repeats beyond it.")
+        caption += coverage_caption
         return Plot(key="bode", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
                     caption=caption)
 
@@ -376,6 +494,8 @@ def nyquist_figure(analysis: LoopAnalysis, *, width_in: float = 3.2,
         ax = fig.subplots()
         curves = analysis.curves
         ms = analysis.sensitivity.peak_sensitivity
+        ms_decided = (analysis.coverage is None
+                      or "peak_sensitivity" not in analysis.coverage.uncovered)
         if curves is None or curves.open_loop.size < 2:
             _no_data(ax, "no frequency response was computed")
         else:
@@ -383,7 +503,7 @@ def nyquist_figure(analysis: LoopAnalysis, *, width_in: float = 3.2,
             theta = np.linspace(0.0, 2.0 * math.pi, 361)
             ax.plot(np.cos(theta), np.sin(theta), color=C_MARK, linewidth=0.6,
                     linestyle="--", label="unit circle")
-            if math.isfinite(ms) and ms > 0:
+            if ms_decided and math.isfinite(ms) and ms > 0:
                 r = 1.0 / ms
                 ax.fill(-1.0 + r * np.cos(theta), r * np.sin(theta), color=C_FAIL, alpha=0.10,
                         linewidth=0)
@@ -400,6 +520,7 @@ def nyquist_figure(analysis: LoopAnalysis, *, width_in: float = 3.2,
                 ax.plot([math.cos(phi)], [math.sin(phi)], "o", color=C_SECOND, markersize=3)
             for pc in phases:
                 ax.plot([-pc.magnitude], [0.0], "s", color=C_SECOND, markersize=3)
+            end_note = _nyquist_ends(ax, analysis)
             ax.set_xlim(-3.0, 1.5)
             ax.set_ylim(-2.25, 2.25)
             ax.set_aspect("equal")
@@ -413,8 +534,36 @@ def nyquist_figure(analysis: LoopAnalysis, *, width_in: float = 3.2,
         caption = (f"Nyquist curve near −1, {analysis.variant}. The shaded disc (centre −1, "
                    f"radius 1/Ms) is the closest the curve comes to −1: Ms = {_fmt(ms)}. "
                    "Dots: gain crossings on the unit circle; squares: phase crossings.")
+        if not ms_decided:
+            caption = (f"Nyquist curve near −1, {analysis.variant}. No Ms disc: the measured "
+                       "range does not decide how close the curve comes to −1. Dots: gain "
+                       "crossings on the unit circle; squares: phase crossings.")
+        if curves is not None and curves.open_loop.size >= 2:
+            caption += end_note
         return Plot(key="nyquist", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
                     caption=caption)
+
+
+def _nyquist_ends(ax: Axes, analysis: LoopAnalysis) -> str:
+    """Mark where the curve ends, when it ends at a finite frequency; the caption's words.
+
+    A sampled loop's curve ends at ω = π/T, where L(−1) is real and the curve meets its
+    mirror image; a measured loop's curve covers the sweep only.
+    """
+    assert analysis.curves is not None
+    L = analysis.curves.open_loop
+    if analysis.sampling is not None:
+        ax.plot([L[-1].real], [L[-1].imag], "D", color=C_FAIL, markersize=3.5,
+                label="ω = π/T (Nyquist frequency)")
+        return (" The curve ends at the Nyquist frequency ω = π/T (red diamond), where it "
+                "meets its mirror image on the real axis.")
+    if analysis.coverage is not None:
+        for k in (0, -1):
+            ax.plot([L[k].real], [L[k].imag], "D", color=C_MARK, markersize=3.5,
+                    label="ends of the sweep" if k == 0 else None)
+        return (f" Drawn over the measured range of {analysis.coverage.file} only (grey "
+                "diamonds: its ends); outside it the response is not known.")
+    return ""
 
 
 def _direction_arrows(ax: Axes, L: NDArray[np.complex128]) -> None:
@@ -469,19 +618,35 @@ def sensitivity_figure(analysis: LoopAnalysis, unit: FrequencyUnit, *,
         ax_s.semilogx(f, _db(np.abs(S)), color=C_MAIN, label="|S| (error / reference)")
         ax_s.semilogx(f, _db(np.abs(T)), color=C_SECOND, label="|T| (output / reference)")
         ax_s.axhline(0.0, color=C_MARK, linewidth=0.6, linestyle="--")
-        for peak, at, col, name in ((sens.peak_sensitivity, sens.peak_sensitivity_rad_s,
-                                     C_MAIN, "Ms"),
-                                    (sens.peak_complementary, sens.peak_complementary_rad_s,
-                                     C_SECOND, "Mt")):
-            if math.isfinite(peak) and peak > 0 and w[0] <= at <= w[-1]:
-                ax_s.plot([unit.show(at)], [20.0 * math.log10(peak)], "v", color=col,
-                          markersize=4)
+        ax_s.set_xlim(*frequency_view(analysis, unit))        # shared with ax_i
+        framed = [ax for ax in (ax_s, ax_i) if ax is not None]
+        _mark_nyquist_frequency(analysis, unit, framed)
+        coverage_caption = _mark_measured_range(analysis, unit, framed)
+        undecided = analysis.coverage.uncovered if analysis.coverage is not None else {}
+        view_lo, view_hi = (math.log(x) for x in ax_s.get_xlim())
+
+        def where(at_rad_s: float) -> float:         # 0 … 1 across the axis
+            return (math.log(max(unit.show(at_rad_s), 1e-300)) - view_lo) / (view_hi - view_lo)
+
+        # Ms right of its marker unless near the right end; Mt on the other side when the
+        # two are close (they often are), else wherever there is room.
+        ms_right = where(sens.peak_sensitivity_rad_s) < 0.72
+        close = abs(where(sens.peak_sensitivity_rad_s)
+                    - where(sens.peak_complementary_rad_s)) < 0.2
+        mt_right = (not ms_right) if close else where(sens.peak_complementary_rad_s) < 0.3
+        for peak, at, col, name, check, right in (
+                (sens.peak_sensitivity, sens.peak_sensitivity_rad_s, C_MAIN, "Ms",
+                 "peak_sensitivity", ms_right),
+                (sens.peak_complementary, sens.peak_complementary_rad_s, C_SECOND, "Mt",
+                 "peak_complementary", mt_right)):
+            if (math.isfinite(peak) and peak > 0 and w[0] <= at <= w[-1]
+                    and check not in undecided):
+                x = unit.show(at)
+                ax_s.plot([x], [20.0 * math.log10(peak)], "v", color=col, markersize=4)
                 ax_s.annotate(f"{name} {_fmt(peak)} ({_fmt(20 * math.log10(peak))} dB)",
-                              (unit.show(at), 20.0 * math.log10(peak)),
-                              textcoords="offset points",
-                              xytext=(6, 4) if name == "Ms" else (-6, 4),
-                              ha="left" if name == "Ms" else "right", color=col,
-                              fontsize=6.8)
+                              (x, 20.0 * math.log10(peak)), textcoords="offset points",
+                              xytext=(6, 4) if right else (-6, 4),
+                              ha="left" if right else "right", color=col, fontsize=6.8)
         if reference_band_rad_s is not None:
             for ax in (ax_s, ax_i):
                 if ax is not None:
@@ -513,15 +678,21 @@ def sensitivity_figure(analysis: LoopAnalysis, unit: FrequencyUnit, *,
             _style(ax_i)
             bottom = ax_i
         bottom.set_xlabel(f"frequency ({unit.label})")
-        ax_s.set_xlim(f[0], f[-1])
         _place(fig, top=0.42, left=0.66, rows=2 if ax_i is not None else 1,
                hgap=0.08)
+        ms = ("not decided by the sweep" if "peak_sensitivity" in undecided
+              else _fmt(sens.peak_sensitivity))
+        mt = ("not decided by the sweep" if "peak_complementary" in undecided
+              else _fmt(sens.peak_complementary))
         caption = (f"Sensitivity and complementary sensitivity, {analysis.variant}: "
-                   f"Ms = {_fmt(sens.peak_sensitivity)}, Mt = {_fmt(sens.peak_complementary)}.")
+                   f"Ms = {ms}, Mt = {mt}.")
         if analysis.boosts:
             caption += (" Shaded: the reference frequencies where each low-frequency boost "
                         "stage makes the tracking error at least 2× (darker) or 3 dB "
                         "(lighter) smaller than the same loop without it.")
+        if analysis.sampling is not None:
+            caption += " The frequency axis ends at the Nyquist frequency π/T."
+        caption += coverage_caption
         return Plot(key="sensitivity", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
                     caption=caption)
 
@@ -551,7 +722,12 @@ def time_figure(analysis: LoopAnalysis, *, width_in: float = FULL_WIDTH_IN,
         y = curves.step.value
         yf = metrics.final_value
         band = metrics.settling_band * abs(yf)
-        ax_y.plot(t, y, color=C_MAIN, label="y(t), r = 1(t)")
+        sampled = analysis.sampling is not None
+        # A sampled loop is known at t = kT only: drawn as held samples, not as a smooth
+        # curve that would suggest knowledge of the output between the instants.
+        draw = {"drawstyle": "steps-post"} if sampled else {}
+        ax_y.plot(t, y, color=C_MAIN, label="y(kT), r = 1(t)" if sampled else "y(t), r = 1(t)",
+                  **draw)
         ax_y.axhspan(yf - band, yf + band, color="#e3ecf5", linewidth=0,
                      label=f"±{100 * metrics.settling_band:g} % band")
         ax_y.axhline(yf, color=C_MARK, linewidth=0.5)
@@ -570,7 +746,8 @@ def time_figure(analysis: LoopAnalysis, *, width_in: float = FULL_WIDTH_IN,
 
         dist = np.abs(y - yf)
         floor = band / 300.0 if band > 0 else 1e-9
-        ax_log.semilogy(t, np.maximum(dist, floor), color=C_MAIN, label="|y(t) − y∞|")
+        ax_log.semilogy(t, np.maximum(dist, floor), color=C_MAIN, label="|y(t) − y∞|",
+                        **draw)
         ax_log.axhline(band, color=C_SECOND, linewidth=0.8, linestyle="--",
                        label="settling band")
         tail_pairs: Sequence[SlowPair] = (analysis.slow_tail.pairs
@@ -592,7 +769,7 @@ def time_figure(analysis: LoopAnalysis, *, width_in: float = FULL_WIDTH_IN,
         tr = curves.ramp_error.time_s
         er = curves.ramp_error.value
         if tr.size >= 2:
-            ax_r.plot(tr, er, color=C_MAIN, label="e(t) = t − y(t), r = t")
+            ax_r.plot(tr, er, color=C_MAIN, label="e(t) = t − y(t), r = t", **draw)
             final = metrics.ramp_error_final
             ax_r.axhline(final, color=C_MARK, linewidth=0.6, linestyle="--",
                          label=f"e at end of run {_fmt(final)}")
@@ -616,6 +793,10 @@ def time_figure(analysis: LoopAnalysis, *, width_in: float = FULL_WIDTH_IN,
                    f"{100 * metrics.settling_band:g} % band) after "
                    f"{_fmt(metrics.settling_time_s)} s, overshoot "
                    f"{_fmt(metrics.overshoot_pct)} %.")
+        if analysis.sampling is not None:
+            caption += (f" Values at the sampling instants t = kT (T = "
+                        f"{analysis.sampling.period_s:.4g} s), held between them: what the "
+                        "output does between two instants is not shown.")
         if tail_pairs:
             caption += (" The dashed red line is the slow pair's own term |r|·e^(p·t): while "
                         "it lies above the band, the tail alone keeps the output unsettled.")
@@ -699,19 +880,40 @@ def _pz_limits(poles: NDArray[np.complex128], zeros: NDArray[np.complex128],
     return x, (-y_half, y_half)
 
 
+#: The z-plane view reaches at most this far from the origin: the unit circle must stay
+#: readable; roots further out (a sampling zero far on the negative real axis, say) are
+#: named in the caption and pointed at from the edge of the view.
+Z_VIEW_MAX = 2.5
+
+
+def z_plane_view(poles: NDArray[np.complex128], zeros: NDArray[np.complex128]
+                 ) -> tuple[float, NDArray[np.complex128]]:
+    """Half-width of the z-plane view and the roots that lie outside it.
+
+    The view holds the unit circle with a margin and every root within
+    :data:`Z_VIEW_MAX` of the origin.
+    """
+    roots = np.concatenate([poles, zeros])
+    near = roots[np.abs(roots) <= Z_VIEW_MAX]
+    r = max(1.25, 1.1 * float(np.max(np.abs(near)))) if near.size else 1.25
+    return r, roots[np.abs(roots) > r]
+
+
 def _z_plane_map(fig: Figure, analysis: LoopAnalysis, poles: NDArray[np.complex128],
                  zeros: NDArray[np.complex128], width_in: float, height_in: float) -> Plot:
     """Closed-loop poles and zeros of a sampled loop in the z-plane, with the unit circle."""
     ax = fig.subplots()
     pairs = analysis.slow_tail.pairs if analysis.slow_tail is not None else ()
     theta = np.linspace(0.0, 2.0 * math.pi, 361)
-    ax.plot(np.cos(theta), np.sin(theta), color=C_MARK, linewidth=0.7, linestyle="--",
-            label="unit circle")
+    ax.fill(np.cos(theta), np.sin(theta), color="#eef3f9", linewidth=0, zorder=0)
+    ax.plot(np.cos(theta), np.sin(theta), color=C_MAIN, linewidth=0.8, linestyle="-",
+            label="unit circle |z| = 1")
     ax.axhline(0.0, color=C_MARK, linewidth=0.5)
     ax.axvline(0.0, color=C_MARK, linewidth=0.5)
+    finite = zeros[np.isfinite(zeros)] if zeros.size else zeros
+    r, outside = z_plane_view(poles, finite)
     ax.plot(poles.real, poles.imag, "x", color=C_MAIN, markersize=5, mew=1.2,
             label="closed-loop poles")
-    finite = zeros[np.isfinite(zeros)] if zeros.size else zeros
     if finite.size:
         ax.plot(finite.real, finite.imag, "o", mfc="none", color=C_SECOND, markersize=5,
                 mew=1.0, label="closed-loop zeros")
@@ -719,7 +921,17 @@ def _z_plane_map(fig: Figure, analysis: LoopAnalysis, poles: NDArray[np.complex1
         ax.plot([(pair.pole.real + pair.zero.real) / 2.0],
                 [(pair.pole.imag + pair.zero.imag) / 2.0], "o", mfc="none", color=C_FAIL,
                 markersize=15, mew=1.0)
-    r = max(1.2, 1.1 * float(np.max(np.abs(np.concatenate([poles, finite])))))
+    for root in outside:
+        # An arrow from inside the view toward the root, at the edge it leaves through.
+        u = root / abs(root)
+        ax.annotate(f"{'pole' if root in poles else 'zero'} at\n{_fmt_z(root)}",
+                    xy=(0.97 * r * u.real, 0.97 * r * u.imag),
+                    xytext=(0.8 * r * u.real, 0.8 * r * u.imag + 0.55 * r * (1 - abs(u.imag))),
+                    ha="center", va="center", fontsize=6.2, color=C_SECOND,
+                    arrowprops={"arrowstyle": "->", "color": C_SECOND, "lw": 0.8})
+    for z_at, label, dx in ((1.0, "ω = 0", 4), (-1.0, "ω = π/T", -4)):
+        ax.annotate(label, (z_at, 0.0), textcoords="offset points", xytext=(dx, -7),
+                    ha="left" if dx > 0 else "right", va="top", fontsize=6.0, color=C_MARK)
     ax.set_xlim(-r, r)
     ax.set_ylim(-r, r)
     ax.set_aspect("equal")
@@ -730,11 +942,21 @@ def _z_plane_map(fig: Figure, analysis: LoopAnalysis, poles: NDArray[np.complex1
     _place(fig, left=0.5)
     caption = (f"Closed-loop poles (×) and zeros (○) of the sampled loop in the z-plane, "
                f"{analysis.variant}: stable when every pole lies inside the unit circle "
-               "(dashed).")
+               "(shaded). z = 1 is ω = 0, z = −1 the Nyquist frequency.")
+    if outside.size:
+        caption += (" Outside the view: "
+                    + ", ".join(f"{'pole' if x in poles else 'zero'} at z = {_fmt_z(x)}"
+                                for x in outside) + ".")
     if pairs:
         caption += " Red rings: slow poles nearly cancelled by a zero."
     return Plot(key="poles", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
                 caption=caption)
+
+
+def _fmt_z(z: complex) -> str:
+    if z.imag == 0:
+        return _fmt(z.real)
+    return f"{_fmt(z.real)} {'+' if z.imag > 0 else '−'} j{_fmt(abs(z.imag))}"
 
 
 def _open_loop_map(fig: Figure, analysis: LoopAnalysis, zeros: NDArray[np.complex128],
@@ -786,9 +1008,16 @@ def closed_loop_zeros(design: Design, variant_name: str) -> NDArray[np.complex12
     they are in z, like the analysis's closed-loop poles.
     """
     variant = _variant(design, variant_name)
-    if getattr(variant, "measured", None) is not None:
+    if variant.measured is not None:
         return np.zeros(0, dtype=complex)
-    loop = design.loop(variant)
+    if design.sampling is not None:
+        # y(kT) is the plant output (output 1 of the sampled plant), not the measured one:
+        # its zeros with the controller's; the sensor's modes sit among the plant output's
+        # decoupling zeros, as the sensor poles do in the continuous case.
+        sampled = design.sampled_loop(variant)
+        return np.concatenate([sampled.controller.zeros,
+                               sampled.sampled.transfer(output=1).zeros]).astype(complex)
+    loop = design.continuous_loop(variant)
     return np.concatenate([loop.forward.zeros, loop.sensor.poles]).astype(complex)
 
 
@@ -801,15 +1030,29 @@ def _open_loop_poles(design: Design, variant_name: str) -> NDArray[np.complex128
     return np.asarray(design.loop(variant).rational.poles, dtype=complex)
 
 
+#: Figures that need a model of the plant, with why a measured plant has none of them.
+MODEL_FIGURES = {
+    "poles": "A pole-zero map needs the plant's poles and zeros, and a measured frequency "
+             "response has none",
+    "time": "Step and ramp responses need a model to simulate, and a frequency response "
+            "known on a finite range does not determine one",
+}
+
+
 def variant_plots(design: Design, analysis: LoopAnalysis) -> dict[str, Plot]:
-    """Every figure of one variant, keyed by name, in page order."""
+    """Every figure of one variant, keyed by name, in page order.
+
+    A measured plant has no ``poles`` or ``time`` figure (see :data:`MODEL_FIGURES`):
+    an empty frame would suggest something was drawn and lost.
+    """
     unit = FrequencyUnit.of(design)
-    return {
-        "bode": bode_figure(analysis, unit),
-        "nyquist": nyquist_figure(analysis),
-        "poles": pole_zero_figure(analysis, closed_loop_zeros(design, analysis.variant),
-                                  open_loop_poles=_open_loop_poles(design, analysis.variant)),
-        "time": time_figure(analysis),
-        "sensitivity": sensitivity_figure(
-            analysis, unit, reference_band_rad_s=design.requirements.reference_band_rad_s),
-    }
+    measured = analysis.coverage is not None
+    out = {"bode": bode_figure(analysis, unit), "nyquist": nyquist_figure(analysis)}
+    if not measured:
+        out["poles"] = pole_zero_figure(analysis, closed_loop_zeros(design, analysis.variant),
+                                        open_loop_poles=_open_loop_poles(design,
+                                                                         analysis.variant))
+        out["time"] = time_figure(analysis)
+    out["sensitivity"] = sensitivity_figure(
+        analysis, unit, reference_band_rad_s=design.requirements.reference_band_rad_s)
+    return out
