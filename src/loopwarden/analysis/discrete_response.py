@@ -25,8 +25,8 @@ from scipy import linalg
 from ..errors import AnalysisError
 from ..lti import Zpk
 from ..lti_discrete import DiscreteLoop, at_z_one, lti_series
+from .internal import cancellations
 from .results import (
-    Cancellation,
     InternalStability,
     Stability,
     StepMetrics,
@@ -149,31 +149,7 @@ def discrete_internal_stability(blocks: Sequence[tuple[str, Zpk]]) -> InternalSt
     another, or a zero with ``|z| ≥ 1`` cancelled by a pole, hides a mode the loop cannot
     see.  Each zero cancels at most one pole, nearest first; a pair is reported once.
     """
-    candidates: list[tuple[float, int, int, int, int]] = []
-    for i, (_, bi) in enumerate(blocks):
-        for j, (_, bj) in enumerate(blocks):
-            if i == j:
-                continue
-            for a, p in enumerate(bi.poles):
-                for b, z in enumerate(bj.zeros):
-                    if not (_critical(p) or _critical(z)):
-                        continue
-                    d = abs(p - z)
-                    if d <= CANCEL_RTOL * max(abs(p), abs(z)):
-                        candidates.append((d, i, a, j, b))
-    used_p: set[tuple[int, int]] = set()
-    used_z: set[tuple[int, int]] = set()
-    found: list[Cancellation] = []
-    for d, i, a, j, b in sorted(candidates):
-        if (i, a) in used_p or (j, b) in used_z:
-            continue
-        used_p.add((i, a))
-        used_z.add((j, b))
-        p, z = complex(blocks[i][1].poles[a]), complex(blocks[j][1].zeros[b])
-        if p.imag < 0 or (p.imag == 0 and z.imag < 0):
-            continue
-        found.append(Cancellation(pole=p, zero=z, pole_block=blocks[i][0],
-                                  zero_block=blocks[j][0], distance=float(d)))
+    found = cancellations(blocks, _critical, CANCEL_RTOL)
     note = ("; ".join(f"pole {c.pole:.6g} of {c.pole_block} cancelled by zero {c.zero:.6g} "
                       f"of {c.zero_block}" for c in found)
             or "no pole-zero cancellation on or outside the unit circle between blocks")

@@ -11,13 +11,13 @@ itself unstable), and is reported the same way.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 
 from ..lti import Zpk
 from .frequency_grid import AXIS_RTOL
 from .results import Cancellation, InternalStability
 
-__all__ = ["CANCEL_RTOL", "internal_stability"]
+__all__ = ["CANCEL_RTOL", "cancellations", "internal_stability"]
 
 #: A zero within this relative distance of a pole cancels it (|p − z| ≤ rtol·max(|p|, |z|)).
 #: Covers values typed to four significant digits in two places of a design file.
@@ -27,6 +27,45 @@ CANCEL_RTOL = 1e-3
 def _critical(root: complex) -> bool:
     """At or right of the imaginary axis."""
     return bool(root.real >= -AXIS_RTOL * abs(root))
+
+
+def cancellations(blocks: Sequence[tuple[str, Zpk]], critical: Callable[[complex], bool],
+                  rtol: float = CANCEL_RTOL) -> list[Cancellation]:
+    """Pole–zero cancellations between different blocks where the pole or zero is critical.
+
+    A zero within ``rtol`` (relative, ``|p − z| ≤ rtol·max(|p|, |z|)``) of a pole of
+    another block cancels it when ``critical`` holds for either; each zero cancels at most
+    one pole and each pole is cancelled at most once, nearest pairs first.  A complex pair
+    is listed once, by its member with positive imaginary part; the list is nearest first.
+    """
+    candidates: list[tuple[float, int, int, int, int]] = []
+    for i, (_, bi) in enumerate(blocks):
+        poles = bi.poles
+        for j, (_, bj) in enumerate(blocks):
+            if i == j:
+                continue
+            for a, p in enumerate(poles):
+                for b, z in enumerate(bj.zeros):
+                    # A critical pole, or a critical zero, cancelled across two blocks.
+                    if not (critical(p) or critical(z)):
+                        continue
+                    d = abs(p - z)
+                    if d <= rtol * max(abs(p), abs(z)):
+                        candidates.append((d, i, a, j, b))
+    used_poles: set[tuple[int, int]] = set()
+    used_zeros: set[tuple[int, int]] = set()
+    found: list[Cancellation] = []
+    for d, i, a, j, b in sorted(candidates):
+        if (i, a) in used_poles or (j, b) in used_zeros:
+            continue
+        used_poles.add((i, a))
+        used_zeros.add((j, b))
+        p, z = complex(blocks[i][1].poles[a]), complex(blocks[j][1].zeros[b])
+        if p.imag < 0 or (p.imag == 0 and z.imag < 0):
+            continue
+        found.append(Cancellation(pole=p, zero=z, pole_block=blocks[i][0],
+                                  zero_block=blocks[j][0], distance=float(d)))
+    return found
 
 
 def internal_stability(blocks: Sequence[tuple[str, Zpk]], *,
@@ -48,33 +87,7 @@ def internal_stability(blocks: Sequence[tuple[str, Zpk]], *,
         most one pole (the nearest first).  Cancellations inside one block are not loop
         cancellations and are left to the closed-loop eigenvalues, which keep them.
     """
-    candidates: list[tuple[float, int, int, int, int]] = []
-    for i, (_, bi) in enumerate(blocks):
-        poles = bi.poles
-        for j, (_, bj) in enumerate(blocks):
-            if i == j:
-                continue
-            for a, p in enumerate(poles):
-                for b, z in enumerate(bj.zeros):
-                    # A critical pole, or a critical zero, cancelled across two blocks.
-                    if not (_critical(p) or _critical(z)):
-                        continue
-                    d = abs(p - z)
-                    if d <= rtol * max(abs(p), abs(z)):
-                        candidates.append((d, i, a, j, b))
-    used_poles: set[tuple[int, int]] = set()
-    used_zeros: set[tuple[int, int]] = set()
-    found: list[Cancellation] = []
-    for d, i, a, j, b in sorted(candidates):
-        if (i, a) in used_poles or (j, b) in used_zeros:
-            continue
-        used_poles.add((i, a))
-        used_zeros.add((j, b))
-        p, z = complex(blocks[i][1].poles[a]), complex(blocks[j][1].zeros[b])
-        if p.imag < 0 or (p.imag == 0 and z.imag < 0):
-            continue
-        found.append(Cancellation(pole=p, zero=z, pole_block=blocks[i][0],
-                                  zero_block=blocks[j][0], distance=float(d)))
+    found = cancellations(blocks, _critical, rtol)
     found.sort(key=lambda c: (c.pole.real, c.pole.imag))
     if found:
         note = "; ".join(
