@@ -10,35 +10,11 @@ import numpy as np
 import pytest
 from scipy import optimize
 
+from helpers import FPE_TOML, OGATA_TOML
 from loopwarden.analysis.boost_band import find_boosts, improvement
 from loopwarden.analysis.margins import compute_margins
 from loopwarden.design.loader import parse_design
 from loopwarden.design.model import Design
-
-OGATA_TOML = """
-[design]
-name = "Ogata lag design"
-[plant]
-zpk = { poles = [0.0, -1.0, -2.0], gain = 2.0 }
-[[controller]]
-type = "gain"
-k = 0.5
-[[controller]]
-type = "lag"
-zero = 0.1
-pole = 0.01
-"""
-
-FPE_TOML = """
-[design]
-name = "FPE lag example"
-[plant]
-zpk = { poles = [0.0, -1.0], gain = 1.0 }
-[[controller]]
-type = "lag"
-zero = 0.1
-pole = 0.01
-"""
 
 
 def design(text: str) -> Design:

@@ -14,6 +14,7 @@ from pathlib import Path
 
 import pytest
 
+from helpers import ogata_lag_design
 from loopwarden.cli import main
 
 PASSING = """
@@ -28,19 +29,7 @@ k = 1.0
 [requirements]
 settling_time = 5.0
 """
-FAILING = """
-[design]
-name = "Conveyor axis"
-[plant]
-zpk = { zeros = [], poles = [0.0, -1.0, -2.0], gain = 2.0 }
-[[controller]]
-type = "gain"
-k = 0.5
-[[controller]]
-type = "lag"
-zero = 0.1
-pole = 0.01
-"""
+FAILING = ogata_lag_design("Conveyor axis")
 UNSTABLE = FAILING.replace("k = 0.5", "k = 50.0")
 
 

@@ -19,6 +19,7 @@ from pathlib import Path
 
 import pytest
 
+from helpers import ogata_lag_design
 from loopwarden.analysis import analyze
 from loopwarden.design.loader import parse_design
 from loopwarden.design.model import Design
@@ -31,19 +32,7 @@ from loopwarden.ruleset.model import Finding, Status
 
 TODAY = dt.date(2025, 6, 1)
 
-OGATA = """
-[design]
-name = "Ogata lag"
-[plant]
-zpk = { zeros = [], poles = [0.0, -1.0, -2.0], gain = 2.0 }
-[[controller]]
-type = "gain"
-k = 0.5
-[[controller]]
-type = "lag"
-zero = 0.1
-pole = 0.01
-"""
+OGATA = ogata_lag_design("Ogata lag")
 TRIPLE = """
 [design]
 name = "triple lag"

@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 from scipy import optimize
 
+from helpers import FPE_TOML, OGATA_TOML
 from loopwarden.analysis.boost_band import find_boosts
 from loopwarden.analysis.integral_alternative import (
     integral_alternatives,
@@ -24,31 +25,6 @@ from loopwarden.design.loader import parse_design
 from loopwarden.lti import Loop, Zpk
 
 BAND = 0.02
-
-OGATA_TOML = """
-[design]
-name = "Ogata lag design"
-[plant]
-zpk = { poles = [0.0, -1.0, -2.0], gain = 2.0 }
-[[controller]]
-type = "gain"
-k = 0.5
-[[controller]]
-type = "lag"
-zero = 0.1
-pole = 0.01
-"""
-
-FPE_TOML = """
-[design]
-name = "FPE lag example"
-[plant]
-zpk = { poles = [0.0, -1.0], gain = 1.0 }
-[[controller]]
-type = "lag"
-zero = 0.1
-pole = 0.01
-"""
 
 
 def setup(text: str):
