@@ -244,7 +244,7 @@ def gain_margin(a: LoopAnalysis, rule: Rule, design: Design, *,
     if a.coverage is not None and "gain_margin" in a.coverage.bounded:
         text = (f"gain margin at least {fmt(gm, 'dB')}: no phase crossover in the measured "
                 f"range, and |L| is {fmt(-gm, 'dB')} at its top (see the stated assumptions)")
-    compare = {"min": gm, "warn_min": gm}
+    compare = dict.fromkeys(LOWER, gm)
     if m.gain_margin_lower_db is not None:
         compare |= {"max_lower": m.gain_margin_lower_db,
                     "warn_max_lower": m.gain_margin_lower_db}
@@ -268,7 +268,7 @@ def phase_margin(a: LoopAnalysis, rule: Rule, design: Design, *,
         if n > 1:
             text += f" (smallest of {n} gain crossovers)"
     return Measurement(value=m.phase_margin_deg, text=text,
-                       compare={"min": m.phase_margin_deg, "warn_min": m.phase_margin_deg},
+                       compare=dict.fromkeys(LOWER, m.phase_margin_deg),
                        details={"gain_crossover_rad_s": m.gain_crossover_rad_s,
                                 "gain_crossings": float(n)})
 
@@ -309,7 +309,7 @@ def delay_margin(a: LoopAnalysis, rule: Rule, design: Design, *,
         value = dm / delay
         details["loop_delay_s"] = delay
         text += f" = {fmt(value, 'x')} the loop's dead time of {fmt(delay, 's')}"
-    return Measurement(value=value, text=text, compare={"min": value, "warn_min": value},
+    return Measurement(value=value, text=text, compare=dict.fromkeys(LOWER, value),
                        details=details)
 
 
@@ -325,7 +325,7 @@ def peak_sensitivity(a: LoopAnalysis, rule: Rule, design: Design, *,
         # Modulus-margin bounds (Åström & Murray): what Ms alone guarantees.
         details["guaranteed_gain_margin"] = ms / (ms - 1.0)
         details["guaranteed_phase_margin_deg"] = math.degrees(2.0 * math.asin(0.5 / ms))
-    return Measurement(value=ms, text=text, compare={"max": ms, "warn_max": ms},
+    return Measurement(value=ms, text=text, compare=dict.fromkeys(UPPER, ms),
                        details=details)
 
 
@@ -336,7 +336,7 @@ def peak_complementary(a: LoopAnalysis, rule: Rule, design: Design, *,
     s = a.sensitivity
     mt = s.peak_complementary
     text = f"Mt {fmt(mt)} ({fmt(_db(mt), 'dB')}) at {_freq(s.peak_complementary_rad_s)}"
-    return Measurement(value=mt, text=text, compare={"max": mt, "warn_max": mt},
+    return Measurement(value=mt, text=text, compare=dict.fromkeys(UPPER, mt),
                        details={"frequency_rad_s": s.peak_complementary_rad_s})
 
 
@@ -349,7 +349,7 @@ def disk_margin(a: LoopAnalysis, rule: Rule, design: Design, *,
     text = (f"disk margin α {fmt(s.disk_margin)}: gain ×{fmt(s.disk_gain_low)} to "
             f"×{fmt(s.disk_gain_high)} or phase ±{_deg(s.disk_phase_deg)}")
     return Measurement(value=s.disk_margin, text=text,
-                       compare={"min": s.disk_margin, "warn_min": s.disk_margin},
+                       compare=dict.fromkeys(LOWER, s.disk_margin),
                        details={"disk_gain_low": s.disk_gain_low,
                                 "disk_gain_high": s.disk_gain_high,
                                 "disk_phase_deg": s.disk_phase_deg})
@@ -376,7 +376,7 @@ def sample_rate(a: LoopAnalysis, rule: Rule, design: Design, *,
                 f"{fmt(ratio, 'x')} the closed-loop bandwidth {_freq(bw)}")
     text += ("; 10-30x is common practice. The review is exact at the sampling instants "
              "only: the plant output may ripple between them")
-    return Measurement(value=ratio, text=text, compare={k: ratio for k in (*LOWER, *UPPER)},
+    return Measurement(value=ratio, text=text, compare=dict.fromkeys((*LOWER, *UPPER), ratio),
                        details={"period_s": info.period_s,
                                 "closed_loop_bandwidth_rad_s": bw,
                                 "sample_rate_rad_s": info.sample_rate_rad_s,
@@ -392,7 +392,7 @@ def system_type(a: LoopAnalysis, rule: Rule, design: Design, *,
                 baseline: LoopAnalysis | None = None) -> Measurement:
     t = float(a.tracking.system_type)
     return Measurement(value=t, text=f"system type {int(t)}",
-                       compare={k: t for k in (*LOWER, *UPPER)})
+                       compare=dict.fromkeys((*LOWER, *UPPER), t))
 
 
 ERROR_CONSTANT_UNITS = {"kp": "", "kv": "1/s", "ka": "1/s^2", "step_error": "",
@@ -413,7 +413,7 @@ def error_constant(a: LoopAnalysis, rule: Rule, design: Design, *,
     unit = ERROR_CONSTANT_UNITS[which]
     text = f"{_ERROR_LABEL[which]} {fmt(value, unit)} (type {a.tracking.system_type})"
     return Measurement(value=value, text=text, unit=unit,
-                       compare={k: value for k in (*LOWER, *UPPER)})
+                       compare=dict.fromkeys((*LOWER, *UPPER), value))
 
 
 @_check("crossover_band", unit="rad/s", limits=(*LOWER, *UPPER),
@@ -428,7 +428,7 @@ def crossover_band(a: LoopAnalysis, rule: Rule, design: Design, *,
         w = 0.0 if low_gain else math.inf
         return Measurement(value=w, text="no gain crossover (|L| " +
                            ("< 1" if low_gain else "> 1") + " at all frequencies)",
-                           compare={k: w for k in (*LOWER, *UPPER)})
+                           compare=dict.fromkeys((*LOWER, *UPPER), w))
     lo, hi = ws[0], ws[-1]
     text = (f"gain crossover at {_freq(lo)}" if len(ws) == 1
             else f"{len(ws)} gain crossovers from {_freq(lo)} to {_freq(hi)}")
@@ -461,7 +461,7 @@ def step_overshoot(a: LoopAnalysis, rule: Rule, design: Design, *,
     if st.peak_time_s is not None and st.overshoot_pct > 0:
         text += f" at {fmt(st.peak_time_s, 's')}"
     return Measurement(value=st.overshoot_pct, text=text,
-                       compare={"max": st.overshoot_pct, "warn_max": st.overshoot_pct})
+                       compare=dict.fromkeys(UPPER, st.overshoot_pct))
 
 
 @_check("step_settling", unit="s", limits=UPPER, options={"band": BAND},
@@ -473,7 +473,7 @@ def step_settling(a: LoopAnalysis, rule: Rule, design: Design, *,
     text = (f"step settles into the {_band_note(st)} after {fmt(t, 's')}" if math.isfinite(t)
             else f"step does not settle into the {_band_note(st)} within "
                  f"{fmt(st.horizon_s, 's')}")
-    return Measurement(value=t, text=text, compare={"max": t, "warn_max": t},
+    return Measurement(value=t, text=text, compare=dict.fromkeys(UPPER, t),
                        details={"settling_band": st.settling_band, "horizon_s": st.horizon_s})
 
 
@@ -485,7 +485,7 @@ def step_rise(a: LoopAnalysis, rule: Rule, design: Design, *,
     t = math.inf if st.rise_time_s is None else st.rise_time_s
     text = (f"10-90 % rise time {fmt(t, 's')}" if math.isfinite(t)
             else "the step never reaches 90 % of its final value")
-    return Measurement(value=t, text=text, compare={"max": t, "warn_max": t})
+    return Measurement(value=t, text=text, compare=dict.fromkeys(UPPER, t))
 
 
 @_check("slow_pair_tail", unit="s", limits=(*UPPER, "max_ratio", "warn_max_ratio"),
@@ -565,7 +565,7 @@ def lag_phase_budget(a: LoopAnalysis, rule: Rule, design: Design, *,
     cost = max(0.0, -c.phase_cost_deg)
     text = (f"{b.stage_name} costs {_deg(cost)} of phase at the crossover "
             f"{_freq(c.crossover_rad_s)}; its zero sits at {fmt(c.zero_ratio, 'x')} crossover")
-    return Measurement(value=cost, text=text, compare={"max": cost, "warn_max": cost},
+    return Measurement(value=cost, text=text, compare=dict.fromkeys(UPPER, cost),
                        details={"stage": float(b.stage), "crossover_rad_s": c.crossover_rad_s,
                                 "zero_ratio": c.zero_ratio})
 
@@ -582,7 +582,7 @@ def integral_alternative(a: LoopAnalysis, rule: Rule, design: Design, *,
                                          "the integral-action alternative was not computed"))
     stable = [alt for alt in a.integral_alternatives if alt.closed_loop_stable]
     if not stable:
-        return Measurement(value=0.0, compare={"max": 0.0, "warn_max": 0.0},
+        return Measurement(value=0.0, compare=dict.fromkeys(UPPER, 0.0),
                            text="no stable integral-action alternative with a one-gain "
                                 "re-tune: keep the boost stage")
 
@@ -605,7 +605,7 @@ def integral_alternative(a: LoopAnalysis, rule: Rule, design: Design, *,
     which = ("step_error", "ramp_error", "parabola_error")[min(a.tracking.system_type, 2)]
     text += (f", {_ERROR_LABEL[which]} {fmt(getattr(alt.tracking, which))} against "
              f"{fmt(getattr(a.tracking, which))}")
-    return Measurement(value=ratio, text=text, compare={"max": ratio, "warn_max": ratio},
+    return Measurement(value=ratio, text=text, compare=dict.fromkeys(UPPER, ratio),
                        details={"stage": float(alt.stage), "gain_factor": alt.gain_factor,
                                 "phase_margin_deg": alt.margins.phase_margin_deg,
                                 "gain_margin_db": alt.margins.gain_margin_db,
@@ -656,7 +656,7 @@ def regression(a: LoopAnalysis, rule: Rule, design: Design, *,
         details[f"{change.figure}.unit"] = change.unit
         details[f"{change.figure}.worse_pct"] = pct
         if change.change is not None:
-            parts[change.figure] = {"max": pct, "warn_max": pct}
+            parts[change.figure] = dict.fromkeys(UPPER, pct)
         if pct > worst[0]:
             worst = (pct, change)
     pct, ch = worst
@@ -668,7 +668,7 @@ def regression(a: LoopAnalysis, rule: Rule, design: Design, *,
                 f"in the baseline ({_change_text(ch)}, {fmt(pct, '%')} worse)")
         details |= {"figure": ch.figure, "baseline": ch.baseline, "candidate": ch.candidate,
                     "change": ch.change}
-    return Measurement(value=pct, text=text, compare={"max": pct, "warn_max": pct},
+    return Measurement(value=pct, text=text, compare=dict.fromkeys(UPPER, pct),
                        details=details, parts=parts)
 
 
