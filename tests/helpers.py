@@ -8,23 +8,33 @@ The reference values each test checks stand beside its check.
 
 from __future__ import annotations
 
+import pytest
+
 #: The plant line of Ogata's lag design.
 OGATA_PLANT = "zpk = { zeros = [], poles = [0.0, -1.0, -2.0], gain = 2.0 }"
 
-#: Ogata's lag compensator as controller stages.
-OGATA_LAG_STAGES = """[[controller]]
+
+def lag_design(plant: str, gain: float, zero: float, pole: float, extra: str = "", *,
+               name: str = "new lag loop") -> str:
+    """A design of ``plant`` (its TOML lines) under a gain stage and a lag stage."""
+    return f"""
+[design]
+name = "{name}"
+[plant]
+{plant}
+[[controller]]
 type = "gain"
-k = 0.5
+k = {gain!r}
 [[controller]]
 type = "lag"
-zero = 0.1
-pole = 0.01
-"""
+zero = {zero!r}
+pole = {pole!r}
+{extra}"""
 
 
 def ogata_lag_design(name: str) -> str:
     """Ogata's lag design under the design name ``name``."""
-    return f'\n[design]\nname = "{name}"\n[plant]\n{OGATA_PLANT}\n{OGATA_LAG_STAGES}'
+    return lag_design(OGATA_PLANT, 0.5, 0.1, 0.01, name=name)
 
 
 OGATA_TOML = ogata_lag_design("Ogata lag design")
@@ -40,3 +50,15 @@ type = "lag"
 zero = 0.1
 pole = 0.01
 """
+
+# Lag loops that are not in the repository (our own scenarios, rad/s).
+NEW_LAG_DESIGNS = [
+    pytest.param(lag_design("zpk = { poles = [0.0, -5.0], gain = 20.0 }", 1.0, 0.2, 0.02),
+                 id="conveyor-axis"),
+    pytest.param(lag_design("zpk = { poles = [-1.0, -5.0], gain = 20.0 }", 2.0, 0.3, 0.03),
+                 id="tank-level-type0"),
+    pytest.param(lag_design("tf = { num = [9.0], den = [1.0, 2.0, 9.0, 0.0] }", 0.5, 0.05,
+                            0.005), id="gimbal-resonant"),
+    pytest.param(lag_design("zpk = { poles = [0.0, -2.0], gain = 1.0 }\ndelay = 0.05", 3.0,
+                            0.1, 0.025), id="pump-with-delay"),
+]

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from scipy import optimize
 
-from helpers import FPE_TOML, OGATA_TOML
+from helpers import FPE_TOML, NEW_LAG_DESIGNS, OGATA_TOML
 from loopwarden.analysis.boost_band import find_boosts, improvement
 from loopwarden.analysis.margins import compute_margins
 from loopwarden.design.loader import parse_design
@@ -228,36 +228,6 @@ den = [1.0, 5.0]
 """
     loop, stages = loop_and_stages(text)
     assert find_boosts(loop, stages, compute_margins(loop), 0.1) == ()
-
-
-def lag_design(plant: str, gain: float, zero: float, pole: float, extra: str = "") -> str:
-    return f"""
-[design]
-name = "new lag loop"
-[plant]
-{plant}
-[[controller]]
-type = "gain"
-k = {gain!r}
-[[controller]]
-type = "lag"
-zero = {zero!r}
-pole = {pole!r}
-{extra}
-"""
-
-
-# Lag loops that are not in the repository (our own scenarios, rad/s).
-NEW_LAG_DESIGNS = [
-    pytest.param(lag_design("zpk = { poles = [0.0, -5.0], gain = 20.0 }", 1.0, 0.2, 0.02),
-                 id="conveyor-axis"),
-    pytest.param(lag_design("zpk = { poles = [-1.0, -5.0], gain = 20.0 }", 2.0, 0.3, 0.03),
-                 id="tank-level-type0"),
-    pytest.param(lag_design("tf = { num = [9.0], den = [1.0, 2.0, 9.0, 0.0] }", 0.5, 0.05,
-                            0.005), id="gimbal-resonant"),
-    pytest.param(lag_design("zpk = { poles = [0.0, -2.0], gain = 1.0 }\ndelay = 0.05", 3.0,
-                            0.1, 0.025), id="pump-with-delay"),
-]
 
 
 @pytest.mark.parametrize("text", NEW_LAG_DESIGNS)

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from scipy import optimize
 
-from helpers import FPE_TOML, OGATA_TOML
+from helpers import FPE_TOML, NEW_LAG_DESIGNS, OGATA_TOML
 from loopwarden.analysis.boost_band import find_boosts
 from loopwarden.analysis.integral_alternative import (
     integral_alternatives,
@@ -192,31 +192,8 @@ pole = 0.01
     assert pm >= margins.phase_margin_deg - 1e-6
 
 
-def lag_design(plant: str, gain: float, zero: float, pole: float) -> str:
-    return f"""
-[design]
-name = "new lag loop"
-[plant]
-{plant}
-[[controller]]
-type = "gain"
-k = {gain!r}
-[[controller]]
-type = "lag"
-zero = {zero!r}
-pole = {pole!r}
-"""
-
-
-@pytest.mark.parametrize("text", [
-    # lag loops that are not in the repository (our own scenarios)
-    pytest.param(lag_design("zpk = { poles = [0.0, -5.0], gain = 20.0 }", 1.0, 0.2, 0.02),
-                 id="conveyor-axis"),
-    pytest.param(lag_design("zpk = { poles = [-1.0, -5.0], gain = 20.0 }", 2.0, 0.3, 0.03),
-                 id="tank-level-type0"),
-    pytest.param(lag_design("tf = { num = [9.0], den = [1.0, 2.0, 9.0, 0.0] }", 0.5, 0.05,
-                            0.005), id="gimbal-resonant"),
-])
+# The lag loops that are not in the repository (our own scenarios), those without delay.
+@pytest.mark.parametrize("text", [p for p in NEW_LAG_DESIGNS if p.id != "pump-with-delay"])
 def test_new_lag_loops_alternative(text):
     # issue: an integral alternative one system type higher, with its phase margin.
     # Independent: python-control margins of the same loop, and a python-control scan of
