@@ -39,7 +39,12 @@ from .margins import (
     valid_steps,
 )
 from .results import Margins, Sensitivity
-from .sensitivity import PEAK_FUNCTIONS, disk_ranges, peak_candidates, peak_values_at
+from .sensitivity import (
+    PEAK_FUNCTIONS,
+    peak_candidates,
+    peak_values_at,
+    sensitivity_from_peaks,
+)
 
 __all__ = ["closed_loop_bandwidth", "compute_discrete_margins",
            "compute_discrete_sensitivity", "refined_peak", "unit_circle_grid"]
@@ -230,17 +235,10 @@ def compute_discrete_sensitivity(loop: DiscreteLoop) -> Sensitivity:
     nyquist = math.pi / T
 
     s_mag, t_mag, d_mag = PEAK_FUNCTIONS
-    ms, w_ms = refined_peak(s_mag, w, l_of_w, ((0.0, zero[0]), (nyquist, high[0])))
-    mt, w_mt = refined_peak(t_mag, w, l_of_w, ((0.0, zero[1]), (nyquist, high[1])))
+    s_peak = refined_peak(s_mag, w, l_of_w, ((0.0, zero[0]), (nyquist, high[0])))
+    t_peak = refined_peak(t_mag, w, l_of_w, ((0.0, zero[1]), (nyquist, high[1])))
     d_max, _ = refined_peak(d_mag, w, l_of_w, ((0.0, zero[2]), (nyquist, high[2])))
-    alpha = 1.0 / d_max if d_max > 0 else math.inf
-    low, high_gain, phase = disk_ranges(alpha)
-    return Sensitivity(
-        peak_sensitivity=ms, peak_sensitivity_rad_s=w_ms,
-        peak_complementary=mt, peak_complementary_rad_s=w_mt,
-        disk_margin=alpha, disk_gain_low=low, disk_gain_high=high_gain,
-        disk_phase_deg=phase,
-    )
+    return sensitivity_from_peaks(s_peak, t_peak, d_max)
 
 
 def closed_loop_bandwidth(loop: DiscreteLoop) -> float | None:

@@ -53,7 +53,7 @@ from .results import (
     TimeSeries,
     Tracking,
 )
-from .sensitivity import PEAK_FUNCTIONS, disk_ranges
+from .sensitivity import PEAK_FUNCTIONS, sensitivity_from_peaks
 from .stability import open_loop_pole_counts
 
 __all__ = ["ASSUMPTIONS", "MODEL_ONLY", "MeasuredLoop", "analyze_measured",
@@ -214,13 +214,8 @@ def measured_sensitivity(loop: MeasuredLoop, w: FloatArray, low_side_below_one: 
             peak, at = edge, (float(w[0]) if low[i] >= high[i] else float(w[-1]))
             bounded.append(name)
         out.append((peak, at))
-    (ms, w_ms), (mt, w_mt), (d_max, _) = out
-    alpha = 1.0 / d_max if d_max > 0 else math.inf
-    lo_gain, hi_gain, phase = disk_ranges(alpha)
-    return Sensitivity(peak_sensitivity=ms, peak_sensitivity_rad_s=w_ms,
-                       peak_complementary=mt, peak_complementary_rad_s=w_mt,
-                       disk_margin=alpha, disk_gain_low=lo_gain, disk_gain_high=hi_gain,
-                       disk_phase_deg=phase), tuple(bounded)
+    s_peak, t_peak, (d_max, _) = out
+    return sensitivity_from_peaks(s_peak, t_peak, d_max), tuple(bounded)
 
 
 # --------------------------------------------------------------------------- Nyquist

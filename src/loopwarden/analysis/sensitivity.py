@@ -25,7 +25,7 @@ from .frequency_grid import loop_grid, response
 from .results import Sensitivity
 
 __all__ = ["PEAK_FUNCTIONS", "compute_sensitivity", "disk_ranges", "peak_candidates",
-           "peak_values_at"]
+           "peak_values_at", "sensitivity_from_peaks"]
 
 #: How many of the largest grid maxima are refined at least, and at most.
 _CANDIDATES = 6
@@ -210,6 +210,20 @@ def disk_ranges(alpha: float) -> tuple[float, float, float]:
     return low, high, math.degrees(2.0 * math.atan(alpha / 2.0))
 
 
+def sensitivity_from_peaks(s_peak: tuple[float, float], t_peak: tuple[float, float],
+                           d_max: float) -> Sensitivity:
+    """The result from ``(Ms, ω)``, ``(Mt, ω)`` (rad/s) and ``max|S − 1/2|``: α = 1/max."""
+    (ms, w_ms), (mt, w_mt) = s_peak, t_peak
+    alpha = 1.0 / d_max if d_max > 0 else math.inf
+    low, high_gain, phase = disk_ranges(alpha)
+    return Sensitivity(
+        peak_sensitivity=ms, peak_sensitivity_rad_s=w_ms,
+        peak_complementary=mt, peak_complementary_rad_s=w_mt,
+        disk_margin=alpha, disk_gain_low=low, disk_gain_high=high_gain,
+        disk_phase_deg=phase,
+    )
+
+
 def compute_sensitivity(loop: Loop, w: FloatArray | None = None) -> Sensitivity:
     """Peak sensitivity Ms, peak complementary sensitivity Mt and balanced disk margin.
 
@@ -235,14 +249,7 @@ def compute_sensitivity(loop: Loop, w: FloatArray | None = None) -> Sensitivity:
     l_grid = l_of_w(w)
     zero, high = _limits(loop)
 
-    (ms, w_ms), (mt, w_mt), (d_max, _) = _peaks(
+    s_peak, t_peak, (d_max, _) = _peaks(
         PEAK_FUNCTIONS, l_grid, w, l_of_w,
         [(zero[0], high[0]), (zero[1], high[1]), (zero[2], high[2])])
-    alpha = 1.0 / d_max if d_max > 0 else math.inf
-    low, high_gain, phase = disk_ranges(alpha)
-    return Sensitivity(
-        peak_sensitivity=ms, peak_sensitivity_rad_s=w_ms,
-        peak_complementary=mt, peak_complementary_rad_s=w_mt,
-        disk_margin=alpha, disk_gain_low=low, disk_gain_high=high_gain,
-        disk_phase_deg=phase,
-    )
+    return sensitivity_from_peaks(s_peak, t_peak, d_max)
