@@ -272,7 +272,7 @@ def discrete_step_response(loop: DiscreteLoop, band: float) -> StepResult:
         e = t - y_ramp
         metrics = _sampled_metrics(t, y, e, final, band)
         quiet = np.abs(y[t >= 0.8 * t[-1]] / final - 1.0).max() <= 0.5 * band
-        # e[k] = (its steady course) + C A^k b₁: the last sample's ramp transient is exact.
+        # e[k] = (its steady trend) + C A^k b₁: the last sample's ramp transient is exact.
         ramp_tail = abs(float(powers[-1, 1])) if n else 0.0
         ramp_quiet = ramp_tail <= floor * max(abs(float(e[-1])), T)
         if metrics.settling_time_s <= 0.75 * t[-1] and quiet and ramp_quiet:
