@@ -66,7 +66,7 @@ def test_figures_are_byte_identical_across_renders() -> None:
 def test_closed_loop_zeros_are_read_from_the_model() -> None:
     # [derived from the design file] r → y zeros of C·P with a unity sensor: the lag zero
     # at −0.5 rad/s is the only finite zero of the hoist loop.
-    z = plots.closed_loop_zeros(sample_review("hoist_lag_tail").design, "nominal")
+    z = plots.closed_loop_zeros(sample_review("hoist_lag_tail").analyses[0])
     assert z.tolist() == [pytest.approx(-0.5)]
 
 
@@ -134,7 +134,7 @@ def test_z_plane_keeps_the_unit_circle_in_view_and_names_far_roots() -> None:
     review = sample_review("pump_pressure")
     a = review.analyses[0]
     poles = np.asarray(a.stability.closed_loop_poles, dtype=complex)
-    zeros = plots.closed_loop_zeros(review.design, "nominal")
+    zeros = plots.closed_loop_zeros(a)
     r, outside = plots.z_plane_view(poles, zeros)
     # Every closed-loop pole of a stable sampled loop is inside the unit circle
     # [definition], so the view is set by the circle and the roots within 2.5.
@@ -171,7 +171,7 @@ def test_sampled_closed_loop_zeros_against_scipy(tmp_path: Path) -> None:
         """)))
     num, _den, _ = cont2discrete(([1.0, 2.0], np.poly([-1.0, -3.0])), 0.1, method="zoh")
     expected = np.concatenate([[0.9], np.roots(np.trim_zeros(num[0], "f")), [math.exp(-5.0)]])
-    got = plots.closed_loop_zeros(design, "nominal")
+    got = plots.closed_loop_zeros(loopwarden.analyze(design)[0])
     assert sorted(got.real) == pytest.approx(sorted(expected.real), abs=1e-7)
     assert np.all(np.abs(got.imag) < 1e-9)
 

@@ -36,6 +36,23 @@ def analyze_variant(design: Design, variant: PlantVariant, *,
                     settling_band: float | None = None) -> LoopAnalysis:
     """Analyse the design's loop around one plant variant.
 
+    Every kind of loop (continuous, sampled, measured) gets its pole-zero map here, once.
+    See :func:`_analyze_loop` for the parameters.
+    """
+    import dataclasses
+
+    from .pole_zero import pole_zero_map
+
+    result = _analyze_loop(design, variant, min_phase_margin_deg=min_phase_margin_deg,
+                           settling_band=settling_band)
+    return dataclasses.replace(result, pole_zero=pole_zero_map(design, variant))
+
+
+def _analyze_loop(design: Design, variant: PlantVariant, *,
+                  min_phase_margin_deg: float | None = None,
+                  settling_band: float | None = None) -> LoopAnalysis:
+    """Analyse the design's loop around one plant variant.
+
     Parameters
     ----------
     min_phase_margin_deg : float, optional

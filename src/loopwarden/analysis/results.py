@@ -268,6 +268,14 @@ class FrequencyCoverage:
     bounded: tuple[str, ...] = ()
 
 
+@dataclass(frozen=True, slots=True, kw_only=True)
+class PoleZeroMap:
+    """Roots for the pole-zero map, in s (or in z for a sampled loop)."""
+
+    closed_loop_zeros: tuple[complex, ...]         # zeros of reference → plant output
+    open_loop_poles: tuple[complex, ...]           # poles of L (its rational part)
+
+
 # --------------------------------------------------------------------------- aggregate
 @dataclass(frozen=True, slots=True, kw_only=True)
 class LoopAnalysis:
@@ -289,3 +297,4 @@ class LoopAnalysis:
     coverage: FrequencyCoverage | None = None      # measured plants only
     not_applicable: Mapping[str, str] = field(     # check name → why it does not apply here
         default_factory=lambda: MappingProxyType({}))
+    pole_zero: PoleZeroMap | None = None           # None: measured plant (no model)

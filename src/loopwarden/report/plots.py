@@ -997,37 +997,18 @@ def _open_loop_map(fig: Figure, analysis: LoopAnalysis, zeros: NDArray[np.comple
                         "instead.")
 
 
-def _variant(design: Design, name: str) -> Any:
-    return next(v for v in design.variants if v.name == name)
-
-
-def closed_loop_zeros(design: Design, variant_name: str) -> NDArray[np.complex128]:
-    """Zeros of r → y as read from the model: zeros of C·P and the sensor's poles.
-
-    Empty for a measured plant (it has no model to read zeros from).  For a sampled design
-    they are in z, like the analysis's closed-loop poles.
-    """
-    variant = _variant(design, variant_name)
-    if variant.measured is not None:
+def closed_loop_zeros(analysis: LoopAnalysis) -> NDArray[np.complex128]:
+    """Zeros of r → y as the analysis read them from the model (empty for a measured plant)."""
+    if analysis.pole_zero is None:
         return np.zeros(0, dtype=complex)
-    if design.sampling is not None:
-        # y(kT) is the plant output (output 1 of the sampled plant), not the measured one:
-        # its zeros with the controller's; the sensor's modes sit among the plant output's
-        # decoupling zeros, as the sensor poles do in the continuous case.
-        sampled = design.sampled_loop(variant)
-        return np.concatenate([sampled.controller.zeros,
-                               sampled.sampled.transfer(output=1).zeros]).astype(complex)
-    loop = design.continuous_loop(variant)
-    return np.concatenate([loop.forward.zeros, loop.sensor.poles]).astype(complex)
+    return np.asarray(analysis.pole_zero.closed_loop_zeros, dtype=complex)
 
 
-def _open_loop_poles(design: Design, variant_name: str) -> NDArray[np.complex128] | None:
-    """Poles of C·P·H as read from the model (shown only for delay loops); None for a
-    measured plant."""
-    variant = _variant(design, variant_name)
-    if getattr(variant, "measured", None) is not None:
+def _open_loop_poles(analysis: LoopAnalysis) -> NDArray[np.complex128] | None:
+    """Poles of L as the analysis read them (shown only for delay loops); None when measured."""
+    if analysis.pole_zero is None:
         return None
-    return np.asarray(design.loop(variant).rational.poles, dtype=complex)
+    return np.asarray(analysis.pole_zero.open_loop_poles, dtype=complex)
 
 
 #: Figures that need a model of the plant, with why a measured plant has none of them.
@@ -1049,9 +1030,8 @@ def variant_plots(design: Design, analysis: LoopAnalysis) -> dict[str, Plot]:
     measured = analysis.coverage is not None
     out = {"bode": bode_figure(analysis, unit), "nyquist": nyquist_figure(analysis)}
     if not measured:
-        out["poles"] = pole_zero_figure(analysis, closed_loop_zeros(design, analysis.variant),
-                                        open_loop_poles=_open_loop_poles(design,
-                                                                         analysis.variant))
+        out["poles"] = pole_zero_figure(analysis, closed_loop_zeros(analysis),
+                                        open_loop_poles=_open_loop_poles(analysis))
         out["time"] = time_figure(analysis)
     out["sensitivity"] = sensitivity_figure(
         analysis, unit, reference_band_rad_s=design.requirements.reference_band_rad_s)
