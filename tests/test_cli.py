@@ -152,6 +152,26 @@ def test_bad_input_exits_2_and_writes_nothing(tmp_path: Path, capsys, case: str)
     assert err.startswith("loopwarden: error:") and "Traceback" not in err
 
 
+def test_ill_posed_loop_is_bad_input(tmp_path: Path, capsys) -> None:
+    # L(s) = −s/(s + 1): L(∞) = −1, so 1 + L(∞) = 0 and the loop equations have no
+    # solution [derived]. That is the design's fault: exit 2, nothing written.
+    path = tmp_path / "ill.toml"
+    path.write_text(textwrap.dedent("""
+        [design]
+        name = "ill-posed"
+        [plant]
+        tf = { num = [-1.0, 0.0], den = [1.0, 1.0] }
+        [[controller]]
+        type = "gain"
+        k = 1.0
+        """))
+    out = tmp_path / "r.json"
+    assert main(["review", str(path), "--json", str(out)]) == 2
+    assert not out.exists()
+    err = capsys.readouterr().err
+    assert "ill.toml: plant" in err and "not well posed" in err
+
+
 def test_missing_file_message_names_the_file(tmp_path: Path, capsys) -> None:
     assert main(["review", str(tmp_path / "absent.toml")]) == 2
     assert "absent.toml" in capsys.readouterr().err

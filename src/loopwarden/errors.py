@@ -72,6 +72,14 @@ class AnalysisError(LoopwardenError, ArithmeticError):
     """A computation that could not be completed (reported as an ``error`` finding)."""
 
 
+class IllPosedLoopError(AnalysisError):
+    """1 + L vanishes at infinity (or identically): the loop equations have no solution.
+
+    It is the design's fault, not the tool's: :func:`loopwarden.analysis.analyze_variant`
+    turns it into a :class:`DesignError` naming the plant variant.
+    """
+
+
 def did_you_mean(word: str, choices: Iterable[str]) -> str | None:
     """Return ``"did you mean 'x'?"`` for the closest choice, or None when nothing is close."""
     match = difflib.get_close_matches(word, list(choices), n=1, cutoff=0.6)

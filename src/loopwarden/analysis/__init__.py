@@ -10,7 +10,7 @@ from __future__ import annotations
 from collections.abc import Callable
 from typing import TYPE_CHECKING, TypeVar
 
-from ..errors import AnalysisError
+from ..errors import AnalysisError, DesignError, IllPosedLoopError
 
 if TYPE_CHECKING:  # pragma: no cover - the numerical stack loads only when analysing
     from ..design.model import Design, PlantVariant
@@ -43,8 +43,13 @@ def analyze_variant(design: Design, variant: PlantVariant, *,
 
     from .pole_zero import pole_zero_map
 
-    result = _analyze_loop(design, variant, min_phase_margin_deg=min_phase_margin_deg,
-                           settling_band=settling_band)
+    try:
+        result = _analyze_loop(design, variant, min_phase_margin_deg=min_phase_margin_deg,
+                               settling_band=settling_band)
+    except IllPosedLoopError as exc:
+        raise DesignError(str(exc), file=design.path, where=variant.where,
+                          hint="some block must roll off at high frequency: a strictly "
+                               "proper plant, sensor or controller stage") from exc
     return dataclasses.replace(result, pole_zero=pole_zero_map(design, variant))
 
 

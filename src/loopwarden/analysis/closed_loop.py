@@ -21,7 +21,7 @@ from typing import TypeVar
 import numpy as np
 from numpy.typing import NDArray
 
-from ..errors import AnalysisError
+from ..errors import AnalysisError, IllPosedLoopError
 from ..lti import Loop, Zpk, _real_sections, _section_ss, _series
 
 Matrix = NDArray[np.float64]
@@ -189,7 +189,7 @@ def closed_loop(loop: Loop) -> StateSpace:
     # Close w = u: u = Cu x + Dur r + Duw u  →  u = (Cu x + Dur r) / (1 − Duw)
     duw = sp.d[1, 1]
     if abs(1.0 - duw) < 1e-12:
-        raise AnalysisError("the loop is not well posed: 1 + L(∞) = 0")
+        raise IllPosedLoopError("the loop is not well posed: 1 + L(∞) = 0")
     cu = sp.c[1:2, :] / (1.0 - duw)
     dur = sp.d[1, 0] / (1.0 - duw)
     bw = sp.b[:, 1:2]

@@ -22,7 +22,7 @@ import numpy as np
 from numpy.typing import NDArray
 from scipy import linalg
 
-from ..errors import AnalysisError
+from ..errors import AnalysisError, IllPosedLoopError
 from ..lti import Zpk
 from ..lti_discrete import DiscreteLoop, at_z_one, lti_series
 from .internal import cancellations
@@ -80,7 +80,7 @@ def discrete_closed_loop(loop: DiscreteLoop) -> DiscreteClosedLoop:
     nc, npl = ac.shape[0], ap.shape[0]
     q = 1.0 + float(dc[0, 0] * dp[0, 0])
     if abs(q) < 1e-12:
-        raise AnalysisError("the sampled loop is not well posed: 1 + L(∞) = 0")
+        raise IllPosedLoopError("the sampled loop is not well posed: 1 + L(∞) = 0")
     # u = (Cc xc − Dc Cym xp + Dc r) / q
     ku = np.hstack([cc, -dc[0, 0] * cp[0:1]]) / q
     kr = float(dc[0, 0]) / q

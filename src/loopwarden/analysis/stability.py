@@ -30,7 +30,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import AnalysisError
+from ..errors import AnalysisError, IllPosedLoopError
 from ..lti import ComplexArray, FloatArray, Loop, Zpk
 from .closed_loop import closed_loop_poles
 from .frequency_grid import AXIS_RTOL, bound_frequency, loop_grid
@@ -76,7 +76,7 @@ def _all_poles(loop: Loop) -> ComplexArray:
     char = np.pad(den, (n - den.size, 0)) + np.pad(num, (n - num.size, 0))
     char = np.trim_zeros(char, "f")
     if char.size == 0:
-        raise AnalysisError("the loop is not well posed: 1 + L(s) vanishes identically")
+        raise IllPosedLoopError("the loop is not well posed: 1 + L(s) vanishes identically")
     return np.sort_complex(np.roots(char))
 
 
@@ -219,7 +219,7 @@ def _outer_radius(red: Zpk, delay_s: float) -> tuple[float, complex]:
     else:
         c = complex(1.0 + k)
         if c == 0:
-            raise AnalysisError("the loop is not well posed: 1 + L(∞) = 0")
+            raise IllPosedLoopError("the loop is not well posed: 1 + L(∞) = 0")
         level = abs(k) + 0.5 * abs(c)                    # then |L − k| ≤ |1 + k|/2
     r = bound_frequency(red, level)
     if r is None:
