@@ -9,6 +9,7 @@ from __future__ import annotations
 import datetime as dt
 import os
 from pathlib import Path
+from types import MappingProxyType
 
 from .analysis import analyze
 from .design.model import Design
@@ -77,8 +78,13 @@ def run_review(design: Design, ruleset: str | os.PathLike[str] | RuleSet | None 
             from .design.loader import load_design
 
             baseline = load_design(Path(baseline))
-        base = Baseline(design=baseline, analyses=analyze(
-            baseline, min_phase_margin_deg=min_pm, settling_band=band))
+        from .analysis.regression import compare
+
+        old = analyze(baseline, min_phase_margin_deg=min_pm, settling_band=band)
+        by_name = {a.variant: a for a in old}
+        changes = MappingProxyType({a.variant: compare(by_name[a.variant], a)
+                                    for a in analyses if a.variant in by_name})
+        base = Baseline(design=baseline, analyses=old, changes=changes)
 
     findings = evaluate(design, rs, analyses, today=date, limits=limits,
                         baseline=base.analyses if base is not None else None)

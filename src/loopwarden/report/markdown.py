@@ -9,8 +9,6 @@ those rules gave it (read from the findings' per-figure details, never re-judged
 from __future__ import annotations
 
 from ..analysis.regression import FigureChange
-from ..analysis.regression import compare as compare_figures
-from ..analysis.results import LoopAnalysis
 from ..ruleset.checks import fmt, worsening_pct
 from ..ruleset.model import Finding, Status
 from . import CAUTIONS
@@ -105,11 +103,10 @@ def _change_cell(c: FigureChange) -> str:
     return f"{text} ({fmt(pct, '%')} worse)" if pct > 0 else f"{text} (better)"
 
 
-def _variant_changes(base: LoopAnalysis, cand: LoopAnalysis,
-                     rules: list[Finding]) -> list[str]:
+def _variant_changes(changes: tuple[FigureChange, ...], rules: list[Finding]) -> list[str]:
     lines = ["| Figure | Baseline | Candidate | Change | Allowed worsening | Status |",
              "|---|---|---|---|---|---|"]
-    for c in compare_figures(base, cand):
+    for c in changes:
         judged = [(f, f.details[f"{c.figure}.status"]) for f in rules
                   if f"{c.figure}.status" in f.details]
         statuses = [Status(str(s)) for _f, s in judged]
@@ -132,14 +129,13 @@ def _changes(review: Review) -> list[str]:
              + (f" (revision {b.revision})" if b.revision else "")
              + f", SHA-256 `{b.sha256}`. Change = candidate − baseline; worse is in % of "
              "the baseline value."]
-    base = {a.variant: a for a in review.baseline.analyses}
     for a in review.analyses:
         lines += ["", f"### {a.variant}", ""]
-        old = base.get(a.variant)
-        if old is None:
+        changes = review.baseline.changes.get(a.variant)
+        if changes is None:
             lines.append(f"The baseline has no plant variant named '{a.variant}'; nothing "
                          "to compare.")
             continue
         rules = [f for f in review.findings if f.check == "regression" and f.variant == a.variant]
-        lines += _variant_changes(old, a, rules)
+        lines += _variant_changes(changes, rules)
     return lines

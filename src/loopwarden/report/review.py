@@ -2,8 +2,11 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from types import MappingProxyType
 
+from ..analysis.regression import FigureChange
 from ..analysis.results import LoopAnalysis
 from ..design.model import Design
 from ..ruleset.model import Finding, RuleSet, Status
@@ -22,6 +25,10 @@ class RunInfo:
 class Baseline:
     design: Design
     analyses: tuple[LoopAnalysis, ...]
+    #: candidate variant name → its figures against the baseline variant of the same name
+    #: (computed once when the review is made; variants the baseline lacks are absent)
+    changes: Mapping[str, tuple[FigureChange, ...]] = field(
+        default_factory=lambda: MappingProxyType({}))
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
