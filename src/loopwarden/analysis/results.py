@@ -39,6 +39,18 @@ class Stability:
     marginal: bool = False                         # a closed-loop pole on the boundary
     note: str = ""
     domain: str = "s"                              # "z": sampled loop, poles in z
+    # The certificate (see analysis/roots.py): roots polished on the exact characteristic
+    # function, and the argument principle's count of roots in each region checked.
+    certified: bool = True                         # False: roots and counts disagree
+    unstable_roots_counted: int | None = None      # argument principle: Re s > 0 (|z| > 1)
+    search_abscissa_rad_s: float | None = None     # delay loops: every root with
+                                                   # Re s > −this is in closed_loop_poles
+    roots_right_of_search_counted: int | None = None   # argument principle for that line
+    slow_abscissa_rad_s: float | None = None       # slow region Re s > −this (z: the
+                                                   # circle |z| = e^{−this·T})
+    slow_roots_found: int | None = None
+    slow_roots_counted: int | None = None          # argument principle for the slow region
+    polish_iterations: int = 0
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

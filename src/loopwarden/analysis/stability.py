@@ -95,8 +95,20 @@ def poles_stable(poles: ComplexArray) -> bool:
 
 
 def _pole_stability(loop: Loop) -> Stability:
-    poles = _all_poles(loop)
+    """Rational loop: every root polished on the exact characteristic function, and the
+    right-half-plane count of the Nyquist principle compared with the roots found."""
+    from .certify import rational_roots
+
+    eig = _all_poles(loop)
     rhp_ol, axis_ol = open_loop_pole_counts(loop.rational)
+    problems: list[str] = []
+    iterations = 0
+    try:
+        search = rational_roots(loop, eig)
+        poles, iterations = search.roots, search.iterations
+    except AnalysisError as exc:
+        poles = eig
+        problems.append(f"the roots could not be polished ({exc})")
     tol = _axis_tolerance(poles)
     unstable = int(np.sum(poles.real > tol))
     marginal = bool(np.any(np.abs(poles.real) <= tol))
@@ -105,12 +117,25 @@ def _pole_stability(loop: Loop) -> Stability:
         on_axis = poles[np.abs(poles.real) <= tol]
         note = ("closed-loop pole(s) on the imaginary axis: "
                 + ", ".join(f"{complex(p):.6g}" for p in on_axis if p.imag >= 0))
+    counted: int | None = None
+    try:
+        nc = nyquist_count(loop)
+        counted = nc.rhp_closed_loop_poles
+    except AnalysisError as exc:
+        problems.append(f"the argument-principle count failed ({exc})")
+    if counted is not None and not marginal and counted != unstable:
+        problems.append(f"{unstable} right-half-plane root(s) found but the argument "
+                        f"principle counts {counted}")
+    certified = not problems
+    if problems:
+        note = "; ".join([note, *problems] if note else problems)
     return Stability(
-        closed_loop_stable=unstable == 0 and not marginal, method="poles",
+        closed_loop_stable=certified and unstable == 0 and not marginal, method="poles",
         closed_loop_poles=tuple(complex(p) for p in poles),
         open_loop_rhp_poles=rhp_ol, open_loop_imag_axis_poles=axis_ol,
         rhp_closed_loop_poles=unstable, clockwise_encirclements=None,
-        marginal=marginal, note=note,
+        marginal=marginal, note=note, certified=certified,
+        unstable_roots_counted=counted, polish_iterations=iterations,
     )
 
 
@@ -328,6 +353,7 @@ def _nyquist_stability(loop: Loop) -> Stability:
         )
     nc = nyquist_count(loop)
     marginal = nc.min_return_difference <= MARGINAL_RETURN_DIFFERENCE or nc.hidden_axis_modes > 0
+    roots, extra = _delay_root_fields(loop, nc.rhp_closed_loop_poles, marginal)
     parts = [f"Nyquist count on the D-contour ({nc.contour_points} points): "
              f"N = {nc.clockwise_encirclements} clockwise encirclements of −1, "
              f"P = {nc.open_loop_rhp_poles}, Z = N + P = {nc.rhp_closed_loop_poles}"]
@@ -339,13 +365,46 @@ def _nyquist_stability(loop: Loop) -> Stability:
                      "on the axis in closed loop")
     if nc.min_return_difference <= MARGINAL_RETURN_DIFFERENCE:
         parts.append("1 + L vanishes on the imaginary axis: a closed-loop root lies on it")
+    problems = extra.pop("problems")
+    parts += problems
+    certified = not problems
     return Stability(
-        closed_loop_stable=nc.rhp_closed_loop_poles == 0 and not marginal, method="nyquist",
-        closed_loop_poles=(), open_loop_rhp_poles=rhp_ol, open_loop_imag_axis_poles=axis_ol,
-        rhp_closed_loop_poles=nc.rhp_closed_loop_poles,
+        closed_loop_stable=certified and nc.rhp_closed_loop_poles == 0 and not marginal,
+        method="nyquist", closed_loop_poles=roots, open_loop_rhp_poles=rhp_ol,
+        open_loop_imag_axis_poles=axis_ol, rhp_closed_loop_poles=nc.rhp_closed_loop_poles,
         clockwise_encirclements=nc.clockwise_encirclements, marginal=marginal,
-        note="; ".join(parts),
+        note="; ".join(parts), certified=certified,
+        unstable_roots_counted=nc.rhp_closed_loop_poles, **extra,
     )
+
+
+def _delay_root_fields(loop: Loop, rhp_counted: int, marginal: bool,
+                       ) -> tuple[tuple[complex, ...], dict]:  # type: ignore[type-arg]
+    """The roots right of the search line and the certificate's fields for a delay loop."""
+    from .certify import delay_roots
+
+    problems: list[str] = []
+    try:
+        search = delay_roots(loop)
+    except (AnalysisError, ArithmeticError, ValueError, np.linalg.LinAlgError) as exc:
+        problems.append(f"the closed-loop roots could not be found ({exc})")
+        return (), {"problems": problems}
+    roots = search.roots
+    if search.counted_right_of_search != roots.size:
+        problems.append(
+            f"{roots.size} root(s) found right of Re s = {-search.search_abscissa_rad_s:.6g} "
+            f"but the argument principle counts {search.counted_right_of_search} there")
+    tol = _axis_tolerance(roots) if roots.size else np.zeros(0)
+    found_rhp = int(np.sum(roots.real > tol))
+    if not marginal and found_rhp != rhp_counted:
+        problems.append(f"{found_rhp} right-half-plane root(s) found but the Nyquist count "
+                        f"gives {rhp_counted}")
+    return tuple(complex(r) for r in roots), {
+        "problems": problems,
+        "search_abscissa_rad_s": search.search_abscissa_rad_s,
+        "roots_right_of_search_counted": search.counted_right_of_search,
+        "polish_iterations": search.iterations,
+    }
 
 
 def closed_loop_stability(loop: Loop) -> Stability:
