@@ -149,9 +149,11 @@ def test_relative_delay_margin_in_process_control() -> None:
     # e^(−0.5s)/s: delay margin π/2 − 0.5 [derived] over the 0.5 s dead time
     assert dm.measured == pytest.approx((math.pi / 2 - 0.5) / 0.5, abs=1e-3)
     assert dm.unit == "x" and dm.status is Status.PASS
-    # the slow-pair analysis is not made for delay loops: n/a, not a silent pass
-    assert f["boost.slow_tail"].status is Status.NA
-    assert "transport delay" in f["boost.slow_tail"].message
+    # the slow-pair analysis covers delay loops: e^(−0.5s)/s has no zero, so no pair
+    assert f["boost.slow_tail"].status is Status.PASS
+    # (process-control's rule limits the settling ratio with / without the tail: 1.0)
+    assert f["boost.slow_tail"].measured == 1.0
+    assert "no slow closed-loop pole-zero pair" in f["boost.slow_tail"].message
     no_delay = by_rule(review(TRIPLE, ruleset="process-control").findings)
     assert no_delay["margin.delay"].status is Status.NA
     assert "no transport delay" in no_delay["margin.delay"].message

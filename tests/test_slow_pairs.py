@@ -13,7 +13,6 @@ from scipy import signal
 from loopwarden.analysis.closed_loop import reference_to_output
 from loopwarden.analysis.slow_pairs import CRITERIA, slow_tail
 from loopwarden.analysis.time_response import step_response
-from loopwarden.errors import AnalysisError
 from loopwarden.lti import Loop, Zpk
 
 BAND = 0.02
@@ -208,8 +207,36 @@ def test_fast_pole_near_zero_is_not_slow():
     assert tail.pairs == ()
 
 
-def test_delay_loop_raises():
+def test_delay_loop_slow_pair_against_mpmath_and_the_exact_simulation():
+    """L = (s + 0.1)/(s(s + 1)(s + 0.01))·e^{−0.2 s}: the slow root near the lag zero.
+
+    Reference [derived]: the root of s(s + 1)(s + 0.01) + (s + 0.1)e^{−0.2 s} = 0 by
+    mpmath.findroot at 40 digits, its residue r = C·P·e^{−sT}/(s·L'(s)) with L' by
+    mpmath's numerical differentiation (not the analytic form the code uses), and the
+    tail against the exact-delay step simulation: y(t) − y∞ − r·e^{pt} must be small
+    against r·e^{pt} once the other modes have died out.
+    """
+    import mpmath as mp
+
     loop = make_loop(Zpk([], [0.0, -1.0], 1.0), Zpk([-0.1], [-0.01], 1.0), delay=0.2)
     step = step_response(loop, BAND)
-    with pytest.raises(AnalysisError):
-        slow_tail(loop, step, BAND)
+    tail = slow_tail(loop, step, BAND)
+    assert len(tail.pairs) == 1
+    pair = tail.pairs[0]
+    mp.mp.dps = 40
+
+    def lf(s):
+        return (s + mp.mpf("0.1")) / (s * (s + 1) * (s + mp.mpf("0.01"))) * mp.exp(-s / 5)
+
+    p_ref = mp.findroot(lambda s: 1 + lf(s), mp.mpf("-0.1"))
+    r_ref = lf(p_ref) / (p_ref * mp.diff(lf, p_ref))
+    assert pair.pole.real == pytest.approx(float(p_ref), rel=1e-12)
+    assert pair.pole.imag == 0.0 and pair.zero == -0.1
+    assert pair.residue == pytest.approx(float(r_ref), rel=1e-9)
+    expected_tail = math.log(abs(float(r_ref)) / BAND) / -float(p_ref)
+    assert pair.tail_time_s == pytest.approx(expected_tail, rel=1e-9)
+    # the simulated response (exact delay) carries that term
+    t, y = step.step.time_s, step.step.value
+    late = (t > 0.5 * t[-1]) & (t < 0.8 * t[-1])
+    term = float(r_ref) * np.exp(float(p_ref) * t[late])
+    assert np.max(np.abs(y[late] - 1.0 - term)) < 1e-3 * np.max(np.abs(term))

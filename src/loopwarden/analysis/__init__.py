@@ -67,6 +67,8 @@ def _analyze_loop(design: Design, variant: PlantVariant, *,
         Settling band as a fraction of the final value (default: the design's
         ``requirements.settling_band`` or 0.02).
     """
+    import numpy as np
+
     from . import (
         boost_band,
         frequency_grid,
@@ -115,12 +117,9 @@ def _analyze_loop(design: Design, variant: PlantVariant, *,
     step = step_result.metrics if step_result else None
 
     tail = None
-    if step_result is not None and not loop.has_delay:
-        tail = _attempt(errors, "slow_tail",
-                        lambda: slow_pairs.slow_tail(loop, step_result, band))
-    elif loop.has_delay:
-        errors["slow_tail"] = ("the loop has a transport delay: closed-loop poles and "
-                               "residues are not computed for delay loops")
+    if step_result is not None:
+        tail = _attempt(errors, "slow_tail", lambda: slow_pairs.slow_tail(
+            loop, step_result, band, roots=np.asarray(stab.closed_loop_poles, dtype=complex)))
 
     boosts = boost_band.find_boosts(loop, design.controller, marg,
                                     design.requirements.reference_band_rad_s)

@@ -43,6 +43,8 @@ SEARCH_FACTOR = 3.0
 #: ... but no further than σ·T = this: the number of roots right of the line grows like
 #: e^{σT}, and the roots that decide settling and tails lie well inside it.
 MAX_SEARCH_DELAY_PRODUCT = 4.0
+#: Iterations of the polish for a delay loop's seeds.
+DELAY_ITERATIONS = 60
 #: Two polished roots closer than this (relative) are one root found twice.
 DUPLICATE_RTOL = 1e-8
 
@@ -181,7 +183,10 @@ def delay_roots(loop: Loop) -> RootSearch:
             seeds = _pade_seeds(loop, min(nodes, 40))
         seeds = seeds[np.isfinite(seeds)]
         seeds = seeds[seeds.real > -1.5 * sigma - 1.0 / loop.delay_s]
-        roots, it = polish(fn, seeds)
+        # Seeds of spurious generator eigenvalues find no root and wander: a good seed
+        # converges (cubically) in a few steps, so the iteration is kept short here.
+        roots, it = polish(fn, seeds, abandon_left_of=-2.0 * sigma - 2.0 / loop.delay_s,
+                           max_iterations=DELAY_ITERATIONS)
         iterations += it
         ok = fn.is_root(roots)
         found = _dedupe(roots[ok & (roots.real > -sigma)])

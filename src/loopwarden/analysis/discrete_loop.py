@@ -31,6 +31,7 @@ from .discrete_response import (
     discrete_tracking,
 )
 from .results import Curves, LoopAnalysis, SampledInfo, TimeSeries
+from .slow_pairs import slow_tail
 
 __all__ = ["INTER_SAMPLE_NOTE", "NOT_IN_Z", "analyze_sampled", "sampled_info"]
 
@@ -42,8 +43,6 @@ INTER_SAMPLE_NOTE = (
 
 #: Checks built on continuous closed-loop poles and stage models, not done in z.
 NOT_IN_Z = {
-    "slow_pair_tail": "sampled loop: the slow-pair analysis works on continuous "
-                      "closed-loop poles and residues and is not done in z",
     "boost_band": "sampled loop: the boost-band analysis of lag stages is done for "
                   "continuous controllers only",
     "lag_phase_budget": "sampled loop: the lag phase budget is priced for continuous "
@@ -106,6 +105,13 @@ def analyze_sampled(design: Design, variant: PlantVariant, band: float) -> LoopA
             errors["step"] = f"{type(exc).__name__}: {exc}"
     else:
         errors["step"] = "closed loop is unstable: no settled step response"
+    tail = None
+    if step_result is not None:
+        try:
+            tail = slow_tail(loop, step_result, band,
+                             roots=np.asarray(stab.closed_loop_poles, dtype=complex))
+        except (AnalysisError, ArithmeticError, ValueError) as exc:
+            errors["slow_tail"] = f"{type(exc).__name__}: {exc}"
     phi = unit_circle_grid(loop.rational, points_per_decade=60, uniform=400)
     if phi.size > 2000:
         phi = phi[np.unique(np.linspace(0, phi.size - 1, 2000).round().astype(int))]
@@ -120,7 +126,7 @@ def analyze_sampled(design: Design, variant: PlantVariant, band: float) -> LoopA
     return LoopAnalysis(
         variant=variant.name, stability=stab, internal=intern, margins=marg,
         sensitivity=sens, tracking=track,
-        step=step_result.metrics if step_result else None, slow_tail=None, boosts=(),
+        step=step_result.metrics if step_result else None, slow_tail=tail, boosts=(),
         integral_alternatives=(), curves=curves, errors=errors, sampling=info,
         not_applicable=MappingProxyType(dict(NOT_IN_Z)),
     )

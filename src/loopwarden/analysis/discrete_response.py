@@ -43,6 +43,8 @@ Matrix = NDArray[np.float64]
 
 #: | |λ| − 1 | below this (relative): a closed-loop pole on the unit circle.
 CIRCLE_TOL = 1e-9
+#: The count of unstable roots is taken on |z| = 1 + this (clear of integrators at z = 1).
+COUNT_RADIUS_MARGIN = 1e-7
 #: A zero within this relative distance of a pole cancels it (as in continuous time).
 CANCEL_RTOL = 1e-3
 HORIZON_TAIL_FRACTION = 0.01
@@ -116,9 +118,27 @@ def discrete_stability(loop: DiscreteLoop) -> Stability:
     1e−9) makes the loop marginal, which is not stable.  The counts of ``Stability``
     read "outside the unit circle" / "on the unit circle" (``domain = "z"``).
     """
+    from .certify import z_roots
+    from .roots import count_outside_circle, z_char_function
+
     cl = discrete_closed_loop(loop)
-    poles = np.sort_complex(linalg.eigvals(cl.a)) if cl.order else np.zeros(0, complex)
+    eig = np.sort_complex(linalg.eigvals(cl.a)) if cl.order else np.zeros(0, complex)
+    problems: list[str] = []
+    search = z_roots(loop.rational, eig)
+    poles = search.roots
     outside, on = _circle_counts(poles)
+    counted: int | None = None
+    fn = z_char_function(loop.rational)
+    if fn.degree == poles.size and fn.gain != 0.0:
+        try:
+            counted = count_outside_circle(fn, 1.0 + COUNT_RADIUS_MARGIN)[0]
+        except AnalysisError as exc:
+            problems.append(f"the argument-principle count failed ({exc})")
+        beyond = int(np.sum(np.abs(poles) > 1.0 + COUNT_RADIUS_MARGIN))
+        if counted is not None and counted != beyond:
+            problems.append(f"{beyond} root(s) found outside |z| = 1 + "
+                            f"{COUNT_RADIUS_MARGIN:g} but the argument principle counts "
+                            f"{counted} there")
     open_poles = np.concatenate([loop.controller.poles, loop.sampled.poles])
     ol_out, ol_on = _circle_counts(open_poles)
     rho = float(np.max(np.abs(poles))) if poles.size else 0.0
@@ -128,12 +148,15 @@ def discrete_stability(loop: DiscreteLoop) -> Stability:
         note += "; pole(s) on the unit circle: " + ", ".join(
             f"{complex(p):.6g}" for p in poles if abs(abs(p) - 1.0) <= CIRCLE_TOL
             and p.imag >= 0)
+    if problems:
+        note += "; " + "; ".join(problems)
     return Stability(
-        closed_loop_stable=outside == 0 and on == 0, method="poles",
+        closed_loop_stable=not problems and outside == 0 and on == 0, method="poles",
         closed_loop_poles=tuple(complex(p) for p in poles),
         open_loop_rhp_poles=ol_out, open_loop_imag_axis_poles=ol_on,
         rhp_closed_loop_poles=outside, clockwise_encirclements=None,
-        marginal=on > 0, note=note, domain="z",
+        marginal=on > 0, note=note, domain="z", certified=not problems,
+        unstable_roots_counted=counted, polish_iterations=search.iterations,
     )
 
 

@@ -177,6 +177,8 @@ class SlowPair:
     tail_time_s: float                             # time for the tail to enter the band
     ramp_residue: float                            # residue of the ramp-error response
     ramp_tail_time_s: float
+    tail_samples: float | None = None              # sampled loop: tail_time_s / period
+    domain: str = "s"                              # "z": pole and zero are in z
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

@@ -213,12 +213,15 @@ def _cluster_seeds(fn: CharFunction, seeds: ComplexArray) -> ComplexArray:
 
 
 def polish(fn: CharFunction, seeds: ComplexArray, *,
-           max_iterations: int = MAX_ITERATIONS) -> tuple[ComplexArray, int]:
+           max_iterations: int = MAX_ITERATIONS,
+           abandon_left_of: float | None = None) -> tuple[ComplexArray, int]:
     """Polish ``seeds`` into roots of ``fn`` by the Ehrlich–Aberth iteration.
 
     For a rational loop pass exactly ``fn.degree`` seeds; for a delay loop pass the seeds
     of the roots wanted (the iteration then works on ``f`` deflated by the other
-    approximations, so each converges to a root of its own).
+    approximations, so each converges to a root of its own).  With ``abandon_left_of``
+    an approximation that moves left of that abscissa stops iterating (a delay loop's
+    roots far left are not wanted).
 
     Returns
     -------
@@ -258,6 +261,8 @@ def polish(fn: CharFunction, seeds: ComplexArray, *,
         # Converged, or down at the rounding noise of f and no longer shrinking.
         done = (rel <= CONVERGED_RTOL) | ((rel <= 1e-11) & (size >= 0.5 * last[idx]))
         last[idx] = size
+        if abandon_left_of is not None:
+            done |= x[idx].real < abandon_left_of
         active[idx[done]] = False
         if not active.any():
             break
