@@ -198,6 +198,36 @@ def delay_roots(loop: Loop) -> RootSearch:
 
 
 # --------------------------------------------------------------------------- slow region
+def slow_certificate(fn: CharFunction, roots: ComplexArray, zeros: ComplexArray, *,
+                     period_s: float | None = None, search_abscissa: float | None = None,
+                     ) -> tuple[dict[str, float | int | None], list[str]]:
+    """The slow region's count: fields for :class:`~.results.Stability` and problems.
+
+    The region is ``Re s > −σ`` with σ = ω_dom/3 (:func:`.slow_pairs.slow_abscissa`; for a
+    sampled loop the disc's outside ``|z| > e^{−σT}``), where every slow pair's pole lies.
+    For a delay loop it stays inside the search line.
+    """
+    from .slow_pairs import slow_abscissa
+
+    stable = roots[(roots.real < 0) if period_s is None else (np.abs(roots) < 1.0)]
+    sigma = slow_abscissa(stable, zeros, period_s=period_s)
+    if sigma is None or fn.gain == 0.0:
+        return {}, []
+    if search_abscissa is not None:
+        sigma = min(sigma, 0.9 * search_abscissa)
+    try:
+        found, counted, sigma = slow_count(fn, sigma, period_s=period_s, roots=roots)
+    except AnalysisError as exc:
+        return {"slow_abscissa_rad_s": sigma}, [f"the slow region's count failed ({exc})"]
+    fields: dict[str, float | int | None] = {
+        "slow_abscissa_rad_s": sigma, "slow_roots_found": found, "slow_roots_counted": counted}
+    problems = []
+    if found != counted:
+        problems.append(f"{found} root(s) found in the slow region (Re s > {-sigma:.6g}) but "
+                        f"the argument principle counts {counted} there")
+    return fields, problems
+
+
 def slow_count(fn: CharFunction, sigma: float, *, period_s: float | None = None,
                roots: ComplexArray) -> tuple[int, int, float]:
     """(roots found, roots counted) in the slow region and the σ used.

@@ -118,7 +118,7 @@ def discrete_stability(loop: DiscreteLoop) -> Stability:
     1e−9) makes the loop marginal, which is not stable.  The counts of ``Stability``
     read "outside the unit circle" / "on the unit circle" (``domain = "z"``).
     """
-    from .certify import z_roots
+    from .certify import slow_certificate, z_roots
     from .roots import count_outside_circle, z_char_function
 
     cl = discrete_closed_loop(loop)
@@ -148,6 +148,11 @@ def discrete_stability(loop: DiscreteLoop) -> Stability:
         note += "; pole(s) on the unit circle: " + ", ".join(
             f"{complex(p):.6g}" for p in poles if abs(abs(p) - 1.0) <= CIRCLE_TOL
             and p.imag >= 0)
+    slow: dict = {}  # type: ignore[type-arg]
+    if not problems and on == 0 and counted is not None:
+        zeros = np.concatenate([loop.controller.zeros, loop.sampled.transfer(output=1).zeros])
+        slow, more = slow_certificate(fn, poles, zeros, period_s=loop.period_s)
+        problems += more
     if problems:
         note += "; " + "; ".join(problems)
     return Stability(
@@ -156,7 +161,7 @@ def discrete_stability(loop: DiscreteLoop) -> Stability:
         open_loop_rhp_poles=ol_out, open_loop_imag_axis_poles=ol_on,
         rhp_closed_loop_poles=outside, clockwise_encirclements=None,
         marginal=on > 0, note=note, domain="z", certified=not problems,
-        unstable_roots_counted=counted, polish_iterations=search.iterations,
+        unstable_roots_counted=counted, polish_iterations=search.iterations, **slow,
     )
 
 

@@ -32,9 +32,11 @@ import numpy as np
 
 from ..errors import AnalysisError, IllPosedLoopError
 from ..lti import ComplexArray, FloatArray, Loop, Zpk
+from .certify import slow_certificate
 from .closed_loop import closed_loop_poles
 from .frequency_grid import AXIS_RTOL, bound_frequency, loop_grid
 from .results import Stability
+from .roots import char_function
 
 __all__ = ["NyquistCount", "closed_loop_stability", "nyquist_count", "open_loop_pole_counts",
            "poles_stable"]
@@ -126,6 +128,10 @@ def _pole_stability(loop: Loop) -> Stability:
     if counted is not None and not marginal and counted != unstable:
         problems.append(f"{unstable} right-half-plane root(s) found but the argument "
                         f"principle counts {counted}")
+    slow: dict = {}  # type: ignore[type-arg]
+    if not problems and not marginal:
+        slow, more = slow_certificate(char_function(loop), poles, _reference_zeros(loop))
+        problems += more
     certified = not problems
     if problems:
         note = "; ".join([note, *problems] if note else problems)
@@ -135,8 +141,13 @@ def _pole_stability(loop: Loop) -> Stability:
         open_loop_rhp_poles=rhp_ol, open_loop_imag_axis_poles=axis_ol,
         rhp_closed_loop_poles=unstable, clockwise_encirclements=None,
         marginal=marginal, note=note, certified=certified,
-        unstable_roots_counted=counted, polish_iterations=iterations,
+        unstable_roots_counted=counted, polish_iterations=iterations, **slow,
     )
+
+
+def _reference_zeros(loop: Loop) -> ComplexArray:
+    """Zeros of the reference-to-output response: those of C·P and the sensor's poles."""
+    return np.concatenate([loop.forward.zeros, loop.sensor.poles])
 
 
 # --------------------------------------------------------------------------- Nyquist
@@ -399,8 +410,13 @@ def _delay_root_fields(loop: Loop, rhp_counted: int, marginal: bool,
     if not marginal and found_rhp != rhp_counted:
         problems.append(f"{found_rhp} right-half-plane root(s) found but the Nyquist count "
                         f"gives {rhp_counted}")
+    slow: dict = {}  # type: ignore[type-arg]
+    if not problems and not marginal:
+        slow, more = slow_certificate(char_function(loop), roots, _reference_zeros(loop),
+                                      search_abscissa=search.search_abscissa_rad_s)
+        problems += more
     return tuple(complex(r) for r in roots), {
-        "problems": problems,
+        "problems": problems, **slow,
         "search_abscissa_rad_s": search.search_abscissa_rad_s,
         "roots_right_of_search_counted": search.counted_right_of_search,
         "polish_iterations": search.iterations,

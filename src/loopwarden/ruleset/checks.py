@@ -190,6 +190,10 @@ def _db(x: float) -> float:
 def closed_loop_stability(a: LoopAnalysis, rule: Rule, design: Design, *,
                           baseline: LoopAnalysis | None = None) -> Measurement:
     st = a.stability
+    if not st.certified:
+        # Roots and the argument principle disagree: neither verdict can be trusted.
+        raise AnalysisError(f"the closed-loop roots of variant '{a.variant}' are not "
+                            f"certified: {st.note}")
     sampled = st.domain == "z"
     how = ("closed-loop poles in z" if sampled else "closed-loop poles" if st.method == "poles"
            else f"Nyquist count, {st.open_loop_rhp_poles} open-loop RHP poles")
