@@ -95,6 +95,11 @@ def test_rule_set_choice_changes_the_verdict(tmp_path: Path) -> None:
         version = "1"
         title = "lenient"
         [[rule]]
+        id = "stability.closed_loop"
+        check = "closed_loop_stability"
+        rationale = "every rule set gates on stability"
+        source = "definition"
+        [[rule]]
         id = "pm"
         check = "phase_margin"
         min = 40.0

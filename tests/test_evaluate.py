@@ -254,6 +254,11 @@ def test_requirement_no_rule_checks_is_reported(tmp_path: Path) -> None:
         version = "1"
         title = "phase margin only"
         [[rule]]
+        id = "stability.closed_loop"
+        check = "closed_loop_stability"
+        rationale = "every rule set gates on stability"
+        source = "definition"
+        [[rule]]
         id = "margin.phase"
         check = "phase_margin"
         min = 30.0
@@ -286,6 +291,11 @@ def test_severity_decides_what_a_breach_becomes(tmp_path: Path, severity: str, l
 id = "s"
 version = "1"
 title = "severity"
+[[rule]]
+id = "stability.closed_loop"
+check = "closed_loop_stability"
+rationale = "every rule set gates on stability"
+source = "definition"
 [[rule]]
 id = "pm"
 check = "phase_margin"
