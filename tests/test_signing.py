@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import datetime as dt
 import functools
 import io
 import os
@@ -26,6 +27,10 @@ from loopwarden.signing.verify import verify_pdf
 ROOT = Path(__file__).resolve().parents[1]
 DESIGN = ROOT / "sample_designs" / "hoist_lag_tail.toml"
 PASS = b"correct horse"
+#: One signing time for the session: the review date of a signed review may lie at most
+#: 3 days before it (issue 12), so the signed fixtures are dated on its day.
+SIGNED_AT = dt.datetime.now(dt.UTC).replace(microsecond=0)
+TODAY = SIGNED_AT.date().isoformat()
 
 
 @pytest.fixture(scope="session")
@@ -42,9 +47,9 @@ def keys(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
 def _unsigned() -> tuple[bytes, str, str]:
     import dataclasses
 
-    review = loopwarden.review(loopwarden.load_design(str(DESIGN)), today="2026-01-15")
-    review = dataclasses.replace(review, run=dataclasses.replace(review.run,
-                                                                 signer="Alice Reviewer"))
+    review = loopwarden.review(loopwarden.load_design(str(DESIGN)), today=TODAY)
+    review = dataclasses.replace(review, run=dataclasses.replace(
+        review.run, signer="Alice Reviewer", signed_at=SIGNED_AT.strftime("%Y-%m-%dT%H:%M:%SZ")))
     files = {"review.json": renderer("json").render(review),
              "design.toml": review.design.text.encode("utf-8"),
              "rules.toml": review.ruleset.text.encode("utf-8")}
@@ -55,7 +60,7 @@ def _unsigned() -> tuple[bytes, str, str]:
 def signed(keys: dict[str, Path], tmp_path_factory: pytest.TempPathFactory) -> Path:
     pdf, _, _ = _unsigned()
     path = tmp_path_factory.mktemp("signed") / "review.pdf"
-    path.write_bytes(sign_pdf(pdf, keys["alice"], PASS))
+    path.write_bytes(sign_pdf(pdf, keys["alice"], PASS, signing_time=SIGNED_AT))
     return path
 
 
@@ -314,7 +319,7 @@ def test_key_issued_by_a_ca_verifies_against_the_ca(keys: dict[str, Path],
     # The release path: the organisation's CA certificate is the trust anchor.
     p12, ca_pem = _ca_issued_key(tmp_path)
     pdf, _, _ = _unsigned()
-    path = _write(tmp_path, sign_pdf(pdf, p12, None), "release.pdf")
+    path = _write(tmp_path, sign_pdf(pdf, p12, None, signing_time=SIGNED_AT), "release.pdf")
     report = verify_pdf(path, trust=ca_pem)
     # The evidence names the trial signer (Alice); everything else must pass.
     assert _failed(report) == {"signer named in evidence"}
@@ -344,8 +349,7 @@ def spindle_signed(keys: dict[str, Path], tmp_path_factory: pytest.TempPathFacto
     pw.write_bytes(PASS + b"\n")
     pdf = folder / "review.pdf"
     code = main(["review", str(inputs / "spindle_sweep.toml"), "--out", str(pdf), "--sign",
-                 str(keys["alice"]), "--passphrase-file", str(pw), "--date", "2026-01-15",
-                 "--quiet"])
+                 str(keys["alice"]), "--passphrase-file", str(pw), "--quiet"])
     assert code == 0
     return {"pdf": pdf, "design": inputs / "spindle_sweep.toml",
             "csv": inputs / "spindle_sweep.csv", "trust": keys["alice"].with_suffix(".pem")}
