@@ -172,7 +172,11 @@ def check_out_dir(out_dir: Path, names: Iterable[str], inputs: Sequence[Path]) -
         if target.resolve() in resolved_inputs:
             raise UsageError(f"--out {out_dir}: {name} would overwrite an input file",
                              hint="choose another output folder; nothing was written")
-        if target.is_dir() or (target.exists() and not _ours(target)):
+        if target.is_symlink() or (target.exists() and not target.is_file()):
+            raise UsageError(f"--out {out_dir}: {name} exists and is not a regular file (a "
+                             "link, pipe, device or folder)",
+                             hint="refusing to replace it; nothing was written")
+        if target.exists() and not _ours(target):
             raise UsageError(
                 f"--out {out_dir}: {name} exists and was not written by loopwarden",
                 hint="use a new or empty folder, or one an earlier batch wrote; refusing "
@@ -470,7 +474,9 @@ def _write_summaries(result: BatchResult, ruleset: Any, date: str,
     from . import __version__
     from .report.atomic import write_outputs
 
+    # check_out_dir recognised any existing summary as a batch's own (_ours) before the run
     write_outputs({result.out_dir / SUMMARY_CSV: summary_csv(result),
                    result.out_dir / SUMMARY_MD: summary_md(result, ruleset, date,
-                                                           tool_version or __version__)})
+                                                           tool_version or __version__)},
+                  ours=_ours)
 
