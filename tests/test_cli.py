@@ -307,3 +307,17 @@ def test_signed_review_and_wrong_passphrase(tmp_path: Path) -> None:
     assert any(f.get("/FT") == "/Sig" for f in fields.values())
     doc = json.loads((tmp_path / "r.json").read_text(encoding="utf-8"))
     assert doc["signer"] and "Trial Reviewer" in doc["signer"]
+
+
+def test_waiver_for_an_unknown_rule_exits_2(tmp_path: Path, capsys) -> None:
+    design = put(tmp_path, PASSING + """
+        [[waivers]]
+        rule = "margin.phse"
+        reason = "typo"
+        approved_by = "QA"
+        expires = 2030-01-01
+        """)
+    assert main(["review", str(design), "--quiet", "--json", str(tmp_path / "r.json")]) == 2
+    assert not (tmp_path / "r.json").exists()
+    err = capsys.readouterr().err
+    assert "waivers[1].rule" in err and "margin.phse" in err and "margin.phase" in err

@@ -8,8 +8,9 @@ run in a Markdown viewer, and a control character must not make the JUnit XML un
   newline and tab) and the bidirectional-override characters are shown as visible
   escapes (``\\x1b``, ``\\u202e``), never sent raw.
 - :func:`for_xml`: characters XML 1.0 forbids (C0 controls other than tab, newline and
-  carriage return; lone surrogates; U+FFFE, U+FFFF) are shown the same visible way, so the
-  document always parses.
+  carriage return; lone surrogates; U+FFFE, U+FFFF), and DEL, C1 controls and bidi
+  overrides (allowed, but terminal controls where CI prints them), are shown the same
+  visible way, so the document always parses.
 - :func:`for_markdown`: as for the terminal, then the characters Markdown or embedded HTML
   would interpret are backslash-escaped or written as entities.
 """
@@ -25,7 +26,10 @@ __all__ = ["for_markdown", "for_terminal", "for_xml"]
 _TERMINAL_UNSAFE = re.compile("[\x00-\x08\x0b-\x1f\x7f-\x9f\u2028\u2029\u202a-\u202e"
                               "\u2066-\u2069]")
 #: Not allowed anywhere in an XML 1.0 document.
-_XML_UNSAFE = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\ud800-\udfff\ufffe\uffff]")
+#: Not allowed anywhere in an XML 1.0 document, or (DEL, C1) allowed but "discouraged" and
+#: control sequences to a terminal that shows the text; bidi overrides as for the terminal.
+_XML_UNSAFE = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f\u202a-\u202e\u2066-\u2069"
+                         "\ud800-\udfff\ufffe\uffff]")
 #: Markdown/HTML syntax characters that change how a table cell or heading renders.
 #: ``_`` only where it could start or end emphasis (CommonMark ignores it inside a word).
 _MARKDOWN_SPECIAL = re.compile(r"([\\`*\[\]~]|(?<![A-Za-z0-9])_|_(?![A-Za-z0-9]))")
