@@ -58,8 +58,10 @@ def run(args: argparse.Namespace) -> int:
                                       "nothing was written")
     passphrase = read_passphrase(args, confirm=True)
     cert = make_key(Path(args.out), args.name, passphrase, days=args.days)
-    print(f"wrote {args.out} (private key and certificate, mode 0600)")
-    print(f"wrote {cert} (certificate: give it to verifiers for --trust)")
+    from ..report.escape import for_terminal
+
+    print(for_terminal(f"wrote {args.out} (private key and certificate, mode 0600)"))
+    print(for_terminal(f"wrote {cert} (certificate: give it to verifiers for --trust)"))
     if passphrase is None:
         print("warning: the key file is not encrypted (no passphrase given); keep it private",
               file=sys.stderr)
