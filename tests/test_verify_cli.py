@@ -177,3 +177,23 @@ def test_keygen_never_writes_over_its_passphrase_file(tmp_path: Path) -> None:
     assert main(["keygen", "--out", str(tmp_path / "k.p12"), "--name", "A",
                  "--passphrase-file", str(pw)]) == 2
     assert pw.read_bytes() == b"secret\n" and not (tmp_path / "k.p12").exists()
+
+
+def test_signed_pdf_records_review_date_and_signing_time(signed: tuple[Path, Path, Path]
+                                                         ) -> None:
+    import json
+
+    from pypdf import PdfReader
+
+    from loopwarden.signing.verify import embedded_files
+
+    pdf, _, _ = signed
+    reader = PdfReader(str(pdf))
+    cover = reader.pages[0].extract_text()
+    assert "Review date" in cover and "Signing time" in cover and "UTC" in cover
+    from pyhanko.pdf_utils.reader import PdfFileReader
+
+    with pdf.open("rb") as fh:
+        doc = json.loads(embedded_files(PdfFileReader(fh, strict=False))["review.json"])
+    assert doc["signer"] == "CLI Signer"
+    assert doc["signed_at"].endswith("Z") and doc["signed_at"][:10] >= doc["date"]

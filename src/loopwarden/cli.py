@@ -91,13 +91,16 @@ class _SafeStream:
 @contextlib.contextmanager
 def _safe_streams() -> Iterator[None]:
     saved = sys.stdout, sys.stderr
-    sys.stdout = _SafeStream(sys.stdout)  # type: ignore[assignment]
-    sys.stderr = _SafeStream(sys.stderr)  # type: ignore[assignment]
+    if sys.stdout is not None:            # None without a console (pythonw)
+        sys.stdout = _SafeStream(sys.stdout)  # type: ignore[assignment]
+    if sys.stderr is not None:
+        sys.stderr = _SafeStream(sys.stderr)  # type: ignore[assignment]
     try:
         yield
     finally:
         with contextlib.suppress(Exception):
-            sys.stdout.flush()
+            if sys.stdout is not None:
+                sys.stdout.flush()
         sys.stdout, sys.stderr = saved
 
 
