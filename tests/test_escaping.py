@@ -156,3 +156,17 @@ def test_rules_show_neutralises_a_user_sets_texts(tmp_path: Path, capsys) -> Non
     assert main(["rules", "--show", str(rules)]) == 0
     out = capsys.readouterr().out
     assert "\x1b" not in out and "\x07" not in out and "\\x1b]0;pwned\\x07" in out
+
+
+def test_batch_summary_escapes_design_names(tmp_path: Path) -> None:
+    designs = tmp_path / "in"
+    designs.mkdir()
+    (designs / "a.toml").write_text(_design("<img src=x onerror=alert(1)> | *x*", "v"),
+                                    encoding="utf-8")
+    assert main(["batch", str(designs), "--out", str(tmp_path / "out"), "--quiet",
+                 "--date", "2025-02-02"]) == 1
+    text = (tmp_path / "out" / "summary.md").read_text(encoding="utf-8")
+    assert "<img" not in text and "&lt;img src=x onerror=alert(1)&gt; \\| \\*x\\*" in text
+    row = next(line for line in text.splitlines() if "&lt;img" in line)
+    assert row.replace("\\|", "").count(" | ") == 6          # seven cells
+    assert "`a.json`" in row
