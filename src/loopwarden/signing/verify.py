@@ -309,13 +309,12 @@ def _verify(data: bytes, roots: list[Any] | None, trust: Path | str | None,
                             f"cannot read the signature value: {type(exc).__name__}: {exc}"))
     signing_time = None
     try:
-        signing_time = status.signer_reported_dt or sig.self_reported_timestamp
-    except Exception:  # noqa: BLE001 - judged below as "no signing time"
-        signing_time = None
-    if signing_time is not None:
         from .review_age import signing_time_text
 
-        signed_at = signing_time_text(signing_time)
+        signing_time = status.signer_reported_dt or sig.self_reported_timestamp
+        signed_at = signing_time_text(signing_time) if signing_time is not None else None
+    except Exception:  # noqa: BLE001 - judged below as "no signing time"
+        signing_time = None
 
     # 5. evidence from the signed revision
     try:
