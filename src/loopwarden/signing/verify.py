@@ -563,5 +563,6 @@ def _dates(evidence: dict[str, Any], signing_time: Any, checks: list[Check]) -> 
         return
     problem = review_date_problem(date, signing_time)
     checks.append(Check("review date and signing time", problem is None,
-                        problem or f"reviewed {date.isoformat()}, signed {signed} (at most "
-                                   f"{MAX_REVIEW_AGE_DAYS} days apart, never before)"))
+                        problem or f"reviewed {date.isoformat()}, signed {signed} (the "
+                                   f"review date may lie at most {MAX_REVIEW_AGE_DAYS} days "
+                                   "before the signing time, never after it)"))
