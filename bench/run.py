@@ -194,8 +194,8 @@ _REVIEW = """\
 import resource, sys, time
 t0 = time.perf_counter()
 from loopwarden.cli import main
-rc = main(["review", sys.argv[1], "--out", sys.argv[2], "--sign", sys.argv[3], "--quiet",
-           "--date", "2026-01-01"])
+# signed, so dated today: a signed review may not be back-dated
+rc = main(["review", sys.argv[1], "--out", sys.argv[2], "--sign", sys.argv[3], "--quiet"])
 print("RESULT", rc, time.perf_counter() - t0,
       resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024)
 """

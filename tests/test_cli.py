@@ -95,6 +95,11 @@ def test_rule_set_choice_changes_the_verdict(tmp_path: Path) -> None:
         version = "1"
         title = "lenient"
         [[rule]]
+        id = "stability.closed_loop"
+        check = "closed_loop_stability"
+        rationale = "every rule set gates on stability"
+        source = "definition"
+        [[rule]]
         id = "pm"
         check = "phase_margin"
         min = 40.0
@@ -210,11 +215,16 @@ def test_two_runs_are_byte_identical(tmp_path: Path, monkeypatch) -> None:
 
 
 def test_existing_output_is_replaced(tmp_path: Path) -> None:
+    # A file loopwarden did not write is replaced only with --force (issue 12); one it
+    # wrote (a review JSON) is replaced on the next run.
     design = put(tmp_path, PASSING)
     target = tmp_path / "r.json"
     target.write_text("old", encoding="utf-8")
-    assert main(["review", str(design), "--quiet", "--json", str(target)]) == 0
+    assert main(["review", str(design), "--quiet", "--json", str(target)]) == 2
+    assert target.read_text(encoding="utf-8") == "old"
+    assert main(["review", str(design), "--quiet", "--json", str(target), "--force"]) == 0
     assert json.loads(target.read_text(encoding="utf-8"))["schema"] == "loopwarden-review/1"
+    assert main(["review", str(design), "--quiet", "--json", str(target)]) == 0
 
 
 # --------------------------------------------------------------------------- rules command
@@ -286,7 +296,7 @@ def test_signed_review_and_wrong_passphrase(tmp_path: Path) -> None:
     (tmp_path / "pw.txt").write_text("s3cret\n", encoding="utf-8")
     (tmp_path / "bad.txt").write_text("guess\n", encoding="utf-8")
     design = put(tmp_path, PASSING)
-    base = ["review", str(design), "--quiet", "--date", "2025-05-05", "--sign", str(key)]
+    base = ["review", str(design), "--quiet", "--sign", str(key)]   # signed: dated today
     pdf = tmp_path / "signed.pdf"
     assert main([*base, "--passphrase-file", str(tmp_path / "bad.txt"), "--out", str(pdf),
                  "--json", str(tmp_path / "r.json")]) == 2
@@ -297,3 +307,17 @@ def test_signed_review_and_wrong_passphrase(tmp_path: Path) -> None:
     assert any(f.get("/FT") == "/Sig" for f in fields.values())
     doc = json.loads((tmp_path / "r.json").read_text(encoding="utf-8"))
     assert doc["signer"] and "Trial Reviewer" in doc["signer"]
+
+
+def test_waiver_for_an_unknown_rule_exits_2(tmp_path: Path, capsys) -> None:
+    design = put(tmp_path, PASSING + """
+        [[waivers]]
+        rule = "margin.phse"
+        reason = "typo"
+        approved_by = "QA"
+        expires = 2030-01-01
+        """)
+    assert main(["review", str(design), "--quiet", "--json", str(tmp_path / "r.json")]) == 2
+    assert not (tmp_path / "r.json").exists()
+    err = capsys.readouterr().err
+    assert "waivers[1].rule" in err and "margin.phse" in err and "margin.phase" in err

@@ -256,6 +256,11 @@ def test_requirement_no_rule_checks_is_reported(tmp_path: Path) -> None:
         version = "1"
         title = "phase margin only"
         [[rule]]
+        id = "stability.closed_loop"
+        check = "closed_loop_stability"
+        rationale = "every rule set gates on stability"
+        source = "definition"
+        [[rule]]
         id = "margin.phase"
         check = "phase_margin"
         min = 30.0
@@ -288,6 +293,11 @@ def test_severity_decides_what_a_breach_becomes(tmp_path: Path, severity: str, l
 id = "s"
 version = "1"
 title = "severity"
+[[rule]]
+id = "stability.closed_loop"
+check = "closed_loop_stability"
+rationale = "every rule set gates on stability"
+source = "definition"
 [[rule]]
 id = "pm"
 check = "phase_margin"
@@ -359,8 +369,43 @@ def test_expired_waiver_does_not_count() -> None:
     assert r.verdict == "fail"
 
 
-def test_waiver_matching_nothing_is_a_warning() -> None:
-    r = review(OGATA, WAIVER.replace('"margin.phase"', '"margin.phse"'))
+def test_waiver_for_a_rule_the_set_does_not_have_is_a_design_error() -> None:
+    # A misspelt waiver was once only a warning; now it stops the review (exit 2).
+    with pytest.raises(DesignError, match="waiver for rule 'margin.phse'") as info:
+        review(OGATA, WAIVER.replace('"margin.phase"', '"margin.phse"'))
+    assert info.value.where == "waivers[1].rule"
+    assert "did you mean 'margin.phase'" in str(info.value)
+    assert info.value.exit_code == 2
+
+
+def test_waiver_matching_no_finding_is_a_warning(tmp_path: Path) -> None:
+    # The rule exists but only runs on the nominal plant: a waiver for another variant
+    # matches nothing and is reported.
+    path = tmp_path / "n.toml"
+    path.write_text(textwrap.dedent("""
+        [ruleset]
+        id = "n"
+        version = "1"
+        title = "nominal only"
+        [[rule]]
+        id = "stability.closed_loop"
+        check = "closed_loop_stability"
+        rationale = "r"
+        source = "s"
+        [[rule]]
+        id = "margin.phase"
+        check = "phase_margin"
+        min = 45.0
+        variants = "nominal"
+        rationale = "r"
+        source = "s"
+        """), encoding="utf-8")
+    variant = """
+[[plant.variants]]
+name = "light"
+zpk = { zeros = [], poles = [0.0, -1.0, -2.0], gain = 2.0 }
+"""
+    r = review(OGATA, variant + WAIVER + 'variant = "light"\n', ruleset=str(path))
     extra = [f for f in r.findings if f.check == "waiver"]
     assert len(extra) == 1 and extra[0].status is Status.WARN
     assert "matches no finding" in extra[0].message and "margin.phase" in extra[0].message

@@ -34,11 +34,6 @@ variant = "nominal"
 reason = "trial"
 approved_by = "QA"
 expires = 2030-01-01
-[[waivers]]
-rule = "no.such.rule"
-reason = "stale"
-approved_by = "QA"
-expires = 2030-01-01
 """
 
 
@@ -58,7 +53,7 @@ def test_one_testcase_per_rule_and_variant(review, root: ET.Element) -> None:
     n_rules = len(review.ruleset.rules)
     per_variant = [c for c in cases if c.get("classname", "").endswith(".nominal")]
     assert len(per_variant) == n_rules
-    assert len(cases) == len(review.findings) == 2 * n_rules + 1   # + the stale waiver
+    assert len(cases) == len(review.findings) == 2 * n_rules
     assert int(root.get("tests")) == len(cases)
 
 
@@ -94,8 +89,7 @@ def test_properties_carry_measured_limit_unit(root: ET.Element) -> None:
 def test_failure_text_and_suites(root: ET.Element) -> None:
     suites = root.findall("testsuite")
     assert [s.get("name") for s in suites] == [
-        "Conveyor <index> & axis [nominal]", "Conveyor <index> & axis [worn belt]",
-        "Conveyor <index> & axis [(design)]"]
+        "Conveyor <index> & axis [nominal]", "Conveyor <index> & axis [worn belt]"]
     worn = suites[1]
     stab = next(c for c in worn if c.get("name") == "stability.closed_loop")
     assert "unstable" in stab.find("failure").get("message")
@@ -105,3 +99,32 @@ def test_failure_text_and_suites(root: ET.Element) -> None:
 def test_deterministic(review) -> None:
     assert junit.render(review) == junit.render(review)
     assert junit.render(review).startswith(b"<?xml")
+
+
+def test_design_wide_findings_get_their_own_suite(tmp_path) -> None:
+    # A requirement no rule of the set checks is a design-wide finding (variant None).
+    rules = tmp_path / "pm.toml"
+    rules.write_text(textwrap.dedent("""
+        [ruleset]
+        id = "pm"
+        version = "1"
+        title = "stability and phase margin"
+        [[rule]]
+        id = "stability.closed_loop"
+        check = "closed_loop_stability"
+        rationale = "r"
+        source = "s"
+        [[rule]]
+        id = "margin.phase"
+        check = "phase_margin"
+        min = 30.0
+        rationale = "r"
+        source = "s"
+        """), encoding="utf-8")
+    design = parse_design(textwrap.dedent(DESIGN) + "[requirements]\novershoot = 20.0\n",
+                          "conveyor.toml")
+    r = run_review(design, str(rules), today="2025-01-01", tool_version="t")
+    suites = ET.fromstring(junit.render(r)).findall("testsuite")
+    assert suites[-1].get("name") == "Conveyor <index> & axis [(design)]"
+    (case,) = suites[-1].findall("testcase")
+    assert case.get("name") == "requirements.overshoot"

@@ -50,6 +50,14 @@ rationale = "moderate overshoot"
 source = "common practice [practice]"
 """
 
+STAB_RULE = """
+[[rule]]
+id = "stability.closed_loop"
+check = "closed_loop_stability"
+rationale = "nothing else means anything without it"
+source = "definition of closed-loop stability"
+"""
+
 
 # --------------------------------------------------------------------------- meta-test
 def test_catalog_holds_exactly_the_contract_checks() -> None:
@@ -185,7 +193,7 @@ def test_unknown_set_name_suggests_a_shipped_one() -> None:
 
 
 def test_extends_relative_path_and_replacement(tmp_path: Path) -> None:
-    write(tmp_path, "base.toml", HEAD.replace('"t"', '"base"') + PM_RULE + """
+    write(tmp_path, "base.toml", HEAD.replace('"t"', '"base"') + STAB_RULE + PM_RULE + """
 [[rule]]
 id = "robustness.ms"
 check = "peak_sensitivity"
@@ -206,9 +214,10 @@ rationale = "r"
 source = "s [derived]"
 """)
     rs = load_ruleset(str(child))
-    assert [r.id for r in rs.rules] == ["margin.phase", "robustness.ms", "tracking.type"]
-    assert rs.rules[0].limits["min"] == 60.0 and rs.rules[0].origin == "child 1.0"
-    assert rs.rules[1].origin == "base 1.0"
+    assert [r.id for r in rs.rules] == ["stability.closed_loop", "margin.phase",
+                                        "robustness.ms", "tracking.type"]
+    assert rs.rules[1].limits["min"] == 60.0 and rs.rules[1].origin == "child 1.0"
+    assert rs.rules[2].origin == "base 1.0"
     assert rs.extends == ("base",)
 
 
@@ -263,3 +272,65 @@ def test_every_catalog_check_documents_its_unit_and_limits() -> None:
         assert check.predicate or check.limit_keys, name
         for key in check.limit_keys:
             assert re.fullmatch(r"(warn_)?(min|max)(_[a-z]+)?", key), (name, key)
+
+
+# --------------------------------------------------------------------------- stability gate
+@pytest.mark.parametrize("name", ["general", "motion-servo", "process-control"])
+def test_shipped_sets_gate_on_both_stability_checks(name: str) -> None:
+    by_id = {r.id: r for r in load_ruleset(name).rules}
+    assert by_id["stability.closed_loop"].check == "closed_loop_stability"
+    assert by_id["stability.internal"].check == "internal_stability"
+
+
+def test_a_set_without_a_closed_loop_stability_rule_is_refused(tmp_path: Path) -> None:
+    path = write(tmp_path, "pm.toml", HEAD + PM_RULE)
+    with pytest.raises(RuleSetError, match="no rule checks closed_loop_stability") as info:
+        load_ruleset(str(path))
+    assert info.value.file == str(path) and info.value.where == "rule"
+    assert load_ruleset(str(write(tmp_path, "ok.toml", HEAD + STAB_RULE + PM_RULE)))
+
+
+def test_an_empty_set_is_refused(tmp_path: Path) -> None:
+    path = write(tmp_path, "empty.toml", HEAD)
+    with pytest.raises(RuleSetError, match="has no rules") as info:
+        load_ruleset(str(path))
+    assert info.value.file == str(path)
+
+
+@pytest.mark.parametrize("rule_id", ["stability.closed_loop", "stability.internal"])
+def test_a_child_cannot_replace_a_stability_rule_with_another_check(tmp_path: Path,
+                                                                     rule_id: str) -> None:
+    # extends general, then reuses the gate's id for a harmless phase-margin rule
+    child = write(tmp_path, "bent.toml", HEAD.replace(
+        'title = "test set"', 'title = "bent"\nextends = "general"')
+        + PM_RULE.replace('id = "margin.phase"', f'id = "{rule_id}"'))
+    with pytest.raises(RuleSetError, match=f"rule id '{rule_id}' is reserved") as info:
+        load_ruleset(str(child))
+    assert info.value.file == str(child) and info.value.where.endswith(".check")
+
+
+def test_a_stability_rule_cannot_be_narrowed_to_the_nominal_plant(tmp_path: Path) -> None:
+    path = write(tmp_path, "nom.toml", HEAD + STAB_RULE + 'variants = "nominal"\n')
+    with pytest.raises(RuleSetError, match="applies to every plant variant") as info:
+        load_ruleset(str(path))
+    assert info.value.where.endswith(".variants")
+
+
+def test_a_child_may_restate_the_stability_rule(tmp_path: Path) -> None:
+    child = write(tmp_path, "same.toml", HEAD.replace(
+        'title = "test set"', 'title = "same"\nextends = "general"') + STAB_RULE)
+    rs = load_ruleset(str(child))
+    assert [r.id for r in rs.rules] == [r.id for r in load_ruleset("general").rules]
+
+
+def test_review_with_a_set_without_stability_exits_2(tmp_path: Path, capsys) -> None:
+    from loopwarden.cli import main
+
+    rules = write(tmp_path, "pm.toml", HEAD + PM_RULE)
+    design = Path(__file__).resolve().parents[1] / "sample_designs" / "tank_level.toml"
+    out = tmp_path / "r.json"
+    assert main(["review", str(design), "--rules", str(rules), "--json", str(out),
+                 "--quiet"]) == 2
+    assert not out.exists()
+    err = capsys.readouterr().err
+    assert str(rules) in err and "closed_loop_stability" in err

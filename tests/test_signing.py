@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import datetime as dt
 import functools
 import io
 import os
@@ -26,6 +27,10 @@ from loopwarden.signing.verify import verify_pdf
 ROOT = Path(__file__).resolve().parents[1]
 DESIGN = ROOT / "sample_designs" / "hoist_lag_tail.toml"
 PASS = b"correct horse"
+#: One signing time for the session: the review date of a signed review may lie at most
+#: 3 days before it (issue 12), so the signed fixtures are dated on its day.
+SIGNED_AT = dt.datetime.now(dt.UTC).replace(microsecond=0)
+TODAY = SIGNED_AT.date().isoformat()
 
 
 @pytest.fixture(scope="session")
@@ -42,9 +47,9 @@ def keys(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
 def _unsigned() -> tuple[bytes, str, str]:
     import dataclasses
 
-    review = loopwarden.review(loopwarden.load_design(str(DESIGN)), today="2026-01-15")
-    review = dataclasses.replace(review, run=dataclasses.replace(review.run,
-                                                                 signer="Alice Reviewer"))
+    review = loopwarden.review(loopwarden.load_design(str(DESIGN)), today=TODAY)
+    review = dataclasses.replace(review, run=dataclasses.replace(
+        review.run, signer="Alice Reviewer", signed_at=SIGNED_AT.strftime("%Y-%m-%dT%H:%M:%SZ")))
     files = {"review.json": renderer("json").render(review),
              "design.toml": review.design.text.encode("utf-8"),
              "rules.toml": review.ruleset.text.encode("utf-8")}
@@ -55,7 +60,7 @@ def _unsigned() -> tuple[bytes, str, str]:
 def signed(keys: dict[str, Path], tmp_path_factory: pytest.TempPathFactory) -> Path:
     pdf, _, _ = _unsigned()
     path = tmp_path_factory.mktemp("signed") / "review.pdf"
-    path.write_bytes(sign_pdf(pdf, keys["alice"], PASS))
+    path.write_bytes(sign_pdf(pdf, keys["alice"], PASS, signing_time=SIGNED_AT))
     return path
 
 
@@ -314,7 +319,7 @@ def test_key_issued_by_a_ca_verifies_against_the_ca(keys: dict[str, Path],
     # The release path: the organisation's CA certificate is the trust anchor.
     p12, ca_pem = _ca_issued_key(tmp_path)
     pdf, _, _ = _unsigned()
-    path = _write(tmp_path, sign_pdf(pdf, p12, None), "release.pdf")
+    path = _write(tmp_path, sign_pdf(pdf, p12, None, signing_time=SIGNED_AT), "release.pdf")
     report = verify_pdf(path, trust=ca_pem)
     # The evidence names the trial signer (Alice); everything else must pass.
     assert _failed(report) == {"signer named in evidence"}
@@ -344,8 +349,7 @@ def spindle_signed(keys: dict[str, Path], tmp_path_factory: pytest.TempPathFacto
     pw.write_bytes(PASS + b"\n")
     pdf = folder / "review.pdf"
     code = main(["review", str(inputs / "spindle_sweep.toml"), "--out", str(pdf), "--sign",
-                 str(keys["alice"]), "--passphrase-file", str(pw), "--date", "2026-01-15",
-                 "--quiet"])
+                 str(keys["alice"]), "--passphrase-file", str(pw), "--quiet"])
     assert code == 0
     return {"pdf": pdf, "design": inputs / "spindle_sweep.toml",
             "csv": inputs / "spindle_sweep.csv", "trust": keys["alice"].with_suffix(".pem")}
@@ -431,3 +435,146 @@ def test_plant_attachment_names_are_safe_and_distinct() -> None:
     assert names["heavy/load"] == "plant-heavy-load-2.csv"
     assert names["../x"] == "plant-x.csv" and names["ü"] == "plant-variant.csv"
     assert len(set(names.values())) == len(names)
+
+
+# --------------------------------------------------------------------------- evidence (issue 12)
+def _render_dated(date: dt.date, signed_at: dt.datetime) -> bytes:
+    """The hoist review dated ``date``, its evidence recording ``signed_at``."""
+    import dataclasses
+
+    from loopwarden.signing.review_age import signing_time_text
+
+    review = loopwarden.review(loopwarden.load_design(str(DESIGN)), today=date.isoformat())
+    review = dataclasses.replace(review, run=dataclasses.replace(
+        review.run, signer="Alice Reviewer", signed_at=signing_time_text(signed_at)))
+    files = {"review.json": renderer("json").render(review),
+             "design.toml": review.design.text.encode("utf-8"),
+             "rules.toml": review.ruleset.text.encode("utf-8")}
+    return render_pdf(review, embedded=files)
+
+
+def _check(report, name: str):  # type: ignore[no-untyped-def]
+    return next(c for c in report.checks if c.name == name)
+
+
+def test_verify_reports_review_date_and_signing_time(signed: Path,
+                                                     keys: dict[str, Path]) -> None:
+    report = verify_pdf(signed, trust=keys["alice"].with_suffix(".pem"))
+    assert report.ok
+    assert report.review_date == TODAY
+    assert report.signed_at == SIGNED_AT.strftime("%Y-%m-%dT%H:%M:%SZ")
+    assert _check(report, "signing time recorded").passed
+    assert _check(report, "review date and signing time").passed
+    assert _check(report, "signature padding").passed
+
+
+@pytest.mark.parametrize(("days_before", "ok"), [(0, True), (3, True), (4, False),
+                                                 (-2, False)])
+def test_review_date_must_lie_within_3_days_before_signing(days_before: int, ok: bool,
+                                                           keys: dict[str, Path],
+                                                           tmp_path: Path) -> None:
+    # The signing time is set 12:00 UTC on a fixed day, so the day arithmetic is exact
+    # [derived: MAX_REVIEW_AGE_DAYS = 3; a date begins first at UTC+14].
+    signed_at = dt.datetime(2026, 6, 10, 12, 0, 0, tzinfo=dt.UTC)
+    date = signed_at.date() - dt.timedelta(days=days_before)
+    pdf = sign_pdf(_render_dated(date, signed_at), keys["alice"], PASS, signing_time=signed_at)
+    report = verify_pdf(_write(tmp_path, pdf), trust=keys["alice"].with_suffix(".pem"))
+    check = _check(report, "review date and signing time")
+    assert check.passed is ok and report.ok is ok, check.detail
+    assert _check(report, "signing time recorded").passed
+    if not ok:
+        assert ("after the signing time" if days_before < 0 else "at most 3") in check.detail
+
+
+def test_review_date_rule_at_its_edges() -> None:
+    from loopwarden.signing.review_age import review_date_problem
+
+    noon = dt.datetime(2026, 6, 10, 12, 0, 0, tzinfo=dt.UTC)
+    assert review_date_problem(dt.date(2026, 6, 7), noon) is None            # 3 days
+    assert "4 days" in review_date_problem(dt.date(2026, 6, 6), noon)
+    # 2026-06-11 begins at UTC+14 on 2026-06-10 10:00 UTC: already begun at noon UTC
+    assert review_date_problem(dt.date(2026, 6, 11), noon) is None
+    early = dt.datetime(2026, 6, 10, 9, 59, 0, tzinfo=dt.UTC)
+    assert "after the signing time" in review_date_problem(dt.date(2026, 6, 11), early)
+    assert "after" in review_date_problem(dt.date(2026, 6, 12), noon)
+
+
+def test_evidence_signing_time_must_match_the_signature(keys: dict[str, Path],
+                                                        tmp_path: Path) -> None:
+    pdf, _, _ = _unsigned()        # records SIGNED_AT; signed an hour later
+    later = SIGNED_AT + dt.timedelta(hours=1)
+    report = verify_pdf(_write(tmp_path, sign_pdf(pdf, keys["alice"], PASS,
+                                                  signing_time=later)),
+                        trust=keys["alice"].with_suffix(".pem"))
+    assert _failed(report) == {"signing time recorded"} and not report.ok
+
+
+def test_evidence_without_signing_time_fails(keys: dict[str, Path], tmp_path: Path) -> None:
+    import dataclasses
+
+    review = loopwarden.review(loopwarden.load_design(str(DESIGN)), today=TODAY)
+    review = dataclasses.replace(review, run=dataclasses.replace(review.run,
+                                                                 signer="Alice Reviewer"))
+    files = {"review.json": renderer("json").render(review),
+             "design.toml": review.design.text.encode("utf-8"),
+             "rules.toml": review.ruleset.text.encode("utf-8")}
+    pdf = sign_pdf(render_pdf(review, embedded=files), keys["alice"], PASS,
+                   signing_time=SIGNED_AT)
+    report = verify_pdf(_write(tmp_path, pdf), trust=keys["alice"].with_suffix(".pem"))
+    assert _failed(report) == {"signing time recorded"}
+
+
+def _contents_gap(data: bytes) -> tuple[int, int]:
+    """Start and end of the unsigned gap (the /Contents hex string) of a signed file."""
+    import re
+
+    m = re.search(rb"/ByteRange\s*\[\s*(\d+)\s+(\d+)\s+(\d+)\s+(\d+)\s*\]", data)
+    assert m is not None
+    a, b, c, _d = (int(x) for x in m.groups())
+    return a + b, c
+
+
+def test_nonzero_byte_in_the_signature_padding_fails(signed: Path, keys: dict[str, Path],
+                                                     tmp_path: Path) -> None:
+    data = bytearray(signed.read_bytes())
+    start, end = _contents_gap(bytes(data))
+    assert data[start:start + 1] == b"<" and data[end - 1:end] == b">"
+    # The padding is the zeros at the end of the hex string; outside the signed range,
+    # so the signature itself stays intact.
+    assert data[end - 11:end - 1] == b"0" * 10
+    data[end - 5] = ord("7")
+    report = verify_pdf(_write(tmp_path, bytes(data)), trust=keys["alice"].with_suffix(".pem"))
+    assert _failed(report) == {"signature padding"} and not report.ok
+    assert "non-zero" in _check(report, "signature padding").detail
+    # A non-hex character there fails too (pyHanko cannot even parse the file then).
+    data[end - 5] = ord("g")
+    report = verify_pdf(_write(tmp_path, bytes(data), "hex.pdf"),
+                        trust=keys["alice"].with_suffix(".pem"))
+    assert not report.ok and _failed(report) & {"readable PDF", "signature padding"}
+
+
+def test_passphrase_with_nul_or_invalid_utf8_is_a_usage_error(tmp_path: Path) -> None:
+    for i, bad in enumerate((b"pass\x00word\n", b"\xff\xfe secret\n")):
+        f = tmp_path / f"pw{i}"
+        f.write_bytes(bad)
+        f.chmod(0o600)
+        with pytest.raises(UsageError, match="NUL byte|not valid UTF-8"):
+            read_passphrase(f, environ={}, interactive=False)
+    # from the environment: non-UTF-8 bytes arrive as lone surrogates
+    with pytest.raises(UsageError, match="not valid UTF-8"):
+        read_passphrase(None, environ={PASSPHRASE_ENV: "\udcff\udcfe"}, interactive=False)
+    with pytest.raises(UsageError, match="NUL"):
+        make_key(tmp_path / "k.p12", "X", b"a\x00b")
+    assert not (tmp_path / "k.p12").exists()
+
+
+def test_passphrase_file_readable_by_others_draws_a_warning(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    f = tmp_path / "pw"
+    f.write_bytes(b"secret\n")
+    f.chmod(0o644)
+    assert read_passphrase(f, environ={}, interactive=False) == b"secret"
+    assert "readable by others" in capsys.readouterr().err
+    f.chmod(0o600)
+    assert read_passphrase(f, environ={}, interactive=False) == b"secret"
+    assert capsys.readouterr().err == ""

@@ -172,7 +172,11 @@ def check_out_dir(out_dir: Path, names: Iterable[str], inputs: Sequence[Path]) -
         if target.resolve() in resolved_inputs:
             raise UsageError(f"--out {out_dir}: {name} would overwrite an input file",
                              hint="choose another output folder; nothing was written")
-        if target.is_dir() or (target.exists() and not _ours(target)):
+        if target.is_symlink() or (target.exists() and not target.is_file()):
+            raise UsageError(f"--out {out_dir}: {name} exists and is not a regular file (a "
+                             "link, pipe, device or folder)",
+                             hint="refusing to replace it; nothing was written")
+        if target.exists() and not _ours(target):
             raise UsageError(
                 f"--out {out_dir}: {name} exists and was not written by loopwarden",
                 hint="use a new or empty folder, or one an earlier batch wrote; refusing "
@@ -432,13 +436,19 @@ def summary_csv(result: BatchResult) -> bytes:
     return frame.to_csv(index=False, lineterminator="\n").encode("utf-8")
 
 
-def _md_cell(text: str) -> str:
-    return text.replace("\\", "\\\\").replace("|", "\\|").replace("\n", " ")
+def _md_code(text: str) -> str:
+    """A file name as a code span: literal there (no HTML, no markup); controls shown."""
+    from .report.escape import for_terminal
+
+    # (a | still splits a table cell inside a code span: escape it)
+    return "`" + for_terminal(text).replace("`", "'").replace("\n", " ").replace(
+        "|", "\\|") + "`"
 
 
 def summary_md(result: BatchResult, ruleset: Any, date: str, tool_version: str) -> bytes:
     """summary.md: totals, then one table row per design (verdict, worst findings)."""
     from .report import CAUTIONS
+    from .report.escape import for_markdown
 
     n = len(result.outcomes)
     not_read = result.count("error") + result.count("internal")
@@ -446,7 +456,8 @@ def summary_md(result: BatchResult, ruleset: Any, date: str, tool_version: str) 
         MD_TITLE, "",
         f"**{n} design{'s' if n != 1 else ''}: {result.count('pass')} pass, "
         f"{result.count('fail')} fail, {not_read} could not be reviewed**", "",
-        f"- Rule set: {ruleset.id} {ruleset.version} ({ruleset.title}), SHA-256 "
+        f"- Rule set: {for_markdown(f'{ruleset.id} {ruleset.version} ({ruleset.title})')}, "
+        "SHA-256 "
         f"`{ruleset.sha256}`",
         f"- Date: {date}; loopwarden {tool_version}",
         "",
@@ -454,13 +465,15 @@ def summary_md(result: BatchResult, ruleset: Any, date: str, tool_version: str) 
         "|---|---|---|---|---|---|---|",
     ]
     for o in result.outcomes:
-        review = "" if o.error is not None else f"`{Path(o.output).name}`"
+        review = "" if o.error is not None else _md_code(Path(o.output).name)
         verdict = {"pass": "pass", "fail": "FAIL", "error": "ERROR",
                    "internal": "INTERNAL ERROR"}[o.verdict]
         worst = o.error if o.error is not None else "; ".join(o.worst) or "none"
-        cells = (o.design or "", f"`{o.path}`", review, verdict,
-                 "" if o.error else str(o.n_fail), "" if o.error else str(o.n_warn), worst)
-        lines.append("| " + " | ".join(_md_cell(c) for c in cells) + " |")
+        # names and messages come from the design files: escaped (no raw HTML or markup)
+        cells = (for_markdown(o.design or ""), _md_code(o.path), review, verdict,
+                 "" if o.error else str(o.n_fail), "" if o.error else str(o.n_warn),
+                 for_markdown(worst))
+        lines.append("| " + " | ".join(cells) + " |")
     lines += ["", f"> **Caution.** {CAUTIONS}", ""]
     return "\n".join(lines).encode("utf-8")
 
@@ -470,7 +483,9 @@ def _write_summaries(result: BatchResult, ruleset: Any, date: str,
     from . import __version__
     from .report.atomic import write_outputs
 
+    # check_out_dir recognised any existing summary as a batch's own (_ours) before the run
     write_outputs({result.out_dir / SUMMARY_CSV: summary_csv(result),
                    result.out_dir / SUMMARY_MD: summary_md(result, ruleset, date,
-                                                           tool_version or __version__)})
+                                                           tool_version or __version__)},
+                  ours=_ours)
 

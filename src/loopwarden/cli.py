@@ -10,10 +10,12 @@ from __future__ import annotations
 import argparse
 import contextlib
 import importlib
+import io
 import os
 import sys
 import traceback
 from collections.abc import Iterator, Sequence
+from typing import Any, TextIO
 
 from . import __version__
 from .errors import LoopwardenError, UserError
@@ -38,19 +40,89 @@ class _Exit(Exception):
         self.code = code
 
 
+class _SafeStream:
+    """stdout/stderr as the commands see them: never a crash for a message.
+
+    A character the terminal's encoding cannot show (``PYTHONIOENCODING=ascii``, a C
+    locale) is replaced instead of raising; a reader that went away (``| head -1``) makes
+    the rest of the output go nowhere instead of raising BrokenPipeError, so the command
+    finishes and its exit status is unchanged.
+    """
+
+    def __init__(self, stream: TextIO) -> None:
+        self._stream = stream
+        self.broken = False
+
+    def write(self, text: str) -> int:
+        if self.broken:
+            return len(text)
+        try:
+            try:
+                self._stream.write(text)
+            except UnicodeEncodeError:
+                enc = getattr(self._stream, "encoding", None) or "ascii"
+                self._stream.write(text.encode(enc, "replace").decode(enc, "replace"))
+        except BrokenPipeError:
+            self._went_away()
+        return len(text)
+
+    def flush(self) -> None:
+        if self.broken:
+            return
+        try:
+            self._stream.flush()
+        except BrokenPipeError:
+            self._went_away()
+
+    def _went_away(self) -> None:
+        self.broken = True
+        # The interpreter flushes stdout once more at exit: point the descriptor at
+        # /dev/null so that flush cannot fail (and print "Exception ignored ...") either.
+        with contextlib.suppress(OSError, ValueError, AttributeError,
+                                 io.UnsupportedOperation):
+            devnull = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(devnull, self._stream.fileno())
+            os.close(devnull)
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self._stream, name)
+
+
+@contextlib.contextmanager
+def _safe_streams() -> Iterator[None]:
+    saved = sys.stdout, sys.stderr
+    if sys.stdout is not None:            # None without a console (pythonw)
+        sys.stdout = _SafeStream(sys.stdout)  # type: ignore[assignment]
+    if sys.stderr is not None:
+        sys.stderr = _SafeStream(sys.stderr)  # type: ignore[assignment]
+    try:
+        yield
+    finally:
+        with contextlib.suppress(Exception):
+            if sys.stdout is not None:
+                sys.stdout.flush()
+        sys.stdout, sys.stderr = saved
+
+
 @contextlib.contextmanager
 def error_boundary() -> Iterator[None]:
-    """Map exceptions to a message on stderr and an exit status."""
+    """Map exceptions to a message on stderr and an exit status.
+
+    Messages name files, tables and values from the inputs: control characters in them are
+    shown as visible escapes, never sent to the terminal raw.
+    """
+    from .report.escape import for_terminal
+
     try:
         yield
     except UserError as exc:
-        print(f"loopwarden: error: {exc}", file=sys.stderr)
+        print(f"loopwarden: error: {for_terminal(str(exc))}", file=sys.stderr)
         raise _Exit(EXIT_BAD_INPUT) from exc
     except KeyboardInterrupt as exc:
         print("loopwarden: interrupted; nothing was written", file=sys.stderr)
         raise _Exit(130) from exc
     except LoopwardenError as exc:
-        print(f"loopwarden: internal error: {exc}", file=sys.stderr)
+        print(f"loopwarden: internal error: {for_terminal(str(exc))}", file=sys.stderr)
         raise _Exit(EXIT_INTERNAL) from exc
     except Exception as exc:  # noqa: BLE001 - the one place that catches everything
         print("loopwarden: internal error (a bug; please report it with this trace):",
@@ -87,6 +159,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the exit status."""
     for name in _SINGLE_THREADED:
         os.environ.setdefault(name, "1")
+    with _safe_streams():
+        return _main(argv)
+
+
+def _main(argv: Sequence[str] | None) -> int:
     args_list = list(sys.argv[1:] if argv is None else argv)
     # Only the chosen command's module is imported (keeps --help fast).
     chosen = next((a for a in args_list if not a.startswith("-")), None)

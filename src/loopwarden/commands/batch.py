@@ -23,8 +23,9 @@ outputs, in --out (created when missing):
                       error); a design that could not be read has one row with the error
   summary.md          one table row per design: verdict and worst findings
 A file of these names may already be in --out only if loopwarden wrote it (a review JSON
-with its schema key, or an earlier batch's summary); anything else stops the batch before
-any work, and nothing is written. Delete or move such files, or choose another folder.
+with its schema key, or an earlier batch's summary); anything else (or a link, pipe,
+device or folder of such a name) stops the batch before any work, and nothing is
+written. Delete or move such files, or choose another folder.
 
 progress: a bar on stderr when it is a terminal, one line per design otherwise, nothing
 with --quiet.

@@ -13,10 +13,12 @@ authority); give verifiers that authority's certificate for --trust.
 
 passphrase: --passphrase-file FILE (first line), else LOOPWARDEN_KEY_PASSPHRASE, else a
 prompt when run in a terminal; an empty passphrase leaves the key file unencrypted.
-Never on the command line.
+Never on the command line. It must be UTF-8 text without NUL bytes (exit 2 otherwise); a
+passphrase file readable by group or others draws a warning (chmod 600 it).
 
 writes KEY.p12 (private key and certificate, mode 0600) and KEY.pem (the certificate, for
-'loopwarden verify --trust'). Existing files are never overwritten.
+'loopwarden verify --trust'). Existing files (and symbolic links, and the passphrase
+file) are never overwritten.
 """
 
 NOT_FOR_RELEASES = ("This is a self-signed key for trials. It proves that the same key "
@@ -43,14 +45,23 @@ def run(args: argparse.Namespace) -> int:
     from pathlib import Path
 
     from ..errors import UsageError
-    from ..signing.keys import make_key, read_passphrase
+    from ..signing.keys import certificate_path, make_key, read_passphrase
 
     if args.days < 1:
         raise UsageError(f"--days {args.days}: expected a positive number of days")
+    if args.passphrase_file:
+        pw = Path(args.passphrase_file).resolve()
+        for out in (Path(args.out), certificate_path(Path(args.out))):
+            if out.resolve() == pw:
+                raise UsageError(f"{out} is the passphrase file, an input of this run",
+                                 hint="refusing to overwrite it; choose another name; "
+                                      "nothing was written")
     passphrase = read_passphrase(args, confirm=True)
     cert = make_key(Path(args.out), args.name, passphrase, days=args.days)
-    print(f"wrote {args.out} (private key and certificate, mode 0600)")
-    print(f"wrote {cert} (certificate: give it to verifiers for --trust)")
+    from ..report.escape import for_terminal
+
+    print(for_terminal(f"wrote {args.out} (private key and certificate, mode 0600)"))
+    print(for_terminal(f"wrote {cert} (certificate: give it to verifiers for --trust)"))
     if passphrase is None:
         print("warning: the key file is not encrypted (no passphrase given); keep it private",
               file=sys.stderr)

@@ -10,7 +10,9 @@ from __future__ import annotations
 
 import argparse
 import dataclasses
+import datetime as dt
 import hashlib
+import os
 import sys
 from pathlib import Path
 
@@ -21,7 +23,14 @@ outputs: --json (evidence, schema loopwarden-review/1), --junit (CI), --markdown
 --out (PDF review, optionally signed with --sign). A compact findings table goes to
 stdout unless --quiet.
 
+existing files: an output may replace only a file loopwarden wrote (a review JSON, a PDF
+review, JUnit or Markdown with loopwarden's marker comment); --force allows replacing other
+regular files. Never replaced: an input of the run (design, baseline, rule sets, measured
+plant CSVs, key, passphrase file), a symbolic link, a pipe, a device or a folder.
+
 date: --date, else SOURCE_DATE_EPOCH, else today (UTC); waiver expiry is judged on it.
+With --sign the date may lie at most 3 days before the signing time and never after it;
+the PDF records both the review date and the signing time.
 
 exit status: 0 nothing fails (waived counts as not failing), 1 a finding fails or could
 not be computed, 2 bad input (nothing written), 3 internal error.
@@ -46,6 +55,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="file holding the key's passphrase (first line)")
     parser.add_argument("--date", metavar="YYYY-MM-DD",
                         help="review date (default SOURCE_DATE_EPOCH or today, UTC)")
+    parser.add_argument("--force", action="store_true",
+                        help="replace an existing output file loopwarden did not write "
+                             "(never an input of the run, a link, a pipe or a device)")
     parser.add_argument("--quiet", "-q", action="store_true",
                         help="print nothing; only the exit status tells")
 
@@ -85,6 +97,34 @@ def _embedded(review: object, evidence: bytes) -> dict[str, bytes]:
     return files
 
 
+def _signing_time_now(date: object, args: argparse.Namespace) -> dt.datetime:
+    """Now (UTC, whole seconds), after checking the review date may be signed at it."""
+    from ..errors import UsageError
+    from ..signing.review_age import MAX_REVIEW_AGE_DAYS, review_date_problem
+
+    assert isinstance(date, dt.date)
+    now = dt.datetime.now(dt.UTC).replace(microsecond=0)
+    problem = review_date_problem(date, now)
+    if problem is not None:
+        source = (f"--date {args.date}" if args.date is not None else
+                  "SOURCE_DATE_EPOCH" if os.environ.get("SOURCE_DATE_EPOCH") else "the date")
+        raise UsageError(f"{source}: {problem}",
+                         hint=f"a signed review is dated at most {MAX_REVIEW_AGE_DAYS} days "
+                              "before it is signed, never after; nothing was written")
+    return now
+
+
+def _measured_files(*designs: object) -> list[Path]:
+    """The measured-plant CSV files the designs name (inputs of the run)."""
+    from ..design.model import Design
+
+    out = []
+    for d in designs:
+        if isinstance(d, Design):
+            out += [Path(v.measured.path) for v in d.variants if v.measured is not None]
+    return out
+
+
 def run(args: argparse.Namespace) -> int:
     from ..design.loader import load_design
     from ..errors import UsageError
@@ -92,23 +132,27 @@ def run(args: argparse.Namespace) -> int:
     from ..report.atomic import check_outputs, write_outputs
     from ..review_run import review_date, run_review
     from ..ruleset.loader import load_ruleset
+    from ..signing.review_age import signing_time_text
 
     date = review_date(args.date)
     if args.sign and not args.out:
         raise UsageError("--sign needs --out (the PDF to sign)")
     if args.passphrase_file and not args.sign:
         raise UsageError("--passphrase-file is only used with --sign")
+    if args.sign:
+        _signing_time_now(date, args)           # fail fast: a back-dated signed review
     outputs = [(opt, Path(p)) for opt, p in (("--out", args.out), ("--json", args.json),
                                              ("--junit", args.junit),
                                              ("--markdown", args.markdown)) if p]
     inputs = [Path(p) for p in (args.design, args.baseline, args.sign, args.passphrase_file)
               if p]
-    check_outputs(outputs, inputs=inputs)       # fail fast, before any analysis
+    check_outputs(outputs, inputs=inputs, force=args.force)   # before any analysis
 
     design = load_design(args.design)
+    baseline = load_design(args.baseline) if args.baseline else None
     ruleset = load_ruleset(args.rules)
-    inputs += [Path(f.path) for f in ruleset.files]
-    check_outputs(outputs, inputs=inputs)
+    inputs += [Path(f.path) for f in ruleset.files] + _measured_files(design, baseline)
+    check_outputs(outputs, inputs=inputs, force=args.force)
     passphrase, signer = None, None
     if args.sign:
         # Open the key before the analysis: a wrong passphrase is bad input (exit 2), and
@@ -118,9 +162,14 @@ def run(args: argparse.Namespace) -> int:
         passphrase = read_passphrase(args)
         signer = signer_name(args.sign, passphrase)
 
-    review = run_review(design, ruleset, baseline=args.baseline, today=date)
+    review = run_review(design, ruleset, baseline=baseline, today=date)
+    signed_at = None
     if signer is not None:
-        review = dataclasses.replace(review, run=dataclasses.replace(review.run, signer=signer))
+        # The signing time goes into the evidence and the signature alike (to the second).
+        signed_at = _signing_time_now(date, args)
+        review = dataclasses.replace(review, run=dataclasses.replace(
+            review.run, signer=signer, signed_at=signing_time_text(signed_at)))
+    # Everything is rendered before the first file is written.
     evidence = renderer("json").render(review)
     files: dict[Path, bytes] = {}
     if args.json:
@@ -130,18 +179,21 @@ def run(args: argparse.Namespace) -> int:
     if args.markdown:
         files[Path(args.markdown)] = renderer("markdown").render(review)
     if args.out:
-        files[Path(args.out)] = _pdf(review, evidence, args, passphrase)
-    write_outputs(files, inputs=inputs)
+        files[Path(args.out)] = _pdf(review, evidence, args, passphrase, signed_at)
+    table = renderer("terminal").render(review).decode("utf-8")
+    write_outputs(files, inputs=inputs, force=args.force)
 
     if not args.quiet:
-        sys.stdout.write(renderer("terminal").render(review).decode("utf-8"))
+        from ..report.escape import for_terminal
+
+        sys.stdout.write(table)
         for path in files:
-            print(f"wrote {path}")
+            print(for_terminal(f"wrote {path}"))
     return 0 if review.verdict == "pass" else 1
 
 
 def _pdf(review: object, evidence: bytes, args: argparse.Namespace,
-         passphrase: bytes | None) -> bytes:
+         passphrase: bytes | None, signed_at: dt.datetime | None) -> bytes:
     from ..errors import UsageError
 
     try:
@@ -154,5 +206,5 @@ def _pdf(review: object, evidence: bytes, args: argparse.Namespace,
     if args.sign:
         from ..signing.sign import sign_pdf
 
-        pdf = sign_pdf(pdf, args.sign, passphrase)
+        pdf = sign_pdf(pdf, args.sign, passphrase, signing_time=signed_at)
     return pdf

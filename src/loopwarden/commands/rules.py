@@ -68,6 +68,9 @@ def _show(spec: str) -> list[str]:
 
 
 def run(args: argparse.Namespace) -> int:
+    from ..report.escape import for_terminal
+
     lines = _show(args.show) if args.show else [*_catalog(), "", *_shipped()]
-    print("\n".join(lines))
+    # A user's rule set may carry control characters in its texts: shown, never sent raw.
+    print(for_terminal("\n".join(lines)))
     return 0

@@ -172,6 +172,7 @@ def to_dict(review: Review) -> dict[str, Any]:
         "verdict": review.verdict,
         "date": review.run.date,
         "signer": review.run.signer,
+        "signed_at": review.run.signed_at,
         "tool": {"name": "loopwarden", "version": review.run.tool_version},
         "design": _design(review.design),
         "ruleset": _ruleset(review.ruleset),

@@ -12,6 +12,8 @@ from ..analysis.regression import FigureChange
 from ..ruleset.checks import fmt, worsening_pct
 from ..ruleset.model import Finding, Status
 from . import CAUTIONS
+from .atomic import MARKER
+from .escape import for_markdown
 from .review import Review
 
 __all__ = ["SUFFIX", "limit_text", "render"]
@@ -20,7 +22,11 @@ SUFFIX = ".md"
 
 
 def _cell(text: str) -> str:
-    return text.replace("\\", "\\\\").replace("|", "\\|").replace("\n", " ")
+    return for_markdown(text)
+
+
+def _line(text: str) -> str:
+    return for_markdown(text, cell=False)
 
 
 def limit_text(f: Finding) -> str:
@@ -41,17 +47,18 @@ def _counts(review: Review) -> str:
 
 def render(review: Review) -> bytes:
     d, rs = review.design, review.ruleset
+    # Every name below comes from an input file: escaped (no raw HTML, no Markdown syntax).
     title = d.name + (f" (revision {d.revision})" if d.revision else "")
     lines = [
-        f"# loopwarden review: {title}",
+        f"# loopwarden review: {_line(title)}",
         "",
         f"**Verdict: {review.verdict.upper()}** ({_counts(review)})",
         "",
-        f"- Design: `{d.path.rsplit('/', 1)[-1]}`, SHA-256 `{d.sha256}`",
-        f"- Rule set: {rs.id} {rs.version} ({rs.title}), SHA-256 `{rs.sha256}`"
-        + (f", extends {', '.join(rs.extends)}" if rs.extends else ""),
-        f"- Variants: {', '.join(a.variant for a in review.analyses)}",
-        f"- Date: {review.run.date}; loopwarden {review.run.tool_version}",
+        f"- Design: {_line(d.path.rsplit('/', 1)[-1])}, SHA-256 `{d.sha256}`",
+        f"- Rule set: {_line(f'{rs.id} {rs.version} ({rs.title})')}, SHA-256 `{rs.sha256}`"
+        + (f", extends {_line(', '.join(rs.extends))}" if rs.extends else ""),
+        f"- Variants: {_line(', '.join(a.variant for a in review.analyses))}",
+        f"- Date: {_line(review.run.date)}; loopwarden {_line(review.run.tool_version)}",
         "",
         "## Findings",
         "",
@@ -65,7 +72,8 @@ def render(review: Review) -> bytes:
             if f.measured is not None else "", limit_text(f), f.limit_source, f.message))
             + " |")
     lines += _changes(review)
-    lines += ["", f"> **Caution.** {CAUTIONS}", ""]
+    # The marker comment (invisible when rendered) lets a later run recognise the file.
+    lines += ["", f"> **Caution.** {CAUTIONS}", f"<!-- {MARKER} -->", ""]
     return "\n".join(lines).encode("utf-8")
 
 
@@ -113,8 +121,9 @@ def _variant_changes(changes: tuple[FigureChange, ...], rules: list[Finding]) ->
         status = (_status_text(max(statuses, key=_RANK.__getitem__)) if statuses
                   else "n/a" if c.change is None else "not judged")
         allowed = "; ".join(_allowed(f) for f, _s in judged) or "no rule"
-        lines.append("| " + " | ".join(_cell(x) for x in (
-            f"`{c.figure}`", fmt(c.baseline, c.unit), fmt(c.candidate, c.unit),
+        # the figure name is one of ours (regression.FIGURES): a code span, not escaped
+        lines.append(f"| `{c.figure}` | " + " | ".join(_cell(x) for x in (
+            fmt(c.baseline, c.unit), fmt(c.candidate, c.unit),
             _change_cell(c), allowed, status)) + " |")
     return lines
 
@@ -125,15 +134,15 @@ def _changes(review: Review) -> list[str]:
         return []
     b = review.baseline.design
     lines = ["", "## Changes against the baseline", "",
-             f"Baseline `{b.path.rsplit('/', 1)[-1]}`"
-             + (f" (revision {b.revision})" if b.revision else "")
+             f"Baseline {_line(b.path.rsplit('/', 1)[-1])}"
+             + (f" (revision {_line(b.revision)})" if b.revision else "")
              + f", SHA-256 `{b.sha256}`. Change = candidate − baseline; worse is in % of "
              "the baseline value."]
     for a in review.analyses:
-        lines += ["", f"### {a.variant}", ""]
+        lines += ["", f"### {_line(a.variant)}", ""]
         changes = review.baseline.changes.get(a.variant)
         if changes is None:
-            lines.append(f"The baseline has no plant variant named '{a.variant}'; nothing "
+            lines.append(f"The baseline has no plant variant named '{_line(a.variant)}'; nothing "
                          "to compare.")
             continue
         rules = [f for f in review.findings if f.check == "regression" and f.variant == a.variant]

@@ -240,6 +240,8 @@ def _cover(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[Any]
         ("Tool", f"loopwarden {text(run.tool_version)}"),
         ("Review date", text(run.date)),
     ]
+    if run.signed_at:
+        rows.append(("Signing time", text(run.signed_at.replace("T", " ").replace("Z", " UTC"))))
     data = [[Paragraph(k, st["cell_head"]), Paragraph(v, st["cell"])] for k, v in rows]
     data.append([Paragraph("Signature", st["cell_head"]), signature])
     table = Table(data, colWidths=[34 * mm, FRAME_W - 34 * mm])

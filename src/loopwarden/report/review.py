@@ -19,6 +19,7 @@ class RunInfo:
     tool_version: str
     date: str                              # ISO date (YYYY-MM-DD) of the review
     signer: str | None = None              # subject of the signing certificate, if signing
+    signed_at: str | None = None           # signing time, YYYY-MM-DDTHH:MM:SSZ, if signing
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

@@ -2,13 +2,17 @@
 
 Findings with a verdict are listed one per line; the n/a ones (a check that does not apply,
 or a figure measured without a limit) are summed up in one line naming their rules, so the
-real findings stay visible.  The JSON, JUnit and PDF keep every finding in full.
+real findings stay visible.  The JSON, JUnit and PDF keep every finding in full.  Names
+and messages come from input files: control characters and escape sequences in them are
+shown as visible escapes (:func:`~loopwarden.report.escape.for_terminal`), never sent to the
+terminal raw.
 """
 
 from __future__ import annotations
 
 from ..ruleset.checks import fmt
 from ..ruleset.model import Status
+from .escape import for_terminal
 from .markdown import limit_text
 from .review import Review
 
@@ -25,7 +29,7 @@ def _clip(text: str, width: int) -> str:
 def render(review: Review) -> bytes:
     """One line per finding with a verdict, one line for the n/a rules, then the verdict."""
     shown = [f for f in review.findings if f.status is not Status.NA]
-    rows = [(f.rule, f.variant or "-", f.status.value.upper(),
+    rows = [(for_terminal(f.rule), for_terminal(f.variant or "-"), f.status.value.upper(),
              _clip(fmt(f.measured, f.unit) if f.measured is not None else "", _MEASURED_WIDTH),
              limit_text(f))
             for f in shown]
@@ -46,4 +50,4 @@ def render(review: Review) -> bytes:
         if f.status.blocks:
             lines.append(f"  {f.status.value.upper()} {f.rule} [{f.variant or '-'}]: "
                          f"{f.message}")
-    return ("\n".join(lines) + "\n").encode("utf-8")
+    return for_terminal("\n".join(lines) + "\n").encode("utf-8")

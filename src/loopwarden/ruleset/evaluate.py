@@ -17,8 +17,10 @@ Severity (what a breach becomes)
 
 Waivers
     An unexpired waiver (valid through its expiry date) turns ``fail`` into ``waived``; an
-    expired one changes nothing and the message says so; a waiver matching no finding
-    becomes a ``warn`` finding; stability checks refuse waivers.  The review date is an
+    expired one changes nothing and the message says so; a waiver naming a rule the set
+    does not have is a :class:`DesignError`; one that matches no finding (a rule limited
+    to the nominal plant, waived on another variant) becomes a ``warn`` finding; stability
+    checks refuse waivers.  The review date is an
     argument, never read from the clock here.
 """
 
@@ -118,9 +120,18 @@ def resolve_limits(design: Design, ruleset: RuleSet) -> dict[str, dict[str, Limi
     Raises
     ------
     DesignError
-        A ``[limits]`` table for an unknown rule id or key, or one that loosens a limit.
+        A ``[limits]`` table for an unknown rule id or key, or one that loosens a limit;
+        a ``[[waivers]]`` entry naming a rule the set does not have.
     """
     rules = {r.id: r for r in ruleset.rules}
+    for i, w in enumerate(design.waivers, start=1):
+        # A waiver for a rule the set does not have is a typo or a stale waiver; it must
+        # not pass silently (nor quietly stop applying when a rule is renamed).
+        if w.rule not in rules:
+            raise DesignError(f"waiver for rule '{w.rule}', which rule set {ruleset.id} does "
+                              "not have", file=design.path, where=f"waivers[{i}].rule",
+                              hint=did_you_mean(w.rule, rules) or "see 'loopwarden rules "
+                              f"--show {ruleset.id}'")
     for rule_id, table in design.rule_limits.items():
         if rule_id not in rules:
             raise DesignError(f"no rule '{rule_id}' in rule set {ruleset.id}",

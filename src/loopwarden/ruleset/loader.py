@@ -5,6 +5,11 @@ support, limits in the wrong order (a warning level outside the fail level), dup
 ids and empty rationale/source are all :class:`RuleSetError` (exit 2), with a did-you-mean
 where a name is close to a known one.  A mistyped ``warn_mn`` must never give a false pass.
 
+The stability gate cannot be emptied or bent: a set (after ``extends``) with no rules or
+without a ``closed_loop_stability`` rule is refused, the ids ``stability.closed_loop`` and
+``stability.internal`` always name their stability check, and stability rules apply to
+every variant with severity ``fail``.
+
 ``extends`` names a shipped set or a path relative to the extending file; the parent's
 rules come first and a child rule with the same id replaces the parent's rule in place.
 """
@@ -33,6 +38,12 @@ SEVERITIES = ("fail", "warn", "info")
 RULESET_KEYS = ("id", "version", "title", "extends", "description")
 RULE_KEYS = ("id", "check", "severity", "rationale", "source", "variants")
 VARIANT_CHOICES = ("all", "nominal")
+#: The stability gate: every rule set (after ``extends``) has a closed-loop stability rule,
+#: and these ids, used by the shipped sets, always name their stability check — a child set
+#: can tighten nothing here, but it must not swap the gate for another check.
+STABILITY_CHECK = "closed_loop_stability"
+RESERVED_IDS = {"stability.closed_loop": "closed_loop_stability",
+                "stability.internal": "internal_stability"}
 _ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 
 
@@ -176,6 +187,12 @@ def _parse_rule(raw: object, index: int, *, file: str, origin: str) -> Rule:
     check = CHECKS.get(check_name)
     if check is None:
         raise _unknown_key(check_name, sorted(CHECKS), file=file, where=where, what="check")
+    reserved = RESERVED_IDS.get(rule_id)
+    if reserved is not None and check_name != reserved:
+        raise RuleSetError(f"rule id '{rule_id}' is reserved for the {reserved} check, "
+                           f"not '{check_name}'", file=file, where=f"{where}.check",
+                           hint="the stability rules cannot be replaced; give this rule "
+                           "another id")
     known = [*RULE_KEYS, *check.limit_keys, *check.options]
     limits: dict[str, float] = {}
     options: dict[str, float | str | bool] = {}
@@ -213,6 +230,10 @@ def _parse_rule(raw: object, index: int, *, file: str, origin: str) -> Rule:
     if variants not in VARIANT_CHOICES:
         raise RuleSetError(f"unknown value {variants!r}", file=file, where=f"{where}.variants",
                            hint="allowed: " + ", ".join(VARIANT_CHOICES))
+    if variants != "all" and not check.waivable:
+        raise RuleSetError(f"check '{check_name}' guards stability: it applies to every "
+                           "plant variant", file=file, where=f"{where}.variants",
+                           hint="remove 'variants'")
     if variants != "all":
         options["variants"] = variants
     rationale = _text(raw, "rationale", file=file, where=where)
@@ -332,6 +353,18 @@ def _check_bands(rules: tuple[Rule, ...], file: str) -> None:
                            hint="use one band for every rule of a set")
 
 
+def _check_gate(rules: tuple[Rule, ...], file: str) -> None:
+    """A rule set is never empty and always checks closed-loop stability."""
+    if not rules:
+        raise RuleSetError("the rule set has no rules", file=file, where="rule",
+                           hint="add [[rule]] tables, or extends = \"general\"")
+    if not any(r.check == STABILITY_CHECK for r in rules):
+        raise RuleSetError(f"no rule checks {STABILITY_CHECK}: every rule set must gate on "
+                           "closed-loop stability", file=file, where="rule",
+                           hint=f"add [[rule]] id = \"stability.closed_loop\", check = "
+                           f"\"{STABILITY_CHECK}\", or extends = \"general\"")
+
+
 def load_ruleset(spec: str | os.PathLike[str] | None = None) -> RuleSet:
     """Load a rule set by shipped name (``"general"``) or path; default ``general``.
 
@@ -343,6 +376,7 @@ def load_ruleset(spec: str | os.PathLike[str] | None = None) -> RuleSet:
     path = _resolve(os.fspath(spec) if spec is not None else DEFAULT_RULESET, base=None)
     parsed, rules, files = _load_chain(path, ())
     _check_bands(rules, str(path))
+    _check_gate(rules, str(path))
     top = files[0]
     return RuleSet(id=parsed.id, version=parsed.version, title=parsed.title, path=top.path,
                    sha256=top.sha256, text=top.text, rules=rules,

@@ -5,7 +5,9 @@ holds it.  Releases need keys under the organisation's own certificate authority
 
 The passphrase never comes from the command line (it would sit in the shell history and
 the process list): it comes from ``--passphrase-file``, the environment variable
-``LOOPWARDEN_KEY_PASSPHRASE``, or an interactive prompt, in that order.
+``LOOPWARDEN_KEY_PASSPHRASE``, or an interactive prompt, in that order.  It must be UTF-8
+text without NUL bytes (anything else is bad input, exit 2); a passphrase file that group
+or others may read draws a warning.
 """
 
 from __future__ import annotations
@@ -14,6 +16,7 @@ import contextlib
 import datetime as dt
 import getpass
 import os
+import stat
 import sys
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -23,7 +26,7 @@ from typing import Any
 from ..errors import SigningError, UsageError
 
 __all__ = ["PASSPHRASE_ENV", "KeyMaterial", "make_key", "read_passphrase", "load_key",
-           "signer_name", "certificate_path"]
+           "signer_name", "certificate_path", "check_passphrase"]
 
 PASSPHRASE_ENV = "LOOPWARDEN_KEY_PASSPHRASE"
 #: Validity of a trial certificate.
@@ -53,8 +56,10 @@ def _write_new(path: Path, data: bytes, mode: int) -> None:
     place, which fails (instead of replacing) when the name is taken — so a concurrent
     writer cannot be overwritten either.
     """
-    folder = path.parent if str(path.parent) else Path(".")
-    tmp = folder / f".{path.name}.{os.getpid()}.tmp"
+    from ..report.atomic import clean_stale_tmp, tmp_name
+
+    clean_stale_tmp(path)                 # left by an earlier, killed run
+    tmp = tmp_name(path)
     fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, mode)
     try:
         with os.fdopen(fd, "wb") as fh:
@@ -101,12 +106,17 @@ def make_key(out_p12: Path, name: str, passphrase: bytes | None, *,
 
     out_p12 = Path(out_p12)
     out_pem = certificate_path(out_p12)
+    if passphrase is not None:
+        check_passphrase(passphrase, "keygen")
     if not name.strip():
         raise UsageError("--name must not be empty", hint="give the signer's name")
     if out_p12.suffix.lower() not in (".p12", ".pfx"):
         raise UsageError(f"--out {out_p12}: expected a .p12 file name",
                          hint="the certificate is written beside it as .pem")
     for path in (out_p12, out_pem):
+        if path.is_symlink():
+            raise UsageError(f"{path} is a symbolic link", hint="refusing to write a key "
+                             "through it; choose another name; nothing was written")
         if path.exists():
             raise UsageError(f"{path} exists already", hint="refusing to overwrite a key; "
                              "choose another name or remove the old files yourself")
@@ -181,12 +191,18 @@ def read_passphrase(source: Any = None, *, confirm: bool = False,
     if path:
         try:
             raw = Path(path).read_bytes()
+            mode = os.stat(path).st_mode
         except OSError as exc:
             raise UsageError(f"--passphrase-file {path}: {exc.strerror or exc}") from exc
+        if mode & 0o077:
+            print(f"loopwarden: warning: --passphrase-file {path} is readable by others "
+                  f"(mode {stat.S_IMODE(mode):04o}); make it private: chmod 600 {path}",
+                  file=sys.stderr)
         line = raw.split(b"\n", 1)[0].rstrip(b"\r")
-        return line or None
+        return check_passphrase(line, f"--passphrase-file {path}") or None
     if PASSPHRASE_ENV in env:
-        return env[PASSPHRASE_ENV].encode("utf-8") or None
+        return check_passphrase(_encoded(env[PASSPHRASE_ENV], PASSPHRASE_ENV),
+                                PASSPHRASE_ENV) or None
     if interactive is None:
         interactive = sys.stdin is not None and sys.stdin.isatty()
     if not interactive:
@@ -194,7 +210,34 @@ def read_passphrase(source: Any = None, *, confirm: bool = False,
     first = getpass.getpass("Key passphrase (empty for none): ")
     if confirm and getpass.getpass("Repeat the passphrase: ") != first:
         raise UsageError("the two passphrases differ", hint="nothing was written")
-    return first.encode("utf-8") or None
+    return check_passphrase(_encoded(first, "the passphrase"), "the passphrase") or None
+
+
+def _encoded(text: str, source: str) -> bytes:
+    # Bytes that are not UTF-8 reach Python as lone surrogates (surrogateescape).
+    try:
+        return text.encode("utf-8")
+    except UnicodeEncodeError as exc:
+        raise UsageError(f"{source}: the passphrase is not valid UTF-8 text",
+                         hint="use a passphrase of UTF-8 text; nothing was written") from exc
+
+
+def check_passphrase(data: bytes, source: str) -> bytes:
+    """``data`` if it can be a passphrase: UTF-8 text without NUL; else UsageError (exit 2).
+
+    A NUL byte ends a C string (the PKCS#12 libraries would cut the passphrase there or
+    refuse it), and bytes that are not UTF-8 text cannot be typed the same way twice.
+    """
+    if b"\0" in data:
+        raise UsageError(f"{source}: the passphrase holds a NUL byte",
+                         hint="use a passphrase of printable text; nothing was written")
+    try:
+        data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise UsageError(f"{source}: the passphrase is not valid UTF-8 text "
+                         f"(byte 0x{data[exc.start]:02x} at position {exc.start})",
+                         hint="use a passphrase of UTF-8 text; nothing was written") from exc
+    return data
 
 
 def load_key(key_path: Path | str, passphrase: bytes | None) -> KeyMaterial:
@@ -208,6 +251,11 @@ def load_key(key_path: Path | str, passphrase: bytes | None) -> KeyMaterial:
     from cryptography.hazmat.primitives.serialization import pkcs12
 
     key_path = Path(key_path)
+    if passphrase is not None:
+        try:
+            check_passphrase(passphrase, str(key_path))
+        except UsageError as exc:
+            raise SigningError(exc.what, file=str(key_path), hint=exc.hint) from exc
     try:
         data = key_path.read_bytes()
     except OSError as exc:

@@ -9,8 +9,10 @@ included.
 
 from __future__ import annotations
 
+import datetime as dt
 import io
 from pathlib import Path
+from typing import Any
 
 from ..errors import SigningError
 from .keys import load_key
@@ -21,7 +23,8 @@ __all__ = ["sign_pdf", "SIGNATURE_FIELD"]
 SIGNATURE_FIELD = "loopwarden-review"
 
 
-def sign_pdf(pdf: bytes, key_path: Path | str, passphrase: bytes | None) -> bytes:
+def sign_pdf(pdf: bytes, key_path: Path | str, passphrase: bytes | None, *,
+             signing_time: dt.datetime | None = None) -> bytes:
     """Sign ``pdf`` with the PKCS#12 key at ``key_path``; return the signed file.
 
     Parameters
@@ -32,6 +35,10 @@ def sign_pdf(pdf: bytes, key_path: Path | str, passphrase: bytes | None) -> byte
         PKCS#12 file with the private key and its certificate (and optionally its chain).
     passphrase : bytes or None
         The key file's passphrase; None for an unencrypted key.
+    signing_time : datetime, optional
+        The signing time written into the signature (``/M``), timezone-aware; the review
+        command passes the time it recorded in the evidence (``signed_at``), so the two
+        agree to the second.  Default: now.
 
     Raises
     ------
@@ -58,9 +65,20 @@ def sign_pdf(pdf: bytes, key_path: Path | str, passphrase: bytes | None) -> byte
         md_algorithm="sha256",
         reason="loopwarden control loop review",
     )
+    when = (signing_time or dt.datetime.now(dt.UTC)).astimezone(dt.UTC).replace(microsecond=0)
+
+    class _AtTime(signers.PdfSigner):
+        # pyHanko reads the clock itself; the session's time is what goes into /M.
+        def init_signing_session(self, pdf_out: Any, existing_fields_only: bool = False
+                                 ) -> Any:
+            session = super().init_signing_session(pdf_out, existing_fields_only)
+            session.system_time = when
+            return session
+
     try:
         writer = IncrementalPdfFileWriter(io.BytesIO(pdf), strict=False)
-        out = signers.sign_pdf(writer, meta, signer=signer)
+        out = io.BytesIO()
+        _AtTime(meta, signer=signer).sign_pdf(writer, output=out)
     except Exception as exc:  # noqa: BLE001 - pyHanko raises many types; all mean "not signed"
         raise SigningError(f"cannot sign the PDF: {type(exc).__name__}: {exc}") from exc
     return bytes(out.getbuffer())

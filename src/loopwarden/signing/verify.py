@@ -13,9 +13,15 @@ A review verifies only when every check passes:
 5. the embedded evidence, read **from the signed revision**, is a ``loopwarden-review/1``
    JSON document, and the embedded design, rule-set and measured-plant files (the
    frequency-response CSVs, ``plant-<variant>.csv``) hash to what it records;
-6. when given, the design and rule-set files on disk hash to what the evidence records, and
-   so do the measured-plant CSV files the design names (read relative to the design file,
-   inside its folder tree, as the review read them).
+6. when given, the design, baseline and rule-set files on disk hash to what the evidence
+   records, and so do the measured-plant CSV files the design names (read relative to the
+   design file, inside its folder tree, as the review read them);
+7. the bytes outside the signed range are exactly the signature: the ``/Contents`` hex
+   string holds the DER-encoded CMS signature followed by zeros only (nothing can be
+   hidden in its padding);
+8. the review date and the signing time agree: the evidence records the signing time
+   (``signed_at``) the signature carries, and the review date lies neither after it nor
+   more than :data:`~loopwarden.signing.review_age.MAX_REVIEW_AGE_DAYS` days before it.
 
 Any exception inside a check makes that check fail; nothing passes by default.
 Unreadable input (a missing file, not a PDF at all, a trust file that holds no
@@ -60,6 +66,8 @@ class VerifyReport:
     checks: tuple[Check, ...]
     signer: str | None = None           # subject of the signing certificate, when read
     verdict: str | None = None          # the review's verdict per the signed evidence
+    review_date: str | None = None      # the evidence's date (YYYY-MM-DD), when read
+    signed_at: str | None = None        # the signature's signing time (UTC), when read
 
 
 def plant_attachment_names(variants: Sequence[str]) -> dict[str, str]:
@@ -164,7 +172,8 @@ def embedded_files(resolver: Any) -> dict[str, bytes]:
 
 def verify_pdf(path: Path | str, *, trust: Path | str | None = None,
                design: Path | str | None = None,
-               rules: Path | str | None = None) -> VerifyReport:
+               rules: Path | str | None = None,
+               baseline: Path | str | None = None) -> VerifyReport:
     """Check a signed review; see the module docstring for what must hold.
 
     Parameters
@@ -173,9 +182,9 @@ def verify_pdf(path: Path | str, *, trust: Path | str | None = None,
         The signed PDF.
     trust : Path or str, optional
         Certificate (PEM or DER) the signing certificate must chain to.
-    design, rules : Path or str, optional
-        Input files that must hash to ``design.sha256`` / ``ruleset.sha256`` of the
-        embedded evidence.
+    design, rules, baseline : Path or str, optional
+        Input files that must hash to ``design.sha256`` / ``ruleset.sha256`` /
+        ``baseline.design.sha256`` of the embedded evidence.
 
     Raises
     ------
@@ -188,21 +197,26 @@ def verify_pdf(path: Path | str, *, trust: Path | str | None = None,
     roots = _trust_root(trust) if trust is not None else None
     design_bytes = _read(design, "design file") if design is not None else None
     rules_bytes = _read(rules, "rule-set file") if rules is not None else None
+    baseline_bytes = _read(baseline, "baseline file") if baseline is not None else None
     with _quiet():
         return _verify(data, roots, trust, design_bytes, rules_bytes,
-                       Path(design) if design is not None else None)
+                       Path(design) if design is not None else None, baseline_bytes)
 
 
 def _verify(data: bytes, roots: list[Any] | None, trust: Path | str | None,
             design_bytes: bytes | None, rules_bytes: bytes | None,
-            design_path: Path | None = None) -> VerifyReport:
+            design_path: Path | None = None,
+            baseline_bytes: bytes | None = None) -> VerifyReport:
     checks: list[Check] = []
     signer: str | None = None
     verdict: str | None = None
+    review_date: str | None = None
+    signed_at: str | None = None
 
     def done(complete: bool = False) -> VerifyReport:
         ok = complete and bool(checks) and all(c.passed for c in checks)
-        return VerifyReport(ok=ok, checks=tuple(checks), signer=signer, verdict=verdict)
+        return VerifyReport(ok=ok, checks=tuple(checks), signer=signer, verdict=verdict,
+                            review_date=review_date, signed_at=signed_at)
 
     # 1. structure and signature count
     try:
@@ -287,6 +301,21 @@ def _verify(data: bytes, roots: list[Any] | None, trust: Path | str | None,
         checks.append(Check("covers entire file", False,
                             f"cannot determine coverage: {type(exc).__name__}: {exc}"))
 
+    # 7. the unsigned bytes are the signature and zeros, nothing else
+    try:
+        checks.append(_padding(data, byte_range))
+    except Exception as exc:  # noqa: BLE001
+        checks.append(Check("signature padding", False,
+                            f"cannot read the signature value: {type(exc).__name__}: {exc}"))
+    signing_time = None
+    try:
+        from .review_age import signing_time_text
+
+        signing_time = status.signer_reported_dt or sig.self_reported_timestamp
+        signed_at = signing_time_text(signing_time) if signing_time is not None else None
+    except Exception:  # noqa: BLE001 - judged below as "no signing time"
+        signing_time = None
+
     # 5. evidence from the signed revision
     try:
         files = embedded_files(reader.get_historical_resolver(sig.signed_revision))
@@ -300,7 +329,9 @@ def _verify(data: bytes, roots: list[Any] | None, trust: Path | str | None,
         return done()
     try:
         verdict = str(evidence.get("verdict"))
+        review_date = str(evidence.get("date"))
         _consistency(files, evidence, checks)
+        _dates(evidence, signing_time, checks)
         named = evidence.get("signer")
         if named is not None:
             checks.append(Check("signer named in evidence", str(named) == signer,
@@ -319,6 +350,17 @@ def _verify(data: bytes, roots: list[Any] | None, trust: Path | str | None,
             got = _sha(rules_bytes)
             checks.append(Check("rule-set file matches", got == rec_rules,
                                 f"sha256 {_short(got)}; evidence records {_short(rec_rules)}"))
+        if baseline_bytes is not None:
+            got = _sha(baseline_bytes)
+            base = evidence.get("baseline")
+            if not isinstance(base, dict):
+                checks.append(Check("baseline file matches", False,
+                                    "the review was made without a baseline"))
+            else:
+                rec_base = str(_table(base, "design").get("sha256", ""))
+                checks.append(Check("baseline file matches", got == rec_base,
+                                    f"sha256 {_short(got)}; evidence records "
+                                    f"{_short(rec_base)}"))
     except Exception as exc:  # noqa: BLE001 - malformed evidence is a failure, not a crash
         checks.append(Check("evidence content", False,
                             f"the evidence is malformed: {type(exc).__name__}: {exc}"))
@@ -366,6 +408,9 @@ def _consistency(files: dict[str, bytes], evidence: dict[str, Any],
                 "rules.toml": str(_table(evidence, "ruleset").get("sha256", ""))}
     for f in _table(evidence, "ruleset").get("files", [])[1:]:
         expected[f"rules-{f.get('id')}.toml"] = str(f.get("sha256", ""))
+    if evidence.get("baseline") is not None:
+        expected["baseline.toml"] = str(_table(_table(evidence, "baseline"), "design")
+                                        .get("sha256", ""))
     measured = _measured_plants(evidence)
     names = plant_attachment_names([m["variant"] for m in measured])
     for m in measured:
@@ -453,3 +498,71 @@ def _measured_on_disk(design_bytes: bytes, design_path: Path, evidence: dict[str
     checks.append(Check("measured-plant files match", not problems,
                         "; ".join(problems) if problems else
                         f"{', '.join(matched)} hash to the recorded sha256"))
+
+
+def _der_length(blob: bytes) -> int:
+    """Length in bytes of the DER element at the start of ``blob`` (tag, length, value)."""
+    if len(blob) < 2:
+        raise ValueError("the signature value is empty")
+    first = blob[1]
+    if first < 0x80:
+        return 2 + first
+    n = first & 0x7F
+    if n == 0 or n > 4 or len(blob) < 2 + n:
+        raise ValueError("the signature value has no definite DER length")
+    return 2 + n + int.from_bytes(blob[2:2 + n], "big")
+
+
+def _padding(data: bytes, byte_range: list[int]) -> Check:
+    """The unsigned gap of the ByteRange: ``<hex>`` of the DER signature, then zeros only."""
+    gap = data[byte_range[0] + byte_range[1]:byte_range[2]]
+    if len(gap) < 2 or gap[:1] != b"<" or gap[-1:] != b">":
+        return Check("signature padding", False,
+                     "the bytes outside the signed range are not one hex string")
+    digits = gap[1:-1]
+    if not re.fullmatch(rb"[0-9A-Fa-f]*", digits) or len(digits) % 2:
+        return Check("signature padding", False,
+                     "the signature's hex string holds characters other than hex digits")
+    blob = bytes.fromhex(digits.decode("ascii"))
+    end = _der_length(blob)
+    if end > len(blob):
+        return Check("signature padding", False, "the signature value is cut short")
+    stray = len(blob[end:]) - blob[end:].count(0)
+    if stray:
+        return Check("signature padding", False,
+                     f"{stray} non-zero byte(s) follow the signature in its padding: the "
+                     "file was changed after signing")
+    return Check("signature padding", True,
+                 f"{end}-byte signature followed by {len(blob) - end} zero bytes")
+
+
+def _dates(evidence: dict[str, Any], signing_time: Any, checks: list[Check]) -> None:
+    """The review date and the signing time: recorded in both places, and in order."""
+    import datetime as dt
+
+    from .review_age import MAX_REVIEW_AGE_DAYS, review_date_problem, signing_time_text
+
+    if signing_time is None:
+        checks.append(Check("review date and signing time", False,
+                            "the signature carries no signing time"))
+        return
+    signed = signing_time_text(signing_time)
+    recorded = evidence.get("signed_at")
+    if recorded != signed:
+        checks.append(Check("signing time recorded", False,
+                            f"the evidence records signed_at {recorded!r}; the signature "
+                            f"was made at {signed}"))
+    else:
+        checks.append(Check("signing time recorded", True,
+                            f"evidence and signature both say {signed}"))
+    try:
+        date = dt.date.fromisoformat(str(evidence.get("date")))
+    except ValueError:
+        checks.append(Check("review date and signing time", False,
+                            f"the evidence's date {evidence.get('date')!r} is not a date"))
+        return
+    problem = review_date_problem(date, signing_time)
+    checks.append(Check("review date and signing time", problem is None,
+                        problem or f"reviewed {date.isoformat()}, signed {signed} (the "
+                                   f"review date may lie at most {MAX_REVIEW_AGE_DAYS} days "
+                                   "before the signing time, never after it)"))
