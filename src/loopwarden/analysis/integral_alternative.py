@@ -355,6 +355,10 @@ def _num(x: float) -> str:
     return f"{x:.10g}"
 
 
+def _num_z(x: float) -> str:
+    return f"{x:.17g}"
+
+
 def _snippet(stage: Stage, new_model: Zpk, k: float, target_deg: float, met: bool,
              variants: int = 1) -> str:
     where = "s = 0" if stage.domain == "s" else "z = 1"
@@ -372,10 +376,13 @@ def _snippet(stage: Stage, new_model: Zpk, k: float, target_deg: float, met: boo
         num = np.real(np.poly(new_model.zeros)) * new_model.gain * k
         den = np.real(np.poly(new_model.poles))
         body = ["[[controller]]", 'type = "tf"']
+        # A digital filter's coefficients near 1 carry its poles: all 17 digits in z.
+        put = _num
         if stage.domain == "z":
             body.append('domain = "z"')
-        body += ["num = [" + ", ".join(_num(float(c)) for c in num) + "]",
-                 "den = [" + ", ".join(_num(float(c)) for c in den) + "]"]
+            put = _num_z
+        body += ["num = [" + ", ".join(put(float(c)) for c in num) + "]",
+                 "den = [" + ", ".join(put(float(c)) for c in den) + "]"]
     return "\n".join(head + body) + "\n"
 
 
