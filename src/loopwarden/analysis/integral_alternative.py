@@ -362,11 +362,12 @@ def _num_z(x: float) -> str:
 def _snippet(stage: Stage, new_model: Zpk, k: float, target_deg: float, met: bool,
              variants: int = 1) -> str:
     where = "s = 0" if stage.domain == "s" else "z = 1"
-    scope = "" if variants == 1 else f" (one gain for all {variants} plant variants)"
     head = [f"# Integral-action alternative to {stage.name}: its lowest pole moved to {where},",
-            f"# overall loop gain x{k:.6g} folded in{scope} "
-            f"(phase margin {'>=' if met else 'best reachable below'} {target_deg:.2f} deg).",
-            f"# Replace {stage.name} with:"]
+            f"# overall loop gain x{k:.6g} folded in "
+            f"(phase margin {'>=' if met else 'best reachable below'} {target_deg:.2f} deg)."]
+    if variants > 1:
+        head.append(f"# One controller for all {variants} plant variants: the worst sets k.")
+    head.append(f"# Replace {stage.name} with:")
     if stage.type == "lag" and stage.domain == "s":
         zero = float(-new_model.zeros[0].real)
         kp = k * new_model.gain
