@@ -202,3 +202,59 @@ def test_z_stage_alternative_snippet_in_z():
     (a_s,) = analyze(parse_design(FPE_SAMPLED, "s.toml"))
     assert alt.margins.phase_margin_deg == pytest.approx(
         a_s.integral_alternatives[0].margins.phase_margin_deg, abs=1e-6)
+
+
+def test_alternative_limits_from_the_rule_set():
+    # The hard limits the alternative is judged against are the review's effective ones:
+    # general's margin.phase min 45°, a design requirement settling_time → response.settling
+    # max, error_constant by its `which`; warn levels and relative delay margins are not.
+    from loopwarden.ruleset.evaluate import alternative_limits, resolve_limits
+    from loopwarden.ruleset.loader import load_ruleset
+
+    text = OGATA_TOML.replace("[[controller]]", "[requirements]\nsettling_time = 25.0\n"
+                              "ramp_error = 0.1\n\n[[controller]]", 1)
+    d = parse_design(text, "ogata.toml")
+    rs = load_ruleset("general")
+    lims = {(x.rule, x.bound): x for x in alternative_limits(rs, resolve_limits(d, rs))}
+    assert lims[("margin.phase", "min")].value == 45.0
+    assert lims[("margin.phase", "min")].figure == "phase_margin_deg"
+    assert lims[("response.settling", "max")].value == 25.0
+    assert lims[("response.settling", "max")].source == "design [requirements].settling_time"
+    assert lims[("tracking.ramp_error", "max")].figure == "ramp_error"
+    assert all(not x.bound.startswith("warn") for x in lims.values())
+
+
+def test_delay_variants_share_one_alternative():
+    # Pump with a transport delay and a slower variant: the gain search runs the full
+    # margin analysis with the exact delay per gain; one k for both.  Independent: the
+    # phase margin by brentq on |L(jω)| = 1 with e^{−jωτ} (python-control responses).
+    from helpers import NEW_LAG_DESIGNS
+
+    base = next(p.values[0] for p in NEW_LAG_DESIGNS if p.id == "pump-with-delay")
+    text = base.replace("[[controller]]", """
+[[plant.variants]]
+name = "long pipe"
+zpk = { poles = [0.0, -2.0], gain = 1.0 }
+delay = 0.12
+
+[[controller]]""", 1)
+    d = parse_design(text, "pump.toml")
+    analyses = analyze(d, min_phase_margin_deg=45.0)
+    alts = [a.integral_alternatives[0] for a in analyses]
+    assert alts[0].gain_factor == alts[1].gain_factor
+    k = alts[0].gain_factor
+    for alt, tau in zip(alts, (0.05, 0.12), strict=True):
+        sys = control.zpk([-0.1], [0.0, 0.0, -2.0], 3.0 * k)
+
+        def mag(w: float, sys: control.TransferFunction = sys) -> float:
+            return abs(sys(1j * w)) - 1.0
+
+        wc = optimize.brentq(mag, 0.05, 20.0, xtol=1e-14)
+        pm = 180.0 + math.degrees(float(np.angle(sys(1j * wc))) - wc * tau)
+        assert alt.margins.phase_margin_deg == pytest.approx(pm, abs=1e-4)
+        assert alt.tracking.system_type == 2 and alt.step.exact_delay
+    # the longer delay is the worse variant and sets the gain
+    assert alts[0].sizing_variant == "long pipe"
+    assert alts[0].meets_target
+    assert min(a.margins.phase_margin_deg for a in alts) >= \
+        alts[0].target_phase_margin_deg - 1e-6

@@ -37,7 +37,8 @@ def analyze_variant(design: Design, variant: PlantVariant, *,
     """Analyse the design's loop around one plant variant.
 
     Every kind of loop (continuous, sampled, measured) gets its pole-zero map here, once.
-    See :func:`_analyze_loop` for the parameters.
+    See :func:`_analyze_loop` for the parameters.  The integral-action alternative is one
+    controller for the whole design and is added by :func:`analyze`, not here.
     """
     import dataclasses
 
@@ -61,8 +62,8 @@ def _analyze_loop(design: Design, variant: PlantVariant, *,
     Parameters
     ----------
     min_phase_margin_deg : float, optional
-        The rule set's minimum phase margin; the integral-action alternative is re-tuned
-        to at least this or the current design's margin, whichever is higher.
+        The rule set's minimum phase margin (used by :func:`analyze` for the integral
+        alternative; kept here for callers that pass it).
     settling_band : float, optional
         Settling band as a fraction of the final value (default: the design's
         ``requirements.settling_band`` or 0.02).
