@@ -11,19 +11,15 @@ import numpy as np
 import pytest
 from scipy import optimize, signal
 
-from helpers import FPE_TOML, NEW_LAG_DESIGNS
+from helpers import FPE_SAMPLED, NEW_LAG_DESIGNS, SAMPLED_T, Z_LAG, z_stage_design
 from loopwarden.analysis import analyze
 from loopwarden.analysis.boost_band import dc_boost, find_boosts, improvement, is_boost
 from loopwarden.analysis.discrete_loop import NOT_IN_Z
 from loopwarden.analysis.discrete_margins import compute_discrete_margins
 from loopwarden.analysis.margins import compute_margins
 from loopwarden.design.loader import parse_design
-from loopwarden.lti import Zpk
-from loopwarden.lti_discrete import tustin
 
-T = 0.05
-#: FPE lag loop 10(10s+1)/(s(s+1)(100s+1)) = (s+0.1)/(s(s+1)(s+0.01)), digital at T.
-FPE_SAMPLED = FPE_TOML + f'\n[sampling]\nperiod = {T!r}\nmethod = "tustin"\n'
+T = SAMPLED_T
 
 #: Lead and lag both continuous, discretised together by ZOH: removing the lag changes
 #: the ZOH equivalent of the whole continuous part, not just one factor.
@@ -186,28 +182,6 @@ method = "matched"
     k = 10.0 * (1 - math.exp(-2.0)) / (1 - math.exp(-20.0))      # DC gain 10 (matched)
     g_pi = k * (-1.0 - math.exp(-20.0)) / (-1.0 - math.exp(-2.0))
     assert f[0] == pytest.approx(abs(1 + 10.0 * g_pi) / 11.0, rel=1e-9)
-
-
-Z_LAG = tustin(Zpk([-0.1], [-0.01], 1.0), T)
-
-
-def z_stage_design() -> str:
-    """The FPE loop with the Tustin lag written directly in z."""
-    num = np.real(np.poly(Z_LAG.zeros)) * Z_LAG.gain
-    den = np.real(np.poly(Z_LAG.poles))
-    return f"""
-[design]
-name = "FPE lag loop, digital lag in z"
-[plant]
-zpk = {{ poles = [0.0, -1.0], gain = 1.0 }}
-[[controller]]
-type = "tf"
-domain = "z"
-num = [{float(num[0])!r}, {float(num[1])!r}]
-den = [{float(den[0])!r}, {float(den[1])!r}]
-[sampling]
-period = {T!r}
-"""
 
 
 def test_z_domain_lag_boost():

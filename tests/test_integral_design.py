@@ -15,16 +15,16 @@ import numpy as np
 import pytest
 from scipy import optimize, signal
 
-from helpers import OGATA_TOML
+from helpers import FPE_SAMPLED, OGATA_TOML, SAMPLED_T, z_stage_design
 from loopwarden.analysis import analyze
 from loopwarden.analysis.discrete_margins import compute_discrete_margins
 from loopwarden.analysis.integral_alternative import alternative_over_variants
 from loopwarden.design.loader import parse_design
 from loopwarden.report.json_out import render as render_json
 from loopwarden.review_run import run_review
-from test_boost_sampled import FPE_SAMPLED, T, z_stage_design
 
 BAND = 0.02
+T = SAMPLED_T
 
 
 def test_ogata_design_level_alternative_is_the_published_one():
