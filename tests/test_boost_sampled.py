@@ -261,3 +261,19 @@ def test_delay_lag_loop_band_and_phase_cost():
     lp0 = no_delay.loop(no_delay.variants[0])
     (b0,) = find_boosts(lp0, no_delay.controller, compute_margins(lp0), None)
     assert abs(b0.band_3db_rad_s / boost.band_3db_rad_s - 1) > 1e-4
+
+
+def test_z_stage_with_pole_at_origin():
+    # (z + 0.5)/z: |G(1)| = 1.5 > |G(−1)| = 0.5, a boost of 3 [derived] whose pole has no
+    # finite s-plane image; the band search is bounded by the Nyquist frequency instead.
+    text = z_stage_design()
+    text = text.replace(text[text.index("num = "):text.index("[sampling]")],
+                        "num = [1.0, 0.5]\nden = [1.0, 0.0]\n")
+    d, loop, m, (boost,) = boosts_of(text)
+    assert boost.dc_boost == pytest.approx(3.0, rel=1e-12)
+    assert boost.pole_rad_s is None
+    assert boost.zero_rad_s == pytest.approx(abs(np.log(complex(-0.5))) / T, rel=1e-12)
+    f = improvement(loop, d.controller, 1, np.array([1e-6]), d.sampling)[0]
+    # type-1 loop: the factor tends to |G(1)| = 1.5 (the stage against no stage at all),
+    # which is the boost only for a stage with |G(−1)| = 1 [derived]
+    assert f == pytest.approx(1.5, rel=1e-4)

@@ -258,11 +258,12 @@ def find_boosts(loop: AnyLoop, stages: Sequence[Stage], margins: Margins,
                      if c.frequency_rad_s > 0 and math.isfinite(c.frequency_rad_s)]
         corners += crossings
         low = [x for x in (pole, *corners) if x is not None and x > 0]
-        w_lo = 1e-4 * min(low)
         if isinstance(loop, DiscreteLoop):
+            # Roots at z = 0 have no finite s-plane image: the Nyquist frequency bounds.
             w_hi = loop.nyquist_rad_s
-            w_lo = min(w_lo, 1e-4 * w_hi)
+            w_lo = 1e-4 * min([*low, w_hi])
         else:
+            w_lo = 1e-4 * min(low)
             w_hi = 1e3 * max(x for x in (zero, *corners) if x is not None)
         ref = None
         if reference_band_rad_s is not None:
