@@ -142,6 +142,15 @@ def test_review_judges_the_alternative_per_variant(tmp_path):
         assert "meets" in finding["message"] and "fails" in finding["message"]
         for rule in alt["fails"]:
             assert rule in finding["message"]
+    # the Markdown summary lists the one alternative with a row per variant
+    from loopwarden.report import markdown
+
+    md = markdown.render(review).decode()
+    section = md[md.index("## Integral-action alternative"):]
+    assert section.count("```toml") == 1
+    for v, alt in zip(doc["variants"], alts, strict=True):
+        row = next(x for x in section.splitlines() if x.startswith(f"| {v['name']} |"))
+        assert (", ".join(alt["fails"]) or "—") in row
 
 
 # --------------------------------------------------------------------------- sampled
