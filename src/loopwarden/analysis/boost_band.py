@@ -13,6 +13,11 @@ it helps by 2× (or by 3 dB, √2×) is where a requirement on reference trackin
 
 Its price is the phase it adds at every gain crossover (a lag's phase is negative), which
 depends on how far below crossover its zero sits.
+
+A transport delay is kept exactly in both loops.  For a sampled loop both are evaluated on
+the unit circle, ``z = e^{jωT}``, up to the Nyquist frequency π/T; the loop without the
+stage is the digital controller rebuilt without it (the other continuous stages discretised
+together with the design's method), and the phase cost is that of ``L_with/L_without``.
 """
 
 from __future__ import annotations

@@ -8,6 +8,12 @@ phase margin is at least the current design's (or the rule set's minimum, if hig
 the closed loop is stable.  Among the gains that meet this the highest is kept, since a
 higher gain tracks better; k never exceeds 1, so the alternative does not buy tracking with
 more loop gain (and bandwidth) than the current design has.
+
+One controller serves every plant variant, so the alternative is one controller too
+(:func:`design_alternatives`): one k for all variants, the worst variant's margin deciding,
+then each variant reviewed with it and judged against the review's hard limits.  In a
+sampled design a continuous stage gets its pole at s = 0 and is discretised with the
+design's method (the pole lands on z = 1); a stage written in z gets its pole at z = 1.
 """
 
 from __future__ import annotations
