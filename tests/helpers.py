@@ -8,7 +8,11 @@ The reference values each test checks stand beside its check.
 
 from __future__ import annotations
 
+import numpy as np
 import pytest
+
+from loopwarden.lti import Zpk
+from loopwarden.lti_discrete import tustin
 
 #: The plant line of Ogata's lag design.
 OGATA_PLANT = "zpk = { zeros = [], poles = [0.0, -1.0, -2.0], gain = 2.0 }"
@@ -62,3 +66,29 @@ NEW_LAG_DESIGNS = [
     pytest.param(lag_design("zpk = { poles = [0.0, -2.0], gain = 1.0 }\ndelay = 0.05", 3.0,
                             0.1, 0.025), id="pump-with-delay"),
 ]
+
+SAMPLED_T = 0.05
+#: FPE lag loop 10(10s+1)/(s(s+1)(100s+1)) = (s+0.1)/(s(s+1)(s+0.01)), digital at
+#: SAMPLED_T (ZOH-sampled plant, lag discretised by Tustin).
+FPE_SAMPLED = FPE_TOML + f'\n[sampling]\nperiod = {SAMPLED_T!r}\nmethod = "tustin"\n'
+
+Z_LAG = tustin(Zpk([-0.1], [-0.01], 1.0), SAMPLED_T)
+
+
+def z_stage_design() -> str:
+    """The FPE loop with the Tustin lag written directly in z."""
+    num = np.real(np.poly(Z_LAG.zeros)) * Z_LAG.gain
+    den = np.real(np.poly(Z_LAG.poles))
+    return f"""
+[design]
+name = "FPE lag loop, digital lag in z"
+[plant]
+zpk = {{ poles = [0.0, -1.0], gain = 1.0 }}
+[[controller]]
+type = "tf"
+domain = "z"
+num = [{float(num[0])!r}, {float(num[1])!r}]
+den = [{float(den[0])!r}, {float(den[1])!r}]
+[sampling]
+period = {SAMPLED_T!r}
+"""

@@ -179,7 +179,22 @@ pole = 0.01
     (alt,) = integral_alternatives(loop, d.controller, boosts, margins,
                                    min_phase_margin_deg=None, settling_band=BAND)
     assert alt.meets_target and alt.closed_loop_stable
-    assert alt.slow_pairs == ()                           # not computed with a delay
+    # The integral stage k(s + 0.05)/s leaves a slow root near its zero; it solves
+    # 1 + L = 0 with L = k·1.2·(s + 0.05)/s · 0.125/(s(s + 0.25))·e^{−0.3 s} [derived],
+    # and its residue equals L/(s·L') with L' by mpmath's numerical derivative.
+    import mpmath as mp
+
+    (pair,) = alt.slow_pairs
+    assert pair.zero == -0.05
+    k = alt.gain_factor
+
+    def lf(s):
+        return k * 1.2 * (s + 0.05) / s * 0.125 / (s * (s + 0.25)) * mp.exp(-0.3 * s)
+
+    p_ref = mp.findroot(lambda s: 1 + lf(s), pair.pole.real)
+    assert pair.pole.real == pytest.approx(float(p_ref), rel=1e-10)
+    r_ref = lf(p_ref) / (p_ref * mp.diff(lf, p_ref))
+    assert pair.residue == pytest.approx(float(r_ref), rel=1e-8)
     assert alt.step.exact_delay is True
     assert alt.tracking.system_type == 2
     # independent check of the phase margin with the exact delay (brentq on |L| = 1)

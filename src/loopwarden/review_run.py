@@ -15,7 +15,7 @@ from .analysis import analyze
 from .design.model import Design
 from .errors import UsageError
 from .report.review import Baseline, Review, RunInfo
-from .ruleset.evaluate import analysis_settings, evaluate, resolve_limits
+from .ruleset.evaluate import alternative_limits, analysis_settings, evaluate, resolve_limits
 from .ruleset.loader import load_ruleset
 from .ruleset.model import RuleSet
 
@@ -70,7 +70,8 @@ def run_review(design: Design, ruleset: str | os.PathLike[str] | RuleSet | None 
     date = today if isinstance(today, dt.date) else review_date(today)
     limits = resolve_limits(design, rs)         # before the analysis: bad limits fail fast
     min_pm, band = analysis_settings(design, rs, limits)
-    analyses = analyze(design, min_phase_margin_deg=min_pm, settling_band=band)
+    analyses = analyze(design, min_phase_margin_deg=min_pm, settling_band=band,
+                       requirements=alternative_limits(rs, limits))
 
     base = None
     if baseline is not None:

@@ -7,14 +7,14 @@ of stopping the review.
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from typing import TYPE_CHECKING, TypeVar
 
 from ..errors import AnalysisError, DesignError, IllPosedLoopError
 
 if TYPE_CHECKING:  # pragma: no cover - the numerical stack loads only when analysing
     from ..design.model import Design, PlantVariant
-    from .results import LoopAnalysis
+    from .results import LoopAnalysis, RequirementLimit
 
 __all__ = ["analyze", "analyze_variant"]
 
@@ -37,7 +37,8 @@ def analyze_variant(design: Design, variant: PlantVariant, *,
     """Analyse the design's loop around one plant variant.
 
     Every kind of loop (continuous, sampled, measured) gets its pole-zero map here, once.
-    See :func:`_analyze_loop` for the parameters.
+    See :func:`_analyze_loop` for the parameters.  The integral-action alternative is one
+    controller for the whole design and is added by :func:`analyze`, not here.
     """
     import dataclasses
 
@@ -61,8 +62,8 @@ def _analyze_loop(design: Design, variant: PlantVariant, *,
     Parameters
     ----------
     min_phase_margin_deg : float, optional
-        The rule set's minimum phase margin; the integral-action alternative is re-tuned
-        to at least this or the current design's margin, whichever is higher.
+        The rule set's minimum phase margin (used by :func:`analyze` for the integral
+        alternative; kept here for callers that pass it).
     settling_band : float, optional
         Settling band as a fraction of the final value (default: the design's
         ``requirements.settling_band`` or 0.02).
@@ -72,7 +73,6 @@ def _analyze_loop(design: Design, variant: PlantVariant, *,
     from . import (
         boost_band,
         frequency_grid,
-        integral_alternative,
         internal,
         margins,
         sensitivity,
@@ -123,13 +123,8 @@ def _analyze_loop(design: Design, variant: PlantVariant, *,
 
     boosts = boost_band.find_boosts(loop, design.controller, marg,
                                     design.requirements.reference_band_rad_s)
+    # The integral alternative is one controller for the whole design: see analyze().
     alternatives: tuple = ()
-    if boosts:
-        alt = _attempt(errors, "integral_alternative",
-                       lambda: integral_alternative.integral_alternatives(
-                           loop, design.controller, boosts, marg,
-                           min_phase_margin_deg=min_phase_margin_deg, settling_band=band))
-        alternatives = alt or ()
 
     grid = margins.plot_grid(loop)
     curves = Curves(
@@ -155,10 +150,21 @@ def _empty():  # type: ignore[no-untyped-def]
 
 
 def analyze(design: Design, *, min_phase_margin_deg: float | None = None,
-            settling_band: float | None = None) -> tuple[LoopAnalysis, ...]:
-    """Analyse every plant variant of ``design``, nominal first."""
-    return tuple(
+            settling_band: float | None = None,
+            requirements: Sequence[RequirementLimit] = ()) -> tuple[LoopAnalysis, ...]:
+    """Analyse every plant variant of ``design``, nominal first.
+
+    Then the integral-action alternative, one controller for all variants, is re-tuned
+    once and attached to each variant's analysis, judged against ``requirements`` (the
+    review's hard limits, from :func:`loopwarden.ruleset.evaluate.alternative_limits`).
+    """
+    from .integral_alternative import design_alternatives
+
+    analyses = tuple(
         analyze_variant(design, v, min_phase_margin_deg=min_phase_margin_deg,
                         settling_band=settling_band)
         for v in design.variants
     )
+    band = settling_band or design.requirements.settling_band or DEFAULT_SETTLING_BAND
+    return design_alternatives(design, analyses, min_phase_margin_deg=min_phase_margin_deg,
+                               settling_band=band, requirements=requirements)

@@ -18,6 +18,7 @@ from ..design.model import Design, PlantVariant
 from ..errors import AnalysisError
 from ..lti import Zpk
 from ..lti_discrete import DiscreteLoop
+from .boost_band import find_boosts, improvement
 from .discrete_margins import (
     closed_loop_bandwidth,
     compute_discrete_margins,
@@ -41,15 +42,8 @@ INTER_SAMPLE_NOTE = (
     "the continuous plant output may ripple (hidden oscillation) and disturbances above "
     "the Nyquist frequency alias; check the continuous response where that matters.")
 
-#: Checks built on continuous closed-loop poles and stage models, not done in z.
-NOT_IN_Z = {
-    "boost_band": "sampled loop: the boost-band analysis of lag stages is done for "
-                  "continuous controllers only",
-    "lag_phase_budget": "sampled loop: the lag phase budget is priced for continuous "
-                        "controllers only",
-    "integral_alternative": "sampled loop: the integral-action alternative is re-tuned "
-                            "for continuous controllers only",
-}
+#: Checks built on continuous closed-loop poles, not done in z.
+NOT_IN_Z: dict[str, str] = {}
 
 
 def sampled_info(design: Design, variant: PlantVariant, loop: DiscreteLoop) -> SampledInfo:
@@ -116,17 +110,21 @@ def analyze_sampled(design: Design, variant: PlantVariant, band: float) -> LoopA
     if phi.size > 2000:
         phi = phi[np.unique(np.linspace(0, phi.size - 1, 2000).round().astype(int))]
     grid = phi / loop.period_s
+    # Boost stages on the unit circle (the integral alternative is added per design).
+    boosts = find_boosts(loop, design.controller, marg,
+                         design.requirements.reference_band_rad_s, design.sampling)
     empty = TimeSeries(time_s=_empty(), value=_empty())
     curves = Curves(
         frequency_rad_s=grid, open_loop=loop.open_loop(grid),
         step=step_result.step if step_result else empty,
         ramp_error=step_result.ramp_error if step_result else empty,
-        improvement={},
+        improvement={b.stage: improvement(loop, design.controller, b.stage, grid,
+                                          design.sampling) for b in boosts},
     )
     return LoopAnalysis(
         variant=variant.name, stability=stab, internal=intern, margins=marg,
         sensitivity=sens, tracking=track,
-        step=step_result.metrics if step_result else None, slow_tail=tail, boosts=(),
+        step=step_result.metrics if step_result else None, slow_tail=tail, boosts=boosts,
         integral_alternatives=(), curves=curves, errors=errors, sampling=info,
         not_applicable=MappingProxyType(dict(NOT_IN_Z)),
     )

@@ -212,8 +212,43 @@ class Boost:
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
+class RequirementLimit:
+    """A hard limit of the review that the integral alternative is also judged against.
+
+    Built by the rule-set layer from the effective limits (rule set, tightened by the
+    design's ``[requirements]`` and ``[limits]``); the analysis only compares numbers.
+    ``figure`` names a figure of :data:`loopwarden.analysis.integral_alternative.FIGURES`.
+    """
+
+    rule: str                                      # rule id, e.g. "margin.phase"
+    figure: str                                    # e.g. "phase_margin_deg"
+    bound: str                                     # "min" or "max"
+    value: float
+    unit: str
+    source: str                                    # where the limit came from
+    nominal_only: bool = False                     # the rule judges the nominal plant only
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class RequirementCheck:
+    """One :class:`RequirementLimit` judged on the integral alternative of one variant."""
+
+    rule: str
+    figure: str
+    bound: str
+    limit: float
+    value: float | None                            # None: not computed for this loop
+    unit: str
+    met: bool | None                               # None: could not be judged
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
 class IntegralAlternative:
-    """The loop with one boost stage's pole moved to the origin, re-tuned by one gain."""
+    """The loop with one boost stage's pole moved to the origin, re-tuned by one gain.
+
+    One alternative controller per design: the same ``gain_factor`` and snippet on every
+    plant variant, each variant's figures on its own plant.
+    """
 
     stage: int
     gain_factor: float                             # overall gain multiplier applied
@@ -226,6 +261,11 @@ class IntegralAlternative:
     snippet_toml: str                              # ready to paste into a design file
     target_phase_margin_deg: float | None = None   # max(current PM, rule-set minimum)
     meets_target: bool | None = None               # False: best reachable PM reported
+    requirements: tuple[RequirementCheck, ...] = ()  # the review's limits on this variant
+    meets: tuple[str, ...] = ()                    # rule ids of the limits it meets
+    fails: tuple[str, ...] = ()                    # rule ids of the limits it breaches
+    slow_pairs_error: str | None = None            # why slow pairs were not computed
+    sizing_variant: str | None = None              # the variant that limits the gain
 
 
 # --------------------------------------------------------------------------- curves

@@ -36,7 +36,8 @@ from .forms import Table, read_poly
 from .model import Sampling, Stage
 from .stages import read_stage
 
-__all__ = ["DOMAINS", "discrete_loop", "read_controller_stage", "read_sampling"]
+__all__ = ["DOMAINS", "controller_blocks", "discrete_loop", "read_controller_stage",
+           "read_sampling"]
 
 DOMAINS = ("s", "z")
 _KEYS = ("period", "method", "prewarp", "compute_delay")
@@ -105,6 +106,28 @@ def read_controller_stage(t: Table, index: int, *, sampled: bool) -> Stage:
     return Stage(index=index, type="tf", params=params, model=model, domain="z")
 
 
+def controller_blocks(sampling: Sampling, models: Sequence[Zpk],
+                      domains: Sequence[str]) -> list[Zpk]:
+    """The digital controller's blocks in z: the continuous stages (``domains`` "s")
+    discretised together, then the z-domain stages in order, then the compute delay.
+
+    Analyses that alter or remove one stage (boost band, integral alternative) rebuild the
+    controller with this, so that a changed continuous stage is discretised exactly as
+    the design's own controller is.
+    """
+    continuous = [m for m, d in zip(models, domains, strict=True) if d == "s"]
+    blocks: list[Zpk] = []
+    if continuous:
+        c = Zpk.constant(1.0)
+        for m in continuous:
+            c = c * m
+        blocks.append(c2d(c, sampling.period_s, sampling.method, sampling.prewarp_rad_s))
+    blocks.extend(m for m, d in zip(models, domains, strict=True) if d == "z")
+    if sampling.compute_delay_samples:
+        blocks.append(delay_z(sampling.compute_delay_samples))
+    return blocks
+
+
 def discrete_loop(sampling: Sampling, stages: Sequence[Stage], plant: Zpk,
                   sensor: Zpk | None, delay_s: float) -> DiscreteLoop:
     """The sampled-data loop of a design around one plant.
@@ -121,16 +144,8 @@ def discrete_loop(sampling: Sampling, stages: Sequence[Stage], plant: Zpk,
         Total transport delay of plant and sensor (s), sampled exactly.
     """
     period = sampling.period_s
-    continuous = [st.model for st in stages if st.domain == "s"]
-    blocks: list[Zpk] = []
-    if continuous:
-        c = Zpk.constant(1.0)
-        for m in continuous:
-            c = c * m
-        blocks.append(c2d(c, period, sampling.method, sampling.prewarp_rad_s))
-    blocks.extend(st.model for st in stages if st.domain == "z")
-    if sampling.compute_delay_samples:
-        blocks.append(delay_z(sampling.compute_delay_samples))
+    blocks = controller_blocks(sampling, [st.model for st in stages],
+                               [st.domain for st in stages])
     ctrl = Zpk.constant(1.0)
     for b in blocks:
         ctrl = ctrl * b

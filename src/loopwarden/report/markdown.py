@@ -1,4 +1,5 @@
-"""Markdown summary (for merge requests and wikis): verdict, findings table, cautions.
+"""Markdown summary (for merge requests and wikis): verdict, findings table, the
+integral-action alternative, cautions.
 
 With a baseline, a "Changes against the baseline" table per variant follows the findings:
 every figure of :data:`loopwarden.analysis.regression.FIGURES` with its baseline and
@@ -71,10 +72,42 @@ def render(review: Review) -> bytes:
             f.rule, f.variant or "(design)", status, fmt(f.measured, f.unit)
             if f.measured is not None else "", limit_text(f), f.limit_source, f.message))
             + " |")
+    lines += _alternatives(review)
     lines += _changes(review)
     # The marker comment (invisible when rendered) lets a later run recognise the file.
     lines += ["", f"> **Caution.** {CAUTIONS}", f"<!-- {MARKER} -->", ""]
     return "\n".join(lines).encode("utf-8")
+
+
+# --------------------------------------------------------------------------- alternative
+def _alternatives(review: Review) -> list[str]:
+    """One integral-action alternative per boost stage: its figures on every variant, the
+    review limits it meets and fails there, and its snippet (all from the analysis)."""
+    stages = sorted({alt.stage for a in review.analyses for alt in a.integral_alternatives})
+    lines: list[str] = []
+    for index in stages:
+        rows = [(a.variant, alt) for a in review.analyses for alt in a.integral_alternatives
+                if alt.stage == index]
+        first = rows[0][1]
+        name = next((s.name for s in review.design.controller if s.index == index),
+                    f"controller[{index}]")
+        lines += ["", f"## Integral-action alternative to {name}", "",
+                  f"The stage's pole moved to the origin and one overall gain factor "
+                  f"x{fmt(first.gain_factor)} for every plant variant"
+                  + (f" (set by '{first.sizing_variant}')" if first.sizing_variant else "")
+                  + f"; phase-margin target {fmt(first.target_phase_margin_deg, 'deg')}"
+                  + ("" if first.meets_target else " (not reachable: best margin used)")
+                  + ".", "",
+                  "| Variant | Phase margin | Gain margin | Type | Settling | Meets | Fails |",
+                  "|---|---|---|---|---|---|---|"]
+        for variant, alt in rows:
+            lines.append("| " + " | ".join(_cell(c) for c in (
+                variant, fmt(alt.margins.phase_margin_deg, "deg"),
+                fmt(alt.margins.gain_margin_db, "dB"), str(alt.tracking.system_type),
+                fmt(alt.step.settling_time_s, "s"), ", ".join(alt.meets) or "—",
+                ", ".join(alt.fails) or "—")) + " |")
+        lines += ["", "```toml", first.snippet_toml.rstrip("\n"), "```"]
+    return lines
 
 
 # --------------------------------------------------------------------------- baseline

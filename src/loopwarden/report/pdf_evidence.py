@@ -567,8 +567,12 @@ def _compare_rows(a: LoopAnalysis, alt: IntegralAlternative) -> list[list[str]]:
          step(alt.step, "overshoot_pct", " %")],
         ["Settling time", step(a.step, "settling_time_s", " s"),
          step(alt.step, "settling_time_s", " s")],
-        ["Slow pairs", tail(cur_tail), tail(alt.slow_pairs)],
-        ["Overall gain factor", "1", num(alt.gain_factor)],
+        ["Slow pairs", tail(cur_tail) if a.slow_tail is not None else "not computed",
+         tail(alt.slow_pairs) if alt.slow_pairs_error is None else "not computed"],
+        ["Overall gain factor", "1", num(alt.gain_factor)
+         + (f" (set by {text(alt.sizing_variant)})" if alt.sizing_variant else "")],
+        ["Review limits met", "—", text(", ".join(alt.meets)) or "none"],
+        ["Review limits failed", "—", text(", ".join(alt.fails)) or "none"],
     ]
 
 
@@ -578,10 +582,12 @@ def alternative_section(review: Review, st: dict[str, Any],
     out: list[Any] = [
         Paragraph("3  Integral action instead of the low-frequency boost", st["h1"]),
         Paragraph("For each low-frequency boost stage the analysis moved the stage's pole to "
-                  "the origin (integral action) and re-tuned the loop by one overall gain "
-                  "factor so that the phase margin is kept. The table sets the result beside "
-                  "the current design on the same plant variant; the snippet replaces the "
-                  "stage in the design file.", st["body"]),
+                  "the origin (integral action; z = 1 for a stage written in z) and re-tuned "
+                  "the loop by one overall gain factor, the same for every plant variant, so "
+                  "that the worst variant keeps the phase margin. The table sets the result "
+                  "beside the current design on each plant variant, with the review limits "
+                  "it meets and fails there; the snippet replaces the stage in the design "
+                  "file.", st["body"]),
     ]
     shown: dict[int, str] = {}
     for a in review.analyses:

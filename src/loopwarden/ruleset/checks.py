@@ -28,7 +28,7 @@ from typing import TYPE_CHECKING
 
 from ..analysis.regression import FIGURE_NAMES, FigureChange
 from ..analysis.regression import compare as compare_figures
-from ..analysis.results import Boost, LoopAnalysis, StepMetrics
+from ..analysis.results import Boost, IntegralAlternative, LoopAnalysis, StepMetrics
 from ..errors import AnalysisError
 from .model import Rule
 
@@ -609,12 +609,31 @@ def integral_alternative(a: LoopAnalysis, rule: Rule, design: Design, *,
     which = ("step_error", "ramp_error", "parabola_error")[min(a.tracking.system_type, 2)]
     text += (f", {_ERROR_LABEL[which]} {fmt(getattr(alt.tracking, which))} against "
              f"{fmt(getattr(a.tracking, which))}")
+    if alt.sizing_variant is not None and len(design.variants) > 1:
+        text += f" (one gain for every plant variant, set by '{alt.sizing_variant}')"
+    # The alternative against the review's own limits, on this variant's plant.
+    if alt.requirements:
+        text += ("; on this plant it meets " + (", ".join(alt.meets) or "none")
+                 + " and fails " + (", ".join(_requirement_breach(alt)) or "none"))
     return Measurement(value=ratio, text=text, compare=dict.fromkeys(UPPER, ratio),
                        details={"stage": float(alt.stage), "gain_factor": alt.gain_factor,
                                 "phase_margin_deg": alt.margins.phase_margin_deg,
                                 "gain_margin_db": alt.margins.gain_margin_db,
                                 "system_type": float(alt.tracking.system_type),
-                                "settling_time_s": alt.step.settling_time_s})
+                                "settling_time_s": alt.step.settling_time_s,
+                                "meets": ", ".join(alt.meets),
+                                "fails": ", ".join(alt.fails),
+                                "sizing_variant": alt.sizing_variant})
+
+
+def _requirement_breach(alt: IntegralAlternative) -> list[str]:
+    """``rule (figure value vs limit)`` for each limit the alternative breaches."""
+    out = []
+    for c in alt.requirements:
+        if c.met is False and c.value is not None:
+            sign = "<" if c.bound == "min" else ">"
+            out.append(f"{c.rule} ({fmt(c.value, c.unit)} {sign} {fmt(c.limit, c.unit)})")
+    return out
 
 
 # --------------------------------------------------------------------------- regression

@@ -33,13 +33,14 @@ from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from types import MappingProxyType
 
-from ..analysis.results import LoopAnalysis
+from ..analysis.results import LoopAnalysis, RequirementLimit
 from ..design.model import Design, Waiver
 from ..errors import AnalysisError, DesignError, did_you_mean
 from .checks import CHECKS, Measurement, NotApplicable, fmt, is_lower_bound, is_warn_key
 from .model import Finding, Rule, RuleSet, Status
 
-__all__ = ["REQUIREMENT_TARGETS", "Limit", "analysis_settings", "evaluate", "resolve_limits"]
+__all__ = ["REQUIREMENT_TARGETS", "Limit", "alternative_limits", "analysis_settings", "evaluate",
+           "resolve_limits"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -187,6 +188,54 @@ def analysis_settings(design: Design, ruleset: RuleSet,
     bands = [float(r.options["band"]) for r in ruleset.rules if "band" in r.options]
     band = design.requirements.settling_band or (bands[0] if bands else None)
     return (max(pm) if pm else None), band
+
+
+#: check → (figure of the integral alternative per hard limit key) for the limits the
+#: alternative is judged against; error_constant's figure is its ``which`` option.
+_ALTERNATIVE_FIGURES: dict[str, dict[str, str]] = {
+    "phase_margin": {"min": "phase_margin_deg"},
+    "gain_margin": {"min": "gain_margin_db"},
+    "delay_margin": {"min": "delay_margin_s"},
+    "peak_sensitivity": {"max": "peak_sensitivity"},
+    "peak_complementary": {"max": "peak_complementary"},
+    "disk_margin": {"min": "disk_margin"},
+    "crossover_band": {"min": "lowest_crossover_rad_s", "max": "highest_crossover_rad_s"},
+    "step_overshoot": {"max": "overshoot_pct"},
+    "step_settling": {"max": "settling_time_s"},
+    "step_rise": {"max": "rise_time_s"},
+    "system_type": {"min": "system_type", "max": "system_type"},
+    "slow_pair_tail": {"max": "tail_time_s"},
+}
+
+
+def alternative_limits(ruleset: RuleSet, limits: Mapping[str, Mapping[str, Limit]],
+                       ) -> tuple[RequirementLimit, ...]:
+    """The hard limits (``min``/``max``) of the review that the integral alternative is
+    judged against: margins, peaks, crossover, step, type and error constants.
+
+    Effective limits (the design's requirements included), so the alternative meets or
+    fails the same numbers as the current design.  Relative delay-margin rules are left
+    out (they compare with the loop delay, not an absolute figure).
+    """
+    out: list[RequirementLimit] = []
+    for rule in ruleset.rules:
+        if rule.check == "error_constant":
+            which = str(rule.options.get("which", ""))
+            figures = {"min": which, "max": which}
+        elif rule.check == "delay_margin" and rule.options.get("relative"):
+            continue
+        else:
+            figures = _ALTERNATIVE_FIGURES.get(rule.check, {})
+        check = CHECKS[rule.check]
+        for key, figure in figures.items():
+            lim = limits.get(rule.id, {}).get(key)
+            if lim is None:
+                continue
+            out.append(RequirementLimit(
+                rule=rule.id, figure=figure, bound=key, value=lim.value,
+                unit=check.limit_unit(key, rule.options), source=lim.source,
+                nominal_only=rule.options.get("variants") == "nominal"))
+    return tuple(out)
 
 
 # --------------------------------------------------------------------------- judging
