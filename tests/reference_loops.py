@@ -85,13 +85,17 @@ pole = {FURNACE_LAG[1]!r}
 """
 
 
-def furnace_zpk(*, name: str = "furnace zone (zpk)") -> str:
-    """The same loop with the plant in zpk form (gain 3e9 on the monic factors)."""
+def furnace_zpk(*, rhp_zero: bool = False, name: str = "furnace zone (zpk)") -> str:
+    """The same loop with the plant in zpk form: gain 3e9 on the monic factors, or with
+    the slow RHP zero, 3e13·(s − 1e-4)/Π(s + p_i)."""
+    zeros, gain = ((-FURNACE_RHP_NUM[1] / FURNACE_RHP_NUM[0],), FURNACE_RHP_NUM[0]) \
+        if rhp_zero else ((), 3e9)
     return f"""
 [design]
 name = "{name}"
 [plant]
-zpk = {{ zeros = [], poles = [{_floats(-p for p in FURNACE_POLES)}], gain = 3e9 }}
+zpk = {{ zeros = [{_floats(zeros)}], poles = [{_floats(-p for p in FURNACE_POLES)}], \
+gain = {gain!r} }}
 [[controller]]
 type = "gain"
 k = {FURNACE_GAIN!r}

@@ -37,6 +37,7 @@ def analysis(key: str):
         "furnace_tf": rl.furnace_tf,
         "furnace_zpk": rl.furnace_zpk,
         "furnace_rhp": lambda: rl.furnace_tf(rl.FURNACE_RHP_NUM, name="furnace, RHP zero"),
+        "furnace_rhp_zpk": lambda: rl.furnace_zpk(rhp_zero=True, name="furnace, RHP zero"),
         "chain60": lambda: rl.chain_design(rl.CHAIN_N, rl.CHAIN_K),
         "cluster": rl.cluster_design,
     }
@@ -105,7 +106,8 @@ def test_furnace_slow_pair(key):
     assert pair.tail_time_s == pytest.approx(want["tail_time_s"], rel=1e-6)
 
 
-def test_furnace_rhp_zero_loop_is_unstable():
+@pytest.mark.parametrize("key", ["furnace_rhp", "furnace_rhp_zpk"])
+def test_furnace_rhp_zero_loop_is_unstable(key):
     # [derived] χ(s) = (s + 0.0003)·D(s) + 10·3e13·(s − 1e-4)(s + 0.003): leading
     # coefficient 1, constant 0.0003·1.5e9 − 10·3e9·0.003 = −8.955e7 < 0, so χ has a real
     # root in (0, ∞). mpmath: exactly one unstable root, +9.92903995138778e-5 rad/s
@@ -113,15 +115,17 @@ def test_furnace_rhp_zero_loop_is_unstable():
     const = rl.FURNACE_LAG[1] * rl.FURNACE_DEN[-1] + \
         rl.FURNACE_GAIN * rl.FURNACE_RHP_NUM[1] * rl.FURNACE_LAG[0]
     assert const < 0 < 1.0
-    ref = rl.reference_data()["furnace_rhp"]
+    ref = rl.reference_data()[key]
     assert ref["char_poly_signs"] == [1, -1]
     assert ref["rhp"] == 1
-    st = analysis("furnace_rhp").stability
+    st = analysis(key).stability
     assert st.closed_loop_stable is False
     assert st.rhp_closed_loop_poles >= 1
     assert st.rhp_closed_loop_poles == ref["rhp"]
-    root = ref["positive_real_root"]
+    root = max(complex(*r).real for r in ref["roots"])
     assert root == pytest.approx(9.929039951e-5, rel=1e-9)
+    if "positive_real_root" in ref:                     # bisection of χ on (0, 1e-3)
+        assert ref["positive_real_root"] == pytest.approx(root, rel=1e-12)
     listed = np.asarray(st.closed_loop_poles, dtype=complex)
     assert np.min(np.abs(listed - root)) <= 1e-9 * root
     assert_roots_match(listed, rl.as_complex(ref["roots"]), rel=1e-9)

@@ -81,6 +81,13 @@ def test_reference_matches_scipy_discretisation(key):
     for item in ref["roots"]:
         r = complex(*item["root"])
         assert np.min(np.abs(roots - r)) <= 1e-9
+    # Residues of T(z)/(z − 1) by scipy.signal.residue (partial fractions in z); scipy's
+    # are good to ~1e-8 here (cancellation in the lag coefficients), hence 1e-6.
+    res, poles, _ = signal.residue(num, np.polymul(den, [1.0, -1.0]))
+    for item in ref["roots"]:
+        r = complex(*item["root"])
+        i = int(np.argmin(np.abs(poles - r)))
+        assert res[i] == pytest.approx(complex(*item["residue"]), rel=1e-6)
 
 
 @pytest.mark.parametrize("key", KEYS)

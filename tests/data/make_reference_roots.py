@@ -155,7 +155,7 @@ def rational_case(nc, dc, np_, dp, zeros, name):
                 continue
             p = min(cands, key=lambda r: abs(r - z))
             res = pval(num, p) / (p * pval(dch, p))
-            gap = min(abs(p - q) for q in roots if q != p)
+            gap = min([abs(p - q) for q in roots if q != p] + [abs(p)])
             res2 = contour(lambda s: pval(num, s) / (s * pval(ch, s)), p, gap / 10)
             assert abs(res - res2) <= mp.mpf("1e-30") * abs(res), (res, res2)
             amp = amplitude(res, p)
@@ -177,6 +177,12 @@ def furnace_cases():
     }
     dpz = from_roots([-M(p) for p in rl.FURNACE_POLES])
     cases["furnace_zpk"] = rational_case(nc, dc, [mp.mpf(3e9)], dpz, [-zl], "furnace_zpk")
+    zr = -M(rl.FURNACE_RHP_NUM[1]) / M(rl.FURNACE_RHP_NUM[0])
+    zr = M(float(zr))                       # the design file states the zero as a double
+    g = M(rl.FURNACE_RHP_NUM[0])
+    cases["furnace_rhp_zpk"] = rational_case(nc, dc, [g, -g * zr], dpz, [-zl, zr],
+                                             "furnace_rhp_zpk")
+    assert cases["furnace_rhp_zpk"]["rhp"] == 1
     # The RHP-zero loop is unstable: χ(0) < 0 < χ(+∞) (leading coefficient 1), so χ has a
     # real root in (0, ∞): locate the sign change by bisection, independently of polyroots.
     ch = [M(c) for c in cases["furnace_rhp"]["char_poly"]]
