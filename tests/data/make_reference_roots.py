@@ -18,7 +18,8 @@ before it is written (the script stops on any disagreement):
   number found right of Re s = −σ equals the argument-principle count on a rectangle
   enclosing every root there (bounds from coefficient estimates); each root confirmed by
   (1/2πj)∮ s F'/F ds = root and ∮ F'/F = 2πj on a small circle; residues by formula and by
-  a contour integral;
+  a contour integral; and y∞ + Σ r_i e^{p_i t} against the step response by numerical
+  inverse Laplace transform of T(s)/s (Talbot) at t = 300 s and 1000 s;
 * sampled loops: exact ZOH sampling of the plant from its partial fractions (mpmath),
   checked against scipy.signal.cont2discrete; roots by polyroots and companion
   eigenvalues; residues Res[T(z)/(z − 1), p] by formula and by contour integral.
@@ -386,7 +387,19 @@ def delay_case(case, sigma):
             amp = amplitude(res, p)
             slow.append({"pole": cplx(p), "zero": cplx(z), "residue": float(amp),
                          "tail_time_s": float(tail_time(amp, -p.real, yinf))})
+    # Third check, of residues and completeness at once: the step response by numerical
+    # inversion of the Laplace transform T(s)/s (Talbot) equals y∞ + Σ r_i e^{p_i t} over
+    # the roots found, once the roots left of the line have died out.
+    checks = []
+    for when in (300, 1000):
+        y = mp.invertlaplace(T_over_s, when, method="talbot")
+        modal = yinf + mp.fsum(mp.re(mp.mpc(*item["residue"]) * mp.exp(mp.mpc(*item["root"])
+                                                                       * when))
+                               for item in roots)
+        assert abs(y - modal) < mp.mpf("1e-7"), (case, when, y, modal)
+        checks.append([when, float(y)])
     return {"sigma": float(sigma), "rectangle_half_height": big, "argument_count": count,
+            "step_by_inverse_laplace": checks,
             "roots": roots, "stable": all(r.real < 0 for r in found),
             "rhp": sum(1 for r in found if r.real > 0), "y_inf": float(yinf), "slow": slow}
 
