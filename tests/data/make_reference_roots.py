@@ -1,6 +1,8 @@
 """Regenerate tests/data/reference_roots.json (needs mpmath; about a minute).
 
-    cd <worktree> && PYTHONPATH=src:tests python tests/data/make_reference_roots.py
+    cd <worktree> && python tests/data/make_reference_roots.py
+
+It reads the design numbers from tests/reference_loops.py and never imports loopwarden.
 
 Every reference is computed at 50 significant digits in mpmath from the exact numbers the
 design files of ``tests/reference_loops.py`` state, and cross-checked by a second method
