@@ -140,7 +140,7 @@ class CharFunction:
         s = np.asarray(s, dtype=complex)
         lv = self.loop(s)
         with np.errstate(invalid="ignore"):
-            ok = np.abs(1.0 + lv) <= rtol * (1.0 + np.abs(lv))
+            ok = np.isfinite(lv) & (np.abs(1.0 + lv) <= rtol * (1.0 + np.abs(lv)))
         for h in self.hidden_modes():
             ok |= np.abs(s - h) <= 1e-9 * max(abs(h), 1e-300)
         return ok & np.isfinite(s)
@@ -202,8 +202,12 @@ def _cluster_seeds(fn: CharFunction, seeds: ComplexArray) -> ComplexArray:
                      - np.sum(np.log(c - others)) - c * fn.delay_s)
         if not np.isfinite(log_c):
             continue
+        if log_c.real / m > 700.0:
+            continue
         radius = math.exp(log_c.real / m)
-        if not 0.0 < radius < math.inf:
+        gap = float(np.min(np.abs(others - c))) if others.size else math.inf
+        # Beyond the nearest other pole the local picture no longer holds: keep the seeds.
+        if not 0.0 < radius < 0.5 * gap:
             continue
         base = (log_c.imag + math.pi) / m
         picks = np.floor(np.arange(near.size) * m / near.size) if near.size < m else \
@@ -242,6 +246,7 @@ def polish(fn: CharFunction, seeds: ComplexArray, *,
         idx = np.flatnonzero(active)
         xi = x[idx]
         ratio = fn.newton_ratio(xi)
+        far = _log_newton(fn, xi, ratio)
         with np.errstate(divide="ignore", invalid="ignore"):
             diff = xi[:, None] - x[None, :]
             diff[np.arange(idx.size), idx] = np.inf
@@ -260,6 +265,7 @@ def polish(fn: CharFunction, seeds: ComplexArray, *,
         rel = size / np.maximum(np.abs(x[idx]), floor)
         # Converged, or down at the rounding noise of f and no longer shrinking.
         done = (rel <= CONVERGED_RTOL) | ((rel <= 1e-11) & (size >= 0.5 * last[idx]))
+        done &= ~bad & ~far           # a step far from any root says nothing about one
         last[idx] = size
         if abandon_left_of is not None:
             done |= x[idx].real < abandon_left_of
@@ -267,6 +273,27 @@ def polish(fn: CharFunction, seeds: ComplexArray, *,
         if not active.any():
             break
     return _conjugate_pairs(x), it
+
+
+#: Where |ln |L|| exceeds this, the polish steps on ln(−L) instead of on f.
+FAR_LOG_GAIN = 20.0
+
+
+def _log_newton(fn: CharFunction, x: ComplexArray, ratio: ComplexArray) -> NDArray[np.bool_]:
+    """Replace, in place, the Newton ratio by ``ln(−L)/Φ`` where ``|L|`` is huge.
+
+    Deep inside a cluster of poles (|L| ≫ 1) f is nearly constant and Newton on it only
+    crawls; Newton on ``ln(−L(s)) = 0`` (principal branch, ``Φ = L'/L``) walks straight to
+    where ``|L| = 1``, where the roots are.  Returns where it was applied.
+    """
+    lg = fn.log_loop(x)
+    far = np.isfinite(lg) & (lg.real > FAR_LOG_GAIN)
+    if far.any():
+        phi = fn.log_derivative(x[far])
+        target = lg[far].real + 1j * np.angle(-np.exp(1j * lg[far].imag))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratio[far] = target / phi
+    return far
 
 
 def _conjugate_pairs(x: ComplexArray) -> ComplexArray:
