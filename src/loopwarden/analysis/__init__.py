@@ -106,6 +106,8 @@ def _analyze_loop(design: Design, variant: PlantVariant, *,
     intern = internal.internal_stability(blocks)
     w = frequency_grid.loop_grid(loop)          # one analysis grid for both
     marg = margins.compute_margins(loop, w)
+    if not stab.closed_loop_stable and not stab.marginal and stab.certified:
+        marg = _stabilising(loop, marg)
     sens = sensitivity.compute_sensitivity(loop, w)
     track = tracking.compute_tracking(loop)
 
@@ -141,6 +143,15 @@ def _analyze_loop(design: Design, variant: PlantVariant, *,
         sensitivity=sens, tracking=track, step=step, slow_tail=tail, boosts=boosts,
         integral_alternatives=alternatives, curves=curves, errors=errors,
     )
+
+
+def _stabilising(loop, marg):  # type: ignore[no-untyped-def]
+    """Gain margin of an unstable continuous loop: the change to a stable gain range."""
+    from .stabilising_gain import stabilising_margins
+    from .stability import nyquist_count
+
+    return stabilising_margins(marg, lambda k: nyquist_count(loop.scaled(k))
+                               .rhp_closed_loop_poles)
 
 
 def _empty():  # type: ignore[no-untyped-def]

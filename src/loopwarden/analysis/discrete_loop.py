@@ -31,7 +31,7 @@ from .discrete_response import (
     discrete_step_response,
     discrete_tracking,
 )
-from .results import Curves, LoopAnalysis, SampledInfo, TimeSeries
+from .results import Curves, LoopAnalysis, Margins, SampledInfo, TimeSeries
 from .slow_pairs import slow_tail
 
 __all__ = ["INTER_SAMPLE_NOTE", "NOT_IN_Z", "analyze_sampled", "sampled_info"]
@@ -77,6 +77,18 @@ def _blocks(design: Design, loop: DiscreteLoop) -> list[tuple[str, Zpk]]:
     return out
 
 
+def _stabilising(loop: DiscreteLoop, marg: Margins) -> Margins:
+    """Gain margin of an unstable sampled loop: the change to a stable gain range."""
+    from .roots import count_outside_circle, z_char_function
+    from .stabilising_gain import stabilising_margins
+
+    def unstable(k: float) -> int:
+        fn = z_char_function(loop.rational.scaled(k))
+        return count_outside_circle(fn, 1.0 + 1e-7)[0]
+
+    return stabilising_margins(marg, unstable)
+
+
 def _empty() -> np.ndarray:
     return np.zeros(0)
 
@@ -88,6 +100,8 @@ def analyze_sampled(design: Design, variant: PlantVariant, band: float) -> LoopA
     stab = discrete_stability(loop)
     intern = discrete_internal_stability(_blocks(design, loop))
     marg = compute_discrete_margins(loop)
+    if not stab.closed_loop_stable and not stab.marginal and stab.certified:
+        marg = _stabilising(loop, marg)
     sens = compute_discrete_sensitivity(loop)
     track = discrete_tracking(loop)
     info = sampled_info(design, variant, loop)

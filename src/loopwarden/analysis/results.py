@@ -101,6 +101,10 @@ class Margins:
     gain_crossings: tuple[GainCrossing, ...]
     phase_crossings: tuple[PhaseCrossing, ...]
     delay_margin_samples: float | None = None      # sampled loop: delay margin / period
+    # Closed-loop unstable loop (see analysis/stabilising_gain.py): gain_margin_db is then
+    # the gain change to the nearest stable gain range (negative: reduce the gain).
+    stable_gain_found: bool | None = None          # None: the loop is stable
+    stable_gain_range_db: tuple[float, float] | None = None
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

@@ -18,7 +18,7 @@ from reportlab.platypus import (
     TableStyle,
 )
 
-from ..analysis.results import IntegralAlternative, LoopAnalysis, Margins
+from ..analysis.results import IntegralAlternative, LoopAnalysis, Margins, Stability
 from .pdf_style import (
     FRAME_W,
     HEAD_BG,
@@ -146,7 +146,33 @@ def _stability_text(a: LoopAnalysis) -> str:
                f"{s.rhp_closed_loop_poles} in the closed right half-plane")
     extra = " (a pole on the stability boundary)" if s.marginal else ""
     note = f" {text(s.note[:1].upper() + s.note[1:])}" if s.note else ""
-    return f"{word}: {how}{extra}.{note}"
+    return f"{word}: {how}{extra}. {text(certificate_text(s))}{note}"
+
+
+def certificate_text(s: Stability) -> str:
+    """One sentence on how far the closed-loop roots are certified."""
+    if not s.certified:
+        return ("NOT CERTIFIED: the roots found and the argument principle's count "
+                "disagree, so the verdict cannot be trusted.")
+    if a_measured(s):
+        return ""
+    parts = []
+    if s.search_abscissa_rad_s is not None:
+        parts.append(f"{len(s.closed_loop_poles)} roots right of the search line Re s = "
+                     f"{-s.search_abscissa_rad_s:.4g}, as many as the argument principle "
+                     "counts there")
+    elif s.unstable_roots_counted is not None:
+        region = "outside the unit circle" if s.domain == "z" else "in the right half-plane"
+        parts.append(f"roots polished on the exact characteristic function; "
+                     f"{s.unstable_roots_counted} {region} by the argument principle, as found")
+    if s.slow_roots_counted is not None:
+        parts.append(f"{s.slow_roots_counted} root(s) in the slow region, counted and found")
+    return ("Certified: " + "; ".join(parts) + ".") if parts else ""
+
+
+def a_measured(s: Stability) -> bool:
+    """A measured plant's stability comes from the Nyquist count alone (no roots)."""
+    return s.method == "nyquist" and s.search_abscissa_rad_s is None
 
 
 #: The checks a measured range may leave undecided → the key-figure labels they decide.

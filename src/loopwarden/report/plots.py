@@ -811,8 +811,9 @@ def pole_zero_figure(analysis: LoopAnalysis, zeros: NDArray[np.complex128], *,
 
     ``zeros`` are the closed-loop zeros from reference to output as read from the model
     (zeros of C·P and poles of the sensor); the poles are the analysis's closed-loop poles.
-    For a loop with transport delay the analysis has no closed-loop poles; then the
-    open-loop poles of the rational part (``open_loop_poles``, as read) are drawn instead.
+    For a loop with transport delay the poles are the roots right of the search line,
+    which is drawn dashed.  Without closed-loop poles (a measured plant) the open-loop
+    poles of the rational part (``open_loop_poles``, as read) are drawn instead.
     """
     import matplotlib
 
@@ -824,6 +825,7 @@ def pole_zero_figure(analysis: LoopAnalysis, zeros: NDArray[np.complex128], *,
             return _open_loop_map(fig, analysis, zeros, open_loop_poles, width_in, height_in)
         if getattr(analysis.stability, "domain", "s") == "z":
             return _z_plane_map(fig, analysis, poles, zeros, width_in, height_in)
+        search = analysis.stability.search_abscissa_rad_s
         span = float(np.max(np.abs(np.concatenate([poles, zeros])))) or 1.0
         zoom = None
         if pairs:
@@ -849,7 +851,10 @@ def pole_zero_figure(analysis: LoopAnalysis, zeros: NDArray[np.complex128], *,
                 cx = (pair.pole.real + pair.zero.real) / 2.0
                 cy = (pair.pole.imag + pair.zero.imag) / 2.0
                 ax.plot([cx], [cy], "o", mfc="none", color=C_FAIL, markersize=15, mew=1.0)
-            ax.set_xlim(*_pz_limits(poles, zeros, r)[0])
+            xlim = _pz_limits(poles, zeros, r)[0]
+            if search is not None and xlim[0] <= -search <= xlim[1]:
+                ax.axvline(-search, color=C_MARK, linewidth=0.8, linestyle="--")
+            ax.set_xlim(*xlim)
             ax.set_ylim(*_pz_limits(poles, zeros, r)[1])
             ax.set_ylabel("Im s (rad/s)")
             _style(ax)
@@ -860,6 +865,10 @@ def pole_zero_figure(analysis: LoopAnalysis, zeros: NDArray[np.complex128], *,
             views[-1][0].set_title("near the origin (slow pairs ringed)", loc="left")
         _place(fig, left=0.66, rows=2 if zoom is not None else 1, hgap=0.6)
         caption = f"Closed-loop poles (×) and zeros (○), {analysis.variant}."
+        if search is not None:
+            caption += (f" Transport delay: every closed-loop root right of the dashed search "
+                        f"line Re s = {-search:.4g} is drawn (counted by the argument "
+                        "principle); infinitely many more lie left of it.")
         if pairs:
             caption += (" Red rings: slow closed-loop poles nearly cancelled by a zero; "
                         "their small residue decays slowly.")
