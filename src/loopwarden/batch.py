@@ -108,9 +108,13 @@ def collect_inputs(specs: Sequence[str | os.PathLike[str]]) -> list[Path]:
     seen: set[Path] = set()
     for spec in specs:
         path = Path(spec)
+        if "\0" in str(spec):
+            raise UsageError(f"{str(path)!r} contains a NUL byte", hint="nothing was reviewed")
         if path.is_dir():
-            files = sorted(p for p in path.glob("*.toml") if p.is_file())
-        elif path.is_file():
+            # Every entry named *.toml, also one that is no regular file (a FIFO, a
+            # folder): it gets its own summary row saying why it was skipped, unopened.
+            files = sorted(path.glob("*.toml"))
+        elif path.exists():
             files = [path]
         else:
             raise UsageError(f"{str(path)!r} is neither a design file nor a folder",

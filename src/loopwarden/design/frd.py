@@ -34,6 +34,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from ..errors import DesignError
+from ..input_files import read_input
 from ..lti import ComplexArray, FloatArray
 from .forms import TWO_PI, Table
 
@@ -125,6 +126,9 @@ def _unit(t: Table, key: str, choices: tuple[str, ...], default: str | None = No
 
 def _confined(design_path: str, written: str, t: Table) -> Path:
     """The CSV path, resolved, refused when it leaves the design file's folder tree."""
+    if "\0" in written:
+        raise t.error("file", "the measurement file name contains a NUL byte",
+                      "a file name cannot contain NUL")
     base = Path(design_path).resolve().parent
     candidate = Path(written)
     target = (candidate if candidate.is_absolute() else base / candidate).resolve()
@@ -149,15 +153,8 @@ def read_frd(t: Table, design_path: str, *, unstable_poles: int, integrators: in
     p_unit = _unit(t, "phase_unit", ("deg", "rad"))
     path = _confined(design_path, written, t)
     shown = str(Path(design_path).parent / written)
-    try:
-        raw = path.read_bytes()
-    except FileNotFoundError:
-        raise DesignError("measurement file not found", file=shown,
-                          hint=f"{t.at('file')} is read relative to the design file") from None
-    except IsADirectoryError:
-        raise DesignError("is a directory, not a measurement file", file=shown) from None
-    except OSError as exc:
-        raise DesignError(f"cannot read the file: {exc.strerror or exc}", file=shown) from None
+    raw = read_input(path, DesignError, "measurement file", shown=shown,
+                     hint_missing=f"{t.at('file')} is read relative to the design file")
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:

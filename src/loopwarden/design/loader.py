@@ -35,6 +35,7 @@ from pathlib import Path
 from types import MappingProxyType
 
 from ..errors import DesignError, did_you_mean
+from ..input_files import read_input, toml_loads
 from ..lti import Zpk
 from .forms import FORMS, Table, read_form
 from .frd import read_frd
@@ -95,15 +96,8 @@ def load_design(path: str | Path) -> Design:
         design; the error names the file and the offending table and key.
     """
     name = str(path)
-    try:
-        raw = Path(path).read_bytes()
-    except FileNotFoundError:
-        raise DesignError("file not found", file=name,
-                          hint="check the path of the design file") from None
-    except IsADirectoryError:
-        raise DesignError("is a directory, not a design file", file=name) from None
-    except OSError as exc:
-        raise DesignError(f"cannot read the file: {exc.strerror or exc}", file=name) from None
+    raw = read_input(path, DesignError, "design file", shown=name,
+                     hint_missing="check the path of the design file")
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
@@ -123,7 +117,7 @@ def parse_design(text: str, path: str) -> Design:
 # ---------------------------------------------------------------------- top level
 def _parse(text: str, path: str, sha256: str) -> Design:
     try:
-        data = tomllib.loads(text)
+        data = toml_loads(text, DesignError, path)
     except tomllib.TOMLDecodeError as exc:
         raise _syntax_error(exc, path) from None
     top = Table(data, "", path)

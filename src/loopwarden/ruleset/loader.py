@@ -23,6 +23,7 @@ from types import MappingProxyType
 from typing import Any
 
 from ..errors import RuleSetError, did_you_mean
+from ..input_files import check_path, read_input, require_regular_file, toml_loads
 from .checks import CHECKS, Check, is_lower_bound, is_warn_key
 from .model import Rule, RuleSet, RuleSetFile
 
@@ -68,10 +69,12 @@ def _resolve(spec: str, base: Path | None) -> Path:
     looks_like_path = (os.sep in spec or "/" in spec or spec.endswith(".toml"))
     if not looks_like_path and spec in shipped:
         return shipped[spec]
+    check_path(spec, RuleSetError, "rule-set file")
     path = Path(spec)
     if base is not None and not path.is_absolute():
         path = base / path
-    if path.is_file():
+    if path.exists():
+        require_regular_file(path, RuleSetError, "rule-set file")
         return path
     hint = did_you_mean(spec, shipped) or (
         "shipped sets: " + ", ".join(shipped) if shipped else None)
@@ -239,7 +242,7 @@ def _check_error_constant_direction(which: str, limits: Mapping[str, float], *, 
 def parse_ruleset(text: str, *, file: str) -> _Parsed:
     """Parse one rule-set file's text (without resolving ``extends``)."""
     try:
-        data = tomllib.loads(text)
+        data = toml_loads(text, RuleSetError, file)
     except tomllib.TOMLDecodeError as exc:
         raise RuleSetError(f"not valid TOML: {exc}", file=file) from exc
     for key in data:
@@ -283,10 +286,7 @@ def parse_ruleset(text: str, *, file: str) -> _Parsed:
 
 # --------------------------------------------------------------------------- loading
 def _read(path: Path) -> tuple[bytes, str]:
-    try:
-        raw = path.read_bytes()
-    except OSError as exc:
-        raise RuleSetError(f"cannot read: {exc.strerror or exc}", file=str(path)) from exc
+    raw = read_input(path, RuleSetError, "rule-set file")
     try:
         return raw, raw.decode("utf-8")
     except UnicodeDecodeError as exc:
