@@ -38,6 +38,7 @@ from types import MappingProxyType
 import numpy as np
 
 from ..lti import Zpk
+from .bounds import check_gain, check_roots
 from .forms import Table, read_direct_form, read_form, read_roots
 from .model import Stage
 
@@ -144,7 +145,7 @@ def _integrator(t: Table, label: str) -> tuple[Params, Zpk]:
 
 def _notch(t: Table, label: str) -> tuple[Params, Zpk]:
     w = t.frequency("freq")
-    depth = t.number("depth_db", above=0.0, unit="dB")
+    depth = t.number("depth_db", above=0.0, maximum=200.0, unit="dB")
     zeta = t.number("zeta", above=0.0, default=0.5)
     zeta_z = zeta * 10.0 ** (-depth / 20.0)
     return ({"freq": w, "depth_db": depth, "zeta": zeta},
@@ -238,4 +239,12 @@ def read_stage(t: Table, index: int) -> Stage:
     body.check_keys(spec.keys, spec.required, hints=_FORM_KEY_HINT)
     label = f"{t.where} {kind}"
     params, model = spec.build(body, label)
+    what = "the stage's {}" + (f" (from {', '.join(k for k in spec.keys if k in body.data)})"
+                               if kind not in ("tf", "zpk") else "")
+    scale = 1.0 / (2 * math.pi) if t.hz and kind not in ("tf",) else 1.0
+    check_roots(model.poles, file=t.file, where=t.where, what=what.format("pole"),
+                unit_scale=scale, unit=t.unit if scale != 1.0 else "rad/s")
+    check_roots(model.zeros, file=t.file, where=t.where, what=what.format("zero"),
+                unit_scale=scale, unit=t.unit if scale != 1.0 else "rad/s")
+    check_gain(model.gain, file=t.file, where=t.where)
     return Stage(index=index, type=kind, params=MappingProxyType(params), model=model)
