@@ -206,17 +206,26 @@ def _rows(review: Any, file: str) -> tuple[Row, ...]:
         mine = [f for f in review.findings if f.variant == a.variant]
         n_fail = sum(f.status.blocks for f in mine)
         step = a.step
+
+        def known(check: str, value: Any, a: Any = a) -> Any:
+            # A figure the analysis could not decide (a placeholder) is left empty.
+            return None if check in a.undecided else value
+
         rows.append({
             "design": review.design.name, "file": file, "variant": a.variant,
             "verdict": "fail" if n_fail else "pass",
-            "closed_loop_stable": a.stability.closed_loop_stable,
-            "gain_margin_db": _number(a.margins.gain_margin_db),
-            "phase_margin_deg": _number(a.margins.phase_margin_deg),
-            "delay_margin_s": _number(a.margins.delay_margin_s),
-            "peak_sensitivity": _number(a.sensitivity.peak_sensitivity),
-            "peak_complementary": _number(a.sensitivity.peak_complementary),
-            "disk_margin": _number(a.sensitivity.disk_margin),
-            "system_type": a.tracking.system_type, "kv": _number(a.tracking.kv),
+            "closed_loop_stable": known("closed_loop_stability",
+                                        a.stability.closed_loop_stable),
+            "gain_margin_db": known("gain_margin", _number(a.margins.gain_margin_db)),
+            "phase_margin_deg": known("phase_margin", _number(a.margins.phase_margin_deg)),
+            "delay_margin_s": known("delay_margin", _number(a.margins.delay_margin_s)),
+            "peak_sensitivity": known("peak_sensitivity",
+                                      _number(a.sensitivity.peak_sensitivity)),
+            "peak_complementary": known("peak_complementary",
+                                        _number(a.sensitivity.peak_complementary)),
+            "disk_margin": known("disk_margin", _number(a.sensitivity.disk_margin)),
+            "system_type": known("system_type", a.tracking.system_type),
+            "kv": known("error_constant", _number(a.tracking.kv)),
             "overshoot_pct": None if step is None else _number(step.overshoot_pct),
             "settling_time_s": None if step is None else _number(step.settling_time_s),
             "n_fail": n_fail, "n_warn": sum(f.status.value == "warn" for f in mine),

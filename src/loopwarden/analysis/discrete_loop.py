@@ -15,7 +15,6 @@ from types import MappingProxyType
 import numpy as np
 
 from ..design.model import Design, PlantVariant
-from ..errors import AnalysisError
 from ..lti import Zpk
 from ..lti_discrete import DiscreteLoop
 from .discrete_margins import (
@@ -31,6 +30,16 @@ from .discrete_response import (
     discrete_tracking,
 )
 from .results import Curves, LoopAnalysis, SampledInfo, TimeSeries
+from .undecided import (
+    NUMERIC_ERRORS,
+    Recorder,
+    empty_curves,
+    undecided_internal,
+    undecided_margins,
+    undecided_sensitivity,
+    undecided_stability,
+    undecided_tracking,
+)
 
 __all__ = ["INTER_SAMPLE_NOTE", "NOT_IN_Z", "analyze_sampled", "sampled_info"]
 
@@ -91,36 +100,54 @@ def _empty() -> np.ndarray:
 def analyze_sampled(design: Design, variant: PlantVariant, band: float) -> LoopAnalysis:
     """Analyse the sampled loop of ``design`` around ``variant`` (settling ``band``)."""
     loop = design.sampled_loop(variant)
-    errors: dict[str, str] = {}
-    stab = discrete_stability(loop)
-    intern = discrete_internal_stability(_blocks(design, loop))
-    marg = compute_discrete_margins(loop)
-    sens = compute_discrete_sensitivity(loop)
-    track = discrete_tracking(loop)
-    info = sampled_info(design, variant, loop)
+    rec = Recorder()
+    errors = rec.errors
+    stab = rec.run("stability", lambda: discrete_stability(loop),
+                   lambda r: undecided_stability(r, "z"))
+    intern = rec.run("internal_stability",
+                     lambda: discrete_internal_stability(_blocks(design, loop)),
+                     undecided_internal)
+    marg = rec.run("margins", lambda: compute_discrete_margins(loop), undecided_margins)
+    sens = rec.run("sensitivity", lambda: compute_discrete_sensitivity(loop),
+                   undecided_sensitivity)
+    track = rec.run("tracking", lambda: discrete_tracking(loop), undecided_tracking)
+    info = rec.run("sampling", lambda: sampled_info(design, variant, loop), lambda r: None)
     step_result = None
     if stab.closed_loop_stable:
         try:
-            step_result = discrete_step_response(loop, band)
-        except (AnalysisError, ArithmeticError, ValueError) as exc:
+            with np.errstate(all="ignore"):
+                step_result = discrete_step_response(loop, band)
+        except NUMERIC_ERRORS as exc:
             errors["step"] = f"{type(exc).__name__}: {exc}"
+    elif "stability" in errors:
+        errors["step"] = "closed-loop stability could not be decided: no step response"
     else:
         errors["step"] = "closed loop is unstable: no settled step response"
-    phi = unit_circle_grid(loop.rational, points_per_decade=60, uniform=400)
-    if phi.size > 2000:
-        phi = phi[np.unique(np.linspace(0, phi.size - 1, 2000).round().astype(int))]
-    grid = phi / loop.period_s
-    empty = TimeSeries(time_s=_empty(), value=_empty())
-    curves = Curves(
-        frequency_rad_s=grid, open_loop=loop.open_loop(grid),
-        step=step_result.step if step_result else empty,
-        ramp_error=step_result.ramp_error if step_result else empty,
-        improvement={},
-    )
+
+    def curves_now() -> Curves:
+        phi = unit_circle_grid(loop.rational, points_per_decade=60, uniform=400)
+        if phi.size > 2000:
+            phi = phi[np.unique(np.linspace(0, phi.size - 1, 2000).round().astype(int))]
+        grid = phi / loop.period_s
+        empty = TimeSeries(time_s=_empty(), value=_empty())
+        return Curves(
+            frequency_rad_s=grid, open_loop=loop.open_loop(grid),
+            step=step_result.step if step_result else empty,
+            ramp_error=step_result.ramp_error if step_result else empty,
+            improvement={},
+        )
+
+    try:
+        with np.errstate(all="ignore"):
+            curves = curves_now()
+    except NUMERIC_ERRORS as exc:
+        errors["curves"] = f"{type(exc).__name__}: {exc}"
+        curves = empty_curves()
     return LoopAnalysis(
         variant=variant.name, stability=stab, internal=intern, margins=marg,
         sensitivity=sens, tracking=track,
         step=step_result.metrics if step_result else None, slow_tail=None, boosts=(),
         integral_alternatives=(), curves=curves, errors=errors, sampling=info,
         not_applicable=MappingProxyType(dict(NOT_IN_Z)),
+        undecided=MappingProxyType(dict(rec.undecided)),
     )
