@@ -17,13 +17,16 @@ can no longer be read is removed, so the folder never shows stale evidence for i
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import json
 import math
 import multiprocessing
 import os
+import signal
+import threading
 import time
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
 from pathlib import Path
 from typing import IO, Any
@@ -44,6 +47,9 @@ MD_TITLE = "# loopwarden batch summary"
 _REVIEW_SCHEMA = "loopwarden-review/1"      # == report.json_out.SCHEMA (not imported here)
 _WORST = 3                                  # findings named per design in summary.md
 _PER_WORKER = 4                             # fewer designs than this per worker: fewer workers
+#: Wall time allowed per design (s) unless --timeout says otherwise.  Every design the
+#: input limits accept reviews well inside it (bench/fuzz_designs.py measures it).
+DEFAULT_TIMEOUT_S = 120.0
 
 Row = dict[str, Any]
 
@@ -53,8 +59,9 @@ class DesignOutcome:
     """What one design gave: its summary rows, verdict, counts, worst findings or error.
 
     ``verdict`` is ``"pass"``, ``"fail"``, ``"error"`` (bad input: the design file, its
-    limits or waivers, or its review could not be written) or ``"internal"`` (a bug in
-    loopwarden while reviewing it).
+    limits or waivers, an entry that is no regular file, or its review could not be
+    written), ``"timeout"`` (the review took longer than the per-design timeout and was
+    stopped) or ``"internal"`` (a bug in loopwarden while reviewing it).
     """
 
     index: int
@@ -80,10 +87,11 @@ class BatchResult:
 
     @property
     def exit_code(self) -> int:
-        """3 a design hit an internal error, 2 one could not be read, 1 one fails, else 0."""
+        """3 a design hit an internal error, 2 one could not be read or timed out, 1 one
+        fails, else 0."""
         if self.count("internal"):
             return 3
-        if self.count("error"):
+        if self.count("error") or self.count("timeout"):
             return 2
         return 1 if self.count("fail") else 0
 
@@ -258,12 +266,48 @@ def _error_row(path: str, message: str, verdict: str) -> Row:
     return row
 
 
+class DesignTimeout(BaseException):
+    """Raised inside a review when its per-design time is up (see :func:`_time_limit`).
+
+    A BaseException, so that no handler of a single check or part swallows it.
+    """
+
+
+@contextlib.contextmanager
+def _time_limit(seconds: float | None) -> Iterator[None]:
+    """Raise :class:`DesignTimeout` in this thread after ``seconds`` of wall time.
+
+    Uses the real-time interval timer (SIGALRM), so it works in the main thread of a
+    process (a batch worker, or the batch itself with one worker) on POSIX systems;
+    elsewhere the review runs without a limit.  The timer interrupts Python code; a single
+    numerical library call finishes first (the input limits keep each one short).
+    """
+    usable = (seconds is not None and seconds > 0 and hasattr(signal, "setitimer")
+              and threading.current_thread() is threading.main_thread())
+    if not usable:
+        yield
+        return
+
+    def expire(signum: int, frame: Any) -> None:
+        raise DesignTimeout()
+
+    previous = signal.signal(signal.SIGALRM, expire)
+    signal.setitimer(signal.ITIMER_REAL, float(seconds))  # type: ignore[arg-type]
+    try:
+        yield
+    finally:
+        signal.setitimer(signal.ITIMER_REAL, 0.0)
+        signal.signal(signal.SIGALRM, previous)
+
+
 def review_file(index: int, path: str, output: str, ruleset_path: str, date: str,
-                tool_version: str | None = None) -> DesignOutcome:
+                tool_version: str | None = None, timeout_s: float | None = None
+                ) -> DesignOutcome:
     """Review one design file and write its JSON review to ``output``.
 
-    Never raises for the design's own problems: bad input gives ``error``, a bug
-    ``internal``, each with the message in the outcome (and its summary row).
+    Never raises for the design's own problems: bad input gives ``error``, a review
+    longer than ``timeout_s`` seconds ``timeout``, a bug ``internal``, each with the
+    message in the outcome (and its summary row).
     """
     from .design.loader import load_design
     from .report import renderer
@@ -271,10 +315,18 @@ def review_file(index: int, path: str, output: str, ruleset_path: str, date: str
     from .review_run import run_review
 
     try:
-        design = load_design(path)
-        review = run_review(design, _ruleset(ruleset_path), today=date,
-                            tool_version=tool_version)
-        write_outputs({Path(output): renderer("json").render(review)}, inputs=[Path(path)])
+        with _time_limit(timeout_s):
+            design = load_design(path)
+            review = run_review(design, _ruleset(ruleset_path), today=date,
+                                tool_version=tool_version)
+            evidence = renderer("json").render(review)
+        write_outputs({Path(output): evidence}, inputs=[Path(path)])
+    except DesignTimeout:
+        msg = (f"skipped: the review took longer than {timeout_s:g} s (--timeout) and was "
+               "stopped")
+        return DesignOutcome(index=index, path=path, output=output, design=None,
+                             verdict="timeout", error=msg,
+                             rows=(_error_row(path, msg, "timeout"),))
     except UserError as exc:
         msg = str(exc)
         return DesignOutcome(index=index, path=path, output=output, design=None,
@@ -294,9 +346,11 @@ def review_file(index: int, path: str, output: str, ruleset_path: str, date: str
 
 
 def review_chunk(tasks: Sequence[tuple[int, str, str]], ruleset_path: str, date: str,
-                 tool_version: str | None) -> list[DesignOutcome]:
+                 tool_version: str | None, timeout_s: float | None = None
+                 ) -> list[DesignOutcome]:
     """Worker entry point (module level, so the ``spawn`` start method can pickle it)."""
-    return [review_file(i, p, o, ruleset_path, date, tool_version) for i, p, o in tasks]
+    return [review_file(i, p, o, ruleset_path, date, tool_version, timeout_s)
+            for i, p, o in tasks]
 
 
 # --------------------------------------------------------------------------- progress
@@ -314,7 +368,7 @@ class Progress:
     def update(self, outcome: DesignOutcome) -> None:
         self.done += 1
         self.failed += outcome.verdict == "fail"
-        self.not_reviewed += outcome.verdict in ("error", "internal")
+        self.not_reviewed += outcome.verdict in ("error", "internal", "timeout")
         if self.stream is None:
             return
         if not self.bar:
@@ -364,8 +418,8 @@ def _in_parallel(tasks: list[tuple[int, str, str]], jobs: int, args: tuple[Any, 
 
 def run_batch(inputs: Sequence[Path], out_dir: Path, *, ruleset: str | None = None,
               jobs: int | None = None, date: str | None = None,
-              progress: IO[str] | None = None, tool_version: str | None = None
-              ) -> BatchResult:
+              progress: IO[str] | None = None, tool_version: str | None = None,
+              timeout_s: float | None = DEFAULT_TIMEOUT_S) -> BatchResult:
     """Review every design of ``inputs`` into ``out_dir``; write the two summaries.
 
     Parameters
@@ -383,6 +437,9 @@ def run_batch(inputs: Sequence[Path], out_dir: Path, *, ruleset: str | None = No
         Review date (YYYY-MM-DD); default as :func:`loopwarden.review_run.review_date`.
     progress : text stream, optional
         Where progress goes (a bar when it is a terminal); None for none.
+    timeout_s : float, optional
+        Wall time allowed per design (default :data:`DEFAULT_TIMEOUT_S`); a review that
+        takes longer is stopped and gets a ``timeout`` row.  None or 0: no limit.
 
     Raises
     ------
@@ -411,7 +468,7 @@ def run_batch(inputs: Sequence[Path], out_dir: Path, *, ruleset: str | None = No
     tasks = [(i, str(p), str(out_dir / n)) for i, (p, n) in enumerate(zip(inputs, names,
                                                                           strict=True))]
     bar = Progress(len(tasks), progress)
-    args = (rs.path, day, tool_version)
+    args = (rs.path, day, tool_version, timeout_s)
     # Starting a worker (a fresh interpreter importing numpy and scipy) costs about as
     # much as a few small reviews: give each worker at least a few designs.
     workers = min(jobs, math.ceil(len(tasks) / _PER_WORKER))
@@ -454,7 +511,7 @@ def summary_md(result: BatchResult, ruleset: Any, date: str, tool_version: str) 
     from .report import CAUTIONS
 
     n = len(result.outcomes)
-    not_read = result.count("error") + result.count("internal")
+    not_read = result.count("error") + result.count("internal") + result.count("timeout")
     lines = [
         MD_TITLE, "",
         f"**{n} design{'s' if n != 1 else ''}: {result.count('pass')} pass, "
@@ -468,7 +525,7 @@ def summary_md(result: BatchResult, ruleset: Any, date: str, tool_version: str) 
     ]
     for o in result.outcomes:
         review = "" if o.error is not None else f"`{Path(o.output).name}`"
-        verdict = {"pass": "pass", "fail": "FAIL", "error": "ERROR",
+        verdict = {"pass": "pass", "fail": "FAIL", "error": "ERROR", "timeout": "TIMEOUT",
                    "internal": "INTERNAL ERROR"}[o.verdict]
         worst = o.error if o.error is not None else "; ".join(o.worst) or "none"
         cells = (o.design or "", f"`{o.path}`", review, verdict,

@@ -168,6 +168,16 @@ def check_loop(blocks: Sequence[Block], *, file: str, variant_where: str, delay_
         w_cross = highest_crossover_bound(s_blocks)
         if w_cross is not None:
             w_max = max(w_max or 0.0, w_cross)
+    if period_s is None and delay_s > 0.0 and measured_max_rad_s is None:
+        n_poles = sum(len(b.poles) for b in s_blocks)
+        n_zeros = sum(len(b.zeros) for b in s_blocks)
+        if n_poles == n_zeros and log_gain >= 0.0:
+            raise DesignError(
+                f"with the delay, |L(j∞)| = {10 ** log_gain:.4g} ≥ 1 makes a neutral loop: "
+                "the delayed high-frequency gain alone decides stability and the analysis "
+                "cannot carry it", file=file, where=variant_where,
+                hint="some block must roll off at high frequency (a strictly proper plant, "
+                     "sensor or controller stage)")
     if (period_s is None and delay_s > 0.0 and w_max is not None
             and delay_s * w_max > MAX_DELAY_PHASE_RAD):
         raise DesignError(
@@ -207,21 +217,25 @@ def check_loop(blocks: Sequence[Block], *, file: str, variant_where: str, delay_
 
 
 def highest_crossover_bound(blocks: Sequence[Block]) -> float | None:
-    """The highest frequency (rad/s) on a log grid 1e-10 .. 1e12 where |L(jω)| ≥ 1.
+    """The highest frequency (rad/s) on a log grid 1e-10 .. 1e12 where |L(jω)| ≥ 1 (a
+    strictly proper loop) or where |L| has not yet come within 1 % of its limit
+    |L(j∞)| = |k| < 1 (a biproper loop; the delay grid of the analysis reaches that far).
 
-    Worked in logarithms, so no gain overflows.  None when |L| stays below 1 everywhere
-    or the loop is not strictly proper (its gain never falls below 1 then).
+    Worked in logarithms, so no gain overflows.  None when |L| stays below the level
+    everywhere.
     """
     zeros = np.array([complex(r) for b in blocks for r in b.zeros], dtype=complex)
     poles = np.array([complex(r) for b in blocks for r in b.poles], dtype=complex)
-    if poles.size <= zeros.size:
-        return None
     log_k = sum(math.log(abs(b.gain)) for b in blocks if b.gain != 0.0)
+    level = 0.0
+    if poles.size == zeros.size:
+        k = math.exp(min(log_k, 700.0))
+        level = math.log(max(min(1.01 * k, 0.5 * (1.0 + k)), 1e-300))
     jw = 1j * np.logspace(-10.0, 12.0, 441)
     with np.errstate(divide="ignore"):
         log_mag = (log_k + np.log(np.abs(jw[:, None] - zeros[None, :])).sum(axis=1)
                    - np.log(np.abs(jw[:, None] - poles[None, :])).sum(axis=1))
-    above = np.nonzero(log_mag >= 0.0)[0]
+    above = np.nonzero(log_mag >= level)[0]
     if above.size == 0:
         return None
     i = int(above[-1])

@@ -38,7 +38,7 @@ from types import MappingProxyType
 import numpy as np
 
 from ..lti import Zpk
-from .bounds import check_gain, check_roots
+from .bounds import MAX_ROOT_RAD_S, MIN_ROOT_RAD_S, check_gain, check_roots
 from .forms import Table, read_direct_form, read_form, read_roots
 from .model import Stage
 
@@ -109,17 +109,30 @@ def _lead_lag(kind: str, default_norm: str) -> Builder:
     return build
 
 
+def _time(t: Table, key: str) -> float:
+    """A positive time constant within 1/MAX_ROOT .. 1/MIN_ROOT seconds (1e-8 .. 1e8 s):
+    its reciprocal is a root of the stage."""
+    value = t.number(key, above=0.0, unit="s")
+    if not 1.0 / MAX_ROOT_RAD_S <= value <= 1.0 / MIN_ROOT_RAD_S:
+        raise t.error(key, f"expected a time within {1.0 / MAX_ROOT_RAD_S:g} .. "
+                      f"{1.0 / MIN_ROOT_RAD_S:g} s, got {value:g} s",
+                      "README.md lists the ranges the analysis can carry")
+    return value
+
+
 def _pi(t: Table, label: str) -> tuple[Params, Zpk]:
     kp = t.number("kp", nonzero=True)
-    ti = t.number("ti", above=0.0, unit="s")
+    ti = _time(t, "ti")
     # kp (1 + 1/(ti s)) = kp (s + 1/ti) / s
     return {"kp": kp, "ti": ti}, _zpk([-1.0 / ti], [0.0], kp, label)
 
 
 def _pid(t: Table, label: str) -> tuple[Params, Zpk]:
     kp = t.number("kp", nonzero=True)
-    ti = t.number("ti", above=0.0, unit="s")
+    ti = _time(t, "ti")
     td = t.number("td", minimum=0.0, unit="s")
+    if td != 0.0:
+        td = _time(t, "td")
     n = t.number("n", above=0.0, default=10.0)
     params: Params = {"kp": kp, "ti": ti, "td": td, "n": n}
     if td == 0.0:
