@@ -153,8 +153,13 @@ def read_frd(t: Table, design_path: str, *, unstable_poles: int, integrators: in
     p_unit = _unit(t, "phase_unit", ("deg", "rad"))
     path = _confined(design_path, written, t)
     shown = str(Path(design_path).parent / written)
-    raw = read_input(path, DesignError, "measurement file", shown=shown,
-                     hint_missing=f"{t.at('file')} is read relative to the design file")
+    try:
+        raw = read_input(path, DesignError, "measurement file", shown=shown,
+                         hint_missing=f"{t.at('file')} is read relative to the design "
+                                      "file")
+    except DesignError as exc:
+        raise DesignError(exc.what, file=exc.file, where=t.at("file"),
+                          hint=exc.hint) from None
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:

@@ -244,13 +244,19 @@ def parse_ruleset(text: str, *, file: str) -> _Parsed:
     try:
         data = toml_loads(text, RuleSetError, file)
     except tomllib.TOMLDecodeError as exc:
-        raise RuleSetError(f"not valid TOML: {exc}", file=file) from exc
+        msg = str(exc)
+        m = re.search(r"\(at line (\d+), column (\d+)\)", msg)
+        where = f"line {m.group(1)}, column {m.group(2)}" if m else "end of file"
+        what = msg[:m.start()].strip() if m else msg.replace("(at end of document)", "")
+        raise RuleSetError(f"not valid TOML: {what.strip()}", file=file, where=where,
+                           hint="see https://toml.io for the syntax") from exc
     for key in data:
         if key not in ("ruleset", "rule"):
             raise _unknown_key(key, ["ruleset", "rule"], file=file, where="", what="table")
     head = data.get("ruleset")
     if not isinstance(head, dict):
-        raise RuleSetError("missing the [ruleset] table", file=file)
+        raise RuleSetError("missing the [ruleset] table" if head is None else
+                           "expected a table [ruleset]", file=file, where="ruleset")
     for key in head:
         if key not in RULESET_KEYS:
             raise _unknown_key(key, RULESET_KEYS, file=file, where="ruleset")
@@ -329,6 +335,7 @@ def _check_bands(rules: tuple[Rule, ...], file: str) -> None:
     if len(set(bands.values())) > 1:
         listed = ", ".join(f"{k} = {v:g}" for k, v in bands.items())
         raise RuleSetError(f"rules ask for different settling bands ({listed})", file=file,
+                           where="rule",
                            hint="use one band for every rule of a set")
 
 
