@@ -6,9 +6,9 @@ Every generator takes a ``random.Random`` and returns TOML text; nothing here re
 clock or the environment, so a seed reproduces a case.
 
 Mutations of a parsed file: a number replaced by an extreme value (huge, tiny, denormal,
-zero, negative, a huge integer), a key deleted or renamed, a value of the wrong type,
-a value wrapped in deeply nested arrays or tables, a whole table dropped; and random
-TOML-like text.
+zero, negative, a huge integer) or scaled by a plausible factor, a key deleted or renamed,
+a value of the wrong type, a value wrapped in deeply nested arrays or tables, a whole
+table dropped; and random TOML-like text.
 """
 
 from __future__ import annotations
@@ -138,9 +138,17 @@ def mutate(doc: dict[str, Any], rng: random.Random) -> dict[str, Any]:
 
     doc = copy.deepcopy(doc)
     nums = _numbers(doc)
-    kind = rng.choice(("number", "number", "number", "number", "delete", "rename", "type",
-                       "nest", "drop_table", "duplicate"))
-    if kind == "number" and nums:
+    kind = rng.choice(("number", "number", "number", "scale", "scale", "scale", "delete",
+                       "rename", "type", "nest", "drop_table", "duplicate"))
+    if kind == "scale" and nums:
+        # A plausible retune or a wrong unit: the design stays readable more often, so the
+        # analysis itself meets unusual loops (unstable, marginal, slow, fast, long delays).
+        path = rng.choice(nums)
+        parent = _get(doc, path[:-1])
+        factor = rng.choice((-1.0, 1e-6, 1e-3, 0.1, 0.5, 0.9, 1.1, 2.0, 10.0, 1e3, 1e6))
+        parent[path[-1]] = parent[path[-1]] * factor
+        return doc
+    if kind in ("number", "scale") and nums:
         path = rng.choice(nums)
         value = rng.choice(EXTREME_NUMBERS)
         if isinstance(value, float) and rng.random() < 0.3:
