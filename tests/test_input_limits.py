@@ -180,6 +180,19 @@ def test_measurement_file_fifo_and_nul(tmp_path):
     assert info.value.where == "plant.frd.file" and "NUL" in str(info.value)
 
 
+@pytest.mark.parametrize(("row", "column"), [
+    ("1e300,-3,-10", "frequency"), ("10,1e300,-10", "magnitude"), ("10,-3,1e300", "phase")])
+def test_measurement_values_out_of_range(row, column):
+    from loopwarden.design.frd import parse_frd_csv
+
+    rows = [f"{f},-3,-10" for f in (1, 2, 3, 4, 5, 6, 7, 8, 9)]
+    text = "frequency,magnitude,phase\n" + "\n".join(rows) + "\n" + row + "\n"
+    with pytest.raises(DesignError) as info:
+        parse_frd_csv(text, "s.csv", frequency_unit="hz", magnitude_unit="db",
+                      phase_unit="deg")
+    assert info.value.where is not None and f"({column})" in info.value.where
+
+
 def test_nul_byte_in_a_path_is_bad_input(capsys):
     assert main(["review", "de\0sign.toml", "-q"]) == 2
     assert "NUL" in capsys.readouterr().err

@@ -38,7 +38,7 @@ __all__ = [
     "MAX_LOOP_GAIN", "MAX_LOOP_ORDER", "MAX_NUMBER", "MAX_PERIOD_S", "MAX_PERIOD_PHASE",
     "MAX_ROOT_RAD_S", "MAX_ROOT_RANGE", "MAX_STAGES", "MAX_UNSTABLE_PERIOD_PHASE",
     "MAX_VARIANTS", "MIN_NUMBER", "MIN_PERIOD_S", "MIN_ROOT_RAD_S", "Block", "check_gain",
-    "check_loop", "check_roots", "number_range_error",
+    "check_loop", "check_roots", "highest_crossover_bound", "number_range_error",
 ]
 
 MIN_NUMBER = 1e-150

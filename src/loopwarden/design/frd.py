@@ -246,6 +246,12 @@ def _check_row(values: dict[str, list[float]], numbers: list[int], cols: dict[st
     if f[-1] <= 0:
         raise DesignError(f"expected a positive frequency, got {f[-1]:g}", file=file,
                           where=where("frequency"))
+    # The input limits (README "Input limits"): frequencies 1e-8 .. 1e8 (in the file's
+    # unit), |P| within 1e-150 .. 1e150, phases within ±1e6 (degrees or radians).
+    if not 1e-8 <= f[-1] <= 1e8:
+        raise DesignError(f"the frequency {f[-1]:g} lies outside 1e-08 .. 1e+08",
+                          file=file, where=where("frequency"))
+
     if len(f) > 1 and not f[-1] > f[-2]:
         raise DesignError(f"frequencies must increase: {f[-1]:g} follows {f[-2]:g} "
                           f"(line {numbers[-2]})", file=file, where=where("frequency"),
@@ -254,3 +260,10 @@ def _check_row(values: dict[str, list[float]], numbers: list[int], cols: dict[st
         raise DesignError(f"expected a positive magnitude, got {values['magnitude'][-1]:g}",
                           file=file, where=where("magnitude"),
                           hint='magnitudes in dB need magnitude_unit = "db"')
+    m = values["magnitude"][-1]
+    if (abs(m) > 3000.0 if magnitude_unit == "db" else not 1e-150 <= m <= 1e150):
+        raise DesignError(f"the magnitude {m:g} lies outside |P| = 1e-150 .. 1e150 "
+                          f"(±3000 dB)", file=file, where=where("magnitude"))
+    if abs(values["phase"][-1]) > 1e6:
+        raise DesignError(f"the phase {values['phase'][-1]:g} lies outside ±1e6",
+                          file=file, where=where("phase"))
