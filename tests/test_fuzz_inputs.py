@@ -40,8 +40,8 @@ def _review(folder: Path, rng, with_rules: bool) -> tuple[int, str, Path, Path |
     out = folder / "out"
     out.mkdir()
     args = ["review", str(design), "--json", str(out / "r.json"), "--junit",
-            str(out / "r.xml"), "--markdown", str(out / "r.md"), "--quiet",
-            "--date", "2026-06-01"]
+            str(out / "r.xml"), "--markdown", str(out / "r.md"), "--out",
+            str(out / "r.pdf"), "--quiet", "--date", "2026-06-01"]
     rules = None
     if with_rules:
         rules = folder / "rules.toml"
@@ -53,7 +53,7 @@ def _review(folder: Path, rng, with_rules: bool) -> tuple[int, str, Path, Path |
     return code, err.getvalue(), design, rules
 
 
-@settings(max_examples=100, deadline=None, derandomize=True, database=None,
+@settings(max_examples=150, deadline=None, derandomize=True, database=None,
           suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
 @given(rng=st.randoms(use_true_random=False), with_rules=st.booleans())
 def test_malformed_inputs_never_fail_internally(tmp_path_factory, rng, with_rules):
