@@ -301,3 +301,38 @@ def test_batch_timeout_option(tmp_path, capsys):
                  "--timeout", "nan"]) == 2
     assert main(["batch", str(tmp_path / "a.toml"), "--out", str(tmp_path / "o"),
                  "--timeout", "-1"]) == 2
+
+
+def test_a_part_that_returns_nan_is_undecided():
+    # NaN never appears in a result (analysis/results.py): a part that produced one failed
+    # without saying so and is reported like one that raised.
+    import dataclasses as dc
+
+    from loopwarden.analysis import margins as margins_mod
+
+    real = margins_mod.compute_margins
+
+    def nan_margins(loop, w):
+        return dc.replace(real(loop, w), phase_margin_deg=float("nan"))
+
+    d = parse_design(design(), "d.toml")
+    with mock.patch.object(margins_mod, "compute_margins", nan_margins):
+        review = run_review(d, today=DATE)
+    found = {f.check: f for f in review.findings}
+    assert found["phase_margin"].status is Status.ERROR
+    assert "NaN" in found["phase_margin"].message
+    doc = json.loads(renderer("json").render(review))
+    assert doc["variants"][0]["margins"]["phase_margin_deg"] is None
+
+
+def test_monic_ratio_of_a_high_order_model_stays_finite():
+    # Π(x0 − z)/Π(x0 − p) for 400 poles at −1 and x0 = 3 + 0j is 4^−400 = 1.5e−241
+    # [derived]; the plain product of the denominator, 4^400 = 6.7e240, is finite but a
+    # pole set twice as long overflows it.
+    import numpy as np
+
+    from loopwarden.lti import monic_ratio
+
+    poles = -np.ones(800, dtype=complex)
+    zeros = -np.ones(400, dtype=complex)
+    assert monic_ratio(3.0 + 0j, zeros, poles) == pytest.approx(4.0 ** -400, rel=1e-9)

@@ -46,7 +46,7 @@ def analyze_variant(design: Design, variant: PlantVariant, *,
     import dataclasses
 
     from .pole_zero import pole_zero_map
-    from .undecided import NUMERIC_ERRORS
+    from .undecided import NUMERIC_ERRORS, scrub_nan
 
     try:
         try:
@@ -63,7 +63,11 @@ def analyze_variant(design: Design, variant: PlantVariant, *,
         raise DesignError(str(exc), file=design.path, where=variant.where,
                           hint="some block must roll off at high frequency: a strictly "
                                "proper plant, sensor or controller stage") from exc
-    return dataclasses.replace(result, pole_zero=pole_zero)
+    result = dataclasses.replace(result, pole_zero=pole_zero)
+    try:
+        return scrub_nan(result)
+    except NUMERIC_ERRORS as exc:
+        return _failed(design, variant, f"{type(exc).__name__}: {exc}")
 
 
 def _failed(design: Design, variant: PlantVariant, reason: str) -> LoopAnalysis:

@@ -15,9 +15,11 @@ only the ``undecided`` map makes them meaningful.
 
 from __future__ import annotations
 
+import dataclasses
 import math
-from collections.abc import Callable
-from typing import TypeVar
+from collections.abc import Callable, Mapping
+from types import MappingProxyType
+from typing import Any, TypeVar
 
 import numpy as np
 
@@ -25,6 +27,7 @@ from ..errors import AnalysisError, IllPosedLoopError
 from .results import (
     Curves,
     InternalStability,
+    LoopAnalysis,
     Margins,
     Sensitivity,
     Stability,
@@ -33,6 +36,7 @@ from .results import (
 )
 
 __all__ = ["ALL_CHECKS", "NUMERIC_ERRORS", "PART_CHECKS", "Recorder", "empty_curves",
+           "has_nan", "scrub_nan",
            "undecided_internal", "undecided_margins", "undecided_sensitivity",
            "undecided_stability", "undecided_tracking"]
 
@@ -130,3 +134,66 @@ def empty_curves() -> Curves:
     return Curves(frequency_rad_s=empty, open_loop=np.zeros(0, dtype=complex),
                   step=TimeSeries(time_s=empty, value=empty),
                   ramp_error=TimeSeries(time_s=empty, value=empty), improvement={})
+
+
+# --------------------------------------------------------------------------- NaN guard
+def has_nan(x: Any) -> bool:
+    """True when a result object holds a NaN anywhere (floats, complex, arrays, nested)."""
+    if isinstance(x, float):
+        return math.isnan(x)
+    if isinstance(x, complex):
+        return math.isnan(x.real) or math.isnan(x.imag)
+    if isinstance(x, np.ndarray):
+        return bool(x.dtype.kind in "fc" and np.isnan(x).any())
+    if isinstance(x, np.generic):
+        return has_nan(x.item())
+    if dataclasses.is_dataclass(x) and not isinstance(x, type):
+        return any(has_nan(getattr(x, f.name)) for f in dataclasses.fields(x))
+    if isinstance(x, (tuple, list)):
+        return any(has_nan(v) for v in x)
+    if isinstance(x, Mapping):
+        return any(has_nan(v) for v in x.values())
+    return False
+
+
+def scrub_nan(a: LoopAnalysis) -> LoopAnalysis:
+    """``a`` with every part that holds a NaN replaced by its placeholder and undecided.
+
+    NaN never appears in a result (results.py); a part that produced one failed without
+    saying so, and is treated like a part that raised.
+    """
+    rec = Recorder()
+    rec.errors.update(a.errors)
+    rec.undecided.update(a.undecided)
+    why = "the computation gave NaN (not a number)"
+    changes: dict[str, Any] = {}
+    parts: tuple[tuple[str, str, Callable[[str], Any]], ...] = (
+        ("stability", "stability",
+         lambda r: undecided_stability(r, a.stability.domain)),
+        ("internal", "internal_stability", undecided_internal),
+        ("margins", "margins", undecided_margins),
+        ("sensitivity", "sensitivity", undecided_sensitivity),
+        ("tracking", "tracking", undecided_tracking),
+        ("boosts", "boost_band", lambda r: ()),
+        ("sampling", "sampling", lambda r: None),
+    )
+    for name, part, placeholder in parts:
+        if has_nan(getattr(a, name)):
+            rec.errors.pop(part, None)
+            rec.fail(part, why)
+            changes[name] = placeholder(why)
+    for name, part, empty in (("step", "step", None), ("slow_tail", "slow_tail", None),
+                              ("integral_alternatives", "integral_alternative", ()),
+                              ("pole_zero", "pole_zero", None)):
+        if has_nan(getattr(a, name)):
+            rec.errors[part] = why
+            changes[name] = empty
+    if a.curves is not None and has_nan(a.curves):
+        rec.errors["curves"] = why
+        changes["curves"] = empty_curves()
+    if a.coverage is not None and has_nan(a.coverage):
+        raise AnalysisError("the measured-range bookkeeping gave NaN (not a number)")
+    if not changes:
+        return a
+    return dataclasses.replace(a, errors=rec.errors,
+                               undecided=MappingProxyType(dict(rec.undecided)), **changes)
