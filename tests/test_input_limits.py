@@ -120,6 +120,8 @@ def test_delay_against_the_fastest_frequency():
     assert ok.variants[0].delay_s == 2999.0
     err = error_of(design().replace("gain = 1.0 }", "gain = 1.0 }\ndelay = 86400.0"))
     assert err.where == "plant.delay" and f"at most {MAX_DELAY_PHASE_RAD:g} rad" in str(err)
+    err = error_of(design().replace("gain = 1.0 }", "gain = 1.0 }\ndelay = 1e-150"))
+    assert err.where == "plant.delay" and "at least 1e-06 rad" in str(err)
     # A biproper loop whose delayed high-frequency gain is ≥ 1 is a neutral loop.
     err = error_of(design(plant="zpk = { zeros = [-2.0], poles = [-1.0], gain = 3.0 }\n"
                                 "delay = 0.1"))

@@ -17,7 +17,9 @@ for real loops (README.md, "Input limits", lists them with their reasons):
   :data:`MAX_VARIANTS` plant variants (each variant is analysed in full);
 * a transport delay whose phase at the fastest root, delay·ω_max, is at most
   :data:`MAX_DELAY_PHASE_RAD`: the exact delay simulation and the Nyquist count cost time
-  and memory in proportion to it;
+  and memory in proportion to it; and, when nonzero, at least :data:`MIN_DELAY_PHASE_RAD`
+  (a shorter delay acts only decades above the loop, where the margin search would follow
+  its phase through tens of decades);
 * sampled designs: the sample period within [1e-8, 1e8] s, period·ω_max ≤ 1e4 and
   period·Re(p) ≤ 100 for unstable poles (e^(p·T) must stay finite), at most
   :data:`MAX_COMPUTE_DELAY` samples of compute delay and :data:`MAX_DELAY_SAMPLES`
@@ -35,6 +37,7 @@ from ..errors import DesignError
 
 __all__ = [
     "MAX_COMPUTE_DELAY", "MAX_DELAY_PHASE_RAD", "MAX_DELAY_SAMPLES", "MAX_GAIN",
+    "MIN_DELAY_PHASE_RAD",
     "MAX_LOOP_GAIN", "MAX_LOOP_ORDER", "MAX_NUMBER", "MAX_PERIOD_S", "MAX_PERIOD_PHASE",
     "MAX_ROOT_RAD_S", "MAX_ROOT_RANGE", "MAX_STAGES", "MAX_UNSTABLE_PERIOD_PHASE",
     "MAX_VARIANTS", "MIN_NUMBER", "MIN_PERIOD_S", "MIN_ROOT_RAD_S", "Block", "check_gain",
@@ -52,6 +55,7 @@ MAX_LOOP_ORDER = 60
 MAX_STAGES = 32
 MAX_VARIANTS = 8
 MAX_DELAY_PHASE_RAD = 3000.0
+MIN_DELAY_PHASE_RAD = 1e-6
 MIN_PERIOD_S = 1e-8
 MAX_PERIOD_S = 1e8
 MAX_PERIOD_PHASE = 1e4
@@ -178,6 +182,14 @@ def check_loop(blocks: Sequence[Block], *, file: str, variant_where: str, delay_
                 "cannot carry it", file=file, where=variant_where,
                 hint="some block must roll off at high frequency (a strictly proper plant, "
                      "sensor or controller stage)")
+    if (period_s is None and delay_s > 0.0 and w_max is not None
+            and delay_s * w_max < MIN_DELAY_PHASE_RAD):
+        raise DesignError(
+            f"the delay {delay_s:g} s turns the phase by only {delay_s * w_max:.3g} rad at "
+            f"the loop's fastest frequency {w_max * unit_scale:g} {unit}; a nonzero delay "
+            f"must turn it by at least {MIN_DELAY_PHASE_RAD:g} rad", file=file,
+            where=delay_where, hint="write delay = 0 for a delay this short (its only "
+                                    "effect lies decades above the loop's dynamics)")
     if (period_s is None and delay_s > 0.0 and w_max is not None
             and delay_s * w_max > MAX_DELAY_PHASE_RAD):
         raise DesignError(
