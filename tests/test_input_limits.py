@@ -338,3 +338,17 @@ def test_monic_ratio_of_a_high_order_model_stays_finite():
     poles = -np.ones(800, dtype=complex)
     zeros = -np.ones(400, dtype=complex)
     assert monic_ratio(3.0 + 0j, zeros, poles) == pytest.approx(4.0 ** -400, rel=1e-9)
+
+
+def test_pdf_of_a_loop_with_an_infinite_sensitivity_peak(tmp_path):
+    # G = −1/((s − 1)(s + 1)) under a unity gain: L(0) = −1 [derived], so 1 + L vanishes at
+    # ω = 0 and Ms = Mt = ∞; the review (and its plots) must still be written.
+    path = tmp_path / "d.toml"
+    path.write_text(design(plant="zpk = { poles = [1.0, -1.0], gain = 1.0 }"),
+                    encoding="utf-8")
+    code = main(["review", str(path), "-q", "--date", DATE, "--out", str(tmp_path / "r.pdf"),
+                 "--json", str(tmp_path / "r.json")])
+    assert code == 1
+    doc = json.loads((tmp_path / "r.json").read_text(encoding="utf-8"))
+    assert doc["variants"][0]["margins"]["peak_sensitivity"] == "inf"
+    assert (tmp_path / "r.pdf").stat().st_size > 0
