@@ -43,7 +43,7 @@ SLOW_S = 20.0
 BIG_KB = 2 * 1024 * 1024
 
 
-def write_case(i: int, seed: int, folder: Path) -> list[str]:
+def write_case(i: int, seed: int, folder: Path, pdf_fraction: float = 0.1) -> list[str]:
     """Write case ``i`` into ``folder``; return the ``loopwarden`` arguments."""
     rng = random.Random(seed * 1_000_003 + i)
     stem, text = dm.design_case(rng)
@@ -57,7 +57,7 @@ def write_case(i: int, seed: int, folder: Path) -> list[str]:
         rules = folder / "rules.toml"
         rules.write_text(dm.ruleset_case(rng), encoding="utf-8", errors="surrogatepass")
         args += ["--rules", str(rules)]
-    if rng.random() < 0.1:
+    if rng.random() < pdf_fraction:
         args += ["--out", str(folder / "out" / "r.pdf")]
     (folder / "out").mkdir()
     return args
@@ -98,6 +98,8 @@ def main() -> int:
                    help="address-space limit per run (GB): a safety net for the machine")
     p.add_argument("--case", type=int, default=None, help="run only this case, keep it")
     p.add_argument("--start", type=int, default=0)
+    p.add_argument("--pdf", type=float, default=0.1,
+                   help="fraction of the cases that also write the PDF (default 0.1)")
     opts = p.parse_args()
 
     # Import the numerical stack once, before forking (a child starts warm).
@@ -155,7 +157,7 @@ def main() -> int:
             time.sleep(0.02)
         folder = base / f"case-{i}"
         folder.mkdir()
-        args = write_case(i, opts.seed, folder)
+        args = write_case(i, opts.seed, folder, opts.pdf)
         pid = os.fork()
         if pid == 0:
             _child(args, folder, limit)
