@@ -300,6 +300,19 @@ def _time_limit(seconds: float | None) -> Iterator[None]:
         signal.signal(signal.SIGALRM, previous)
 
 
+def _warm_imports() -> None:
+    """Import what a review loads lazily before its clock starts: the timeout then never
+    interrupts an import (which could leave a module half-initialised in this worker)."""
+    import importlib
+
+    for name in ("scipy.interpolate", "loopwarden.analysis.time_response",
+                 "loopwarden.analysis.integral_alternative", "loopwarden.analysis.discrete_loop",
+                 "loopwarden.analysis.measured", "loopwarden.analysis.pole_zero",
+                 "loopwarden.analysis.regression", "loopwarden.report.json_out",
+                 "loopwarden.ruleset.evaluate"):
+        importlib.import_module(name)
+
+
 def review_file(index: int, path: str, output: str, ruleset_path: str, date: str,
                 tool_version: str | None = None, timeout_s: float | None = None
                 ) -> DesignOutcome:
@@ -314,6 +327,8 @@ def review_file(index: int, path: str, output: str, ruleset_path: str, date: str
     from .report.atomic import write_outputs
     from .review_run import run_review
 
+    if timeout_s:
+        _warm_imports()
     try:
         with _time_limit(timeout_s):
             design = load_design(path)
