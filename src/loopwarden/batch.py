@@ -17,13 +17,16 @@ can no longer be read is removed, so the folder never shows stale evidence for i
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import json
 import math
 import multiprocessing
 import os
+import signal
+import threading
 import time
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
 from pathlib import Path
 from typing import IO, Any
@@ -44,6 +47,9 @@ MD_TITLE = "# loopwarden batch summary"
 _REVIEW_SCHEMA = "loopwarden-review/1"      # == report.json_out.SCHEMA (not imported here)
 _WORST = 3                                  # findings named per design in summary.md
 _PER_WORKER = 4                             # fewer designs than this per worker: fewer workers
+#: Wall time allowed per design (s) unless --timeout says otherwise.  Every design the
+#: input limits accept reviews well inside it (bench/fuzz_designs.py measures it).
+DEFAULT_TIMEOUT_S = 120.0
 
 Row = dict[str, Any]
 
@@ -53,8 +59,9 @@ class DesignOutcome:
     """What one design gave: its summary rows, verdict, counts, worst findings or error.
 
     ``verdict`` is ``"pass"``, ``"fail"``, ``"error"`` (bad input: the design file, its
-    limits or waivers, or its review could not be written) or ``"internal"`` (a bug in
-    loopwarden while reviewing it).
+    limits or waivers, an entry that is no regular file, or its review could not be
+    written), ``"timeout"`` (the review took longer than the per-design timeout and was
+    stopped) or ``"internal"`` (a bug in loopwarden while reviewing it).
     """
 
     index: int
@@ -80,10 +87,11 @@ class BatchResult:
 
     @property
     def exit_code(self) -> int:
-        """3 a design hit an internal error, 2 one could not be read, 1 one fails, else 0."""
+        """3 a design hit an internal error, 2 one could not be read or timed out, 1 one
+        fails, else 0."""
         if self.count("internal"):
             return 3
-        if self.count("error"):
+        if self.count("error") or self.count("timeout"):
             return 2
         return 1 if self.count("fail") else 0
 
@@ -108,9 +116,13 @@ def collect_inputs(specs: Sequence[str | os.PathLike[str]]) -> list[Path]:
     seen: set[Path] = set()
     for spec in specs:
         path = Path(spec)
+        if "\0" in str(spec):
+            raise UsageError(f"{str(path)!r} contains a NUL byte", hint="nothing was reviewed")
         if path.is_dir():
-            files = sorted(p for p in path.glob("*.toml") if p.is_file())
-        elif path.is_file():
+            # Every entry named *.toml, also one that is no regular file (a FIFO, a
+            # folder): it gets its own summary row saying why it was skipped, unopened.
+            files = sorted(path.glob("*.toml"))
+        elif path.exists():
             files = [path]
         else:
             raise UsageError(f"{str(path)!r} is neither a design file nor a folder",
@@ -206,17 +218,26 @@ def _rows(review: Any, file: str) -> tuple[Row, ...]:
         mine = [f for f in review.findings if f.variant == a.variant]
         n_fail = sum(f.status.blocks for f in mine)
         step = a.step
+
+        def known(check: str, value: Any, a: Any = a) -> Any:
+            # A figure the analysis could not decide (a placeholder) is left empty.
+            return None if check in a.undecided else value
+
         rows.append({
             "design": review.design.name, "file": file, "variant": a.variant,
             "verdict": "fail" if n_fail else "pass",
-            "closed_loop_stable": a.stability.closed_loop_stable,
-            "gain_margin_db": _number(a.margins.gain_margin_db),
-            "phase_margin_deg": _number(a.margins.phase_margin_deg),
-            "delay_margin_s": _number(a.margins.delay_margin_s),
-            "peak_sensitivity": _number(a.sensitivity.peak_sensitivity),
-            "peak_complementary": _number(a.sensitivity.peak_complementary),
-            "disk_margin": _number(a.sensitivity.disk_margin),
-            "system_type": a.tracking.system_type, "kv": _number(a.tracking.kv),
+            "closed_loop_stable": known("closed_loop_stability",
+                                        a.stability.closed_loop_stable),
+            "gain_margin_db": known("gain_margin", _number(a.margins.gain_margin_db)),
+            "phase_margin_deg": known("phase_margin", _number(a.margins.phase_margin_deg)),
+            "delay_margin_s": known("delay_margin", _number(a.margins.delay_margin_s)),
+            "peak_sensitivity": known("peak_sensitivity",
+                                      _number(a.sensitivity.peak_sensitivity)),
+            "peak_complementary": known("peak_complementary",
+                                        _number(a.sensitivity.peak_complementary)),
+            "disk_margin": known("disk_margin", _number(a.sensitivity.disk_margin)),
+            "system_type": known("system_type", a.tracking.system_type),
+            "kv": known("error_constant", _number(a.tracking.kv)),
             "overshoot_pct": None if step is None else _number(step.overshoot_pct),
             "settling_time_s": None if step is None else _number(step.settling_time_s),
             "n_fail": n_fail, "n_warn": sum(f.status.value == "warn" for f in mine),
@@ -249,23 +270,82 @@ def _error_row(path: str, message: str, verdict: str) -> Row:
     return row
 
 
+class DesignTimeout(BaseException):
+    """Raised inside a review when its per-design time is up (see :func:`_time_limit`).
+
+    A BaseException, so that no handler of a single check or part swallows it.
+    """
+
+
+@contextlib.contextmanager
+def _time_limit(seconds: float | None) -> Iterator[None]:
+    """Raise :class:`DesignTimeout` in this thread after ``seconds`` of wall time.
+
+    Uses the real-time interval timer (SIGALRM), so it works in the main thread of a
+    process (a batch worker, or the batch itself with one worker) on POSIX systems;
+    elsewhere the review runs without a limit.  The timer interrupts Python code; a single
+    numerical library call finishes first (the input limits keep each one short).
+    """
+    usable = (seconds is not None and seconds > 0 and hasattr(signal, "setitimer")
+              and threading.current_thread() is threading.main_thread())
+    if not usable:
+        yield
+        return
+
+    def expire(signum: int, frame: Any) -> None:
+        raise DesignTimeout()
+
+    previous = signal.signal(signal.SIGALRM, expire)
+    signal.setitimer(signal.ITIMER_REAL, float(seconds))  # type: ignore[arg-type]
+    try:
+        yield
+    finally:
+        signal.setitimer(signal.ITIMER_REAL, 0.0)
+        signal.signal(signal.SIGALRM, previous)
+
+
+def _warm_imports() -> None:
+    """Import what a review loads lazily before its clock starts: the timeout then never
+    interrupts an import (which could leave a module half-initialised in this worker)."""
+    import importlib
+
+    for name in ("scipy.interpolate", "loopwarden.analysis.time_response",
+                 "loopwarden.analysis.integral_alternative", "loopwarden.analysis.discrete_loop",
+                 "loopwarden.analysis.measured", "loopwarden.analysis.pole_zero",
+                 "loopwarden.analysis.regression", "loopwarden.report.json_out",
+                 "loopwarden.ruleset.evaluate"):
+        importlib.import_module(name)
+
+
 def review_file(index: int, path: str, output: str, ruleset_path: str, date: str,
-                tool_version: str | None = None) -> DesignOutcome:
+                tool_version: str | None = None, timeout_s: float | None = None
+                ) -> DesignOutcome:
     """Review one design file and write its JSON review to ``output``.
 
-    Never raises for the design's own problems: bad input gives ``error``, a bug
-    ``internal``, each with the message in the outcome (and its summary row).
+    Never raises for the design's own problems: bad input gives ``error``, a review
+    longer than ``timeout_s`` seconds ``timeout``, a bug ``internal``, each with the
+    message in the outcome (and its summary row).
     """
     from .design.loader import load_design
     from .report import renderer
     from .report.atomic import write_outputs
     from .review_run import run_review
 
+    if timeout_s:
+        _warm_imports()
     try:
-        design = load_design(path)
-        review = run_review(design, _ruleset(ruleset_path), today=date,
-                            tool_version=tool_version)
-        write_outputs({Path(output): renderer("json").render(review)}, inputs=[Path(path)])
+        with _time_limit(timeout_s):
+            design = load_design(path)
+            review = run_review(design, _ruleset(ruleset_path), today=date,
+                                tool_version=tool_version)
+            evidence = renderer("json").render(review)
+        write_outputs({Path(output): evidence}, inputs=[Path(path)])
+    except DesignTimeout:
+        msg = (f"skipped: the review took longer than {timeout_s:g} s (--timeout) and was "
+               "stopped")
+        return DesignOutcome(index=index, path=path, output=output, design=None,
+                             verdict="timeout", error=msg,
+                             rows=(_error_row(path, msg, "timeout"),))
     except UserError as exc:
         msg = str(exc)
         return DesignOutcome(index=index, path=path, output=output, design=None,
@@ -285,9 +365,11 @@ def review_file(index: int, path: str, output: str, ruleset_path: str, date: str
 
 
 def review_chunk(tasks: Sequence[tuple[int, str, str]], ruleset_path: str, date: str,
-                 tool_version: str | None) -> list[DesignOutcome]:
+                 tool_version: str | None, timeout_s: float | None = None
+                 ) -> list[DesignOutcome]:
     """Worker entry point (module level, so the ``spawn`` start method can pickle it)."""
-    return [review_file(i, p, o, ruleset_path, date, tool_version) for i, p, o in tasks]
+    return [review_file(i, p, o, ruleset_path, date, tool_version, timeout_s)
+            for i, p, o in tasks]
 
 
 # --------------------------------------------------------------------------- progress
@@ -305,7 +387,7 @@ class Progress:
     def update(self, outcome: DesignOutcome) -> None:
         self.done += 1
         self.failed += outcome.verdict == "fail"
-        self.not_reviewed += outcome.verdict in ("error", "internal")
+        self.not_reviewed += outcome.verdict in ("error", "internal", "timeout")
         if self.stream is None:
             return
         if not self.bar:
@@ -355,8 +437,8 @@ def _in_parallel(tasks: list[tuple[int, str, str]], jobs: int, args: tuple[Any, 
 
 def run_batch(inputs: Sequence[Path], out_dir: Path, *, ruleset: str | None = None,
               jobs: int | None = None, date: str | None = None,
-              progress: IO[str] | None = None, tool_version: str | None = None
-              ) -> BatchResult:
+              progress: IO[str] | None = None, tool_version: str | None = None,
+              timeout_s: float | None = DEFAULT_TIMEOUT_S) -> BatchResult:
     """Review every design of ``inputs`` into ``out_dir``; write the two summaries.
 
     Parameters
@@ -374,6 +456,9 @@ def run_batch(inputs: Sequence[Path], out_dir: Path, *, ruleset: str | None = No
         Review date (YYYY-MM-DD); default as :func:`loopwarden.review_run.review_date`.
     progress : text stream, optional
         Where progress goes (a bar when it is a terminal); None for none.
+    timeout_s : float, optional
+        Wall time allowed per design (default :data:`DEFAULT_TIMEOUT_S`); a review that
+        takes longer is stopped and gets a ``timeout`` row.  None or 0: no limit.
 
     Raises
     ------
@@ -402,7 +487,7 @@ def run_batch(inputs: Sequence[Path], out_dir: Path, *, ruleset: str | None = No
     tasks = [(i, str(p), str(out_dir / n)) for i, (p, n) in enumerate(zip(inputs, names,
                                                                           strict=True))]
     bar = Progress(len(tasks), progress)
-    args = (rs.path, day, tool_version)
+    args = (rs.path, day, tool_version, timeout_s)
     # Starting a worker (a fresh interpreter importing numpy and scipy) costs about as
     # much as a few small reviews: give each worker at least a few designs.
     workers = min(jobs, math.ceil(len(tasks) / _PER_WORKER))
@@ -451,7 +536,7 @@ def summary_md(result: BatchResult, ruleset: Any, date: str, tool_version: str) 
     from .report.escape import for_markdown
 
     n = len(result.outcomes)
-    not_read = result.count("error") + result.count("internal")
+    not_read = result.count("error") + result.count("internal") + result.count("timeout")
     lines = [
         MD_TITLE, "",
         f"**{n} design{'s' if n != 1 else ''}: {result.count('pass')} pass, "
@@ -466,7 +551,7 @@ def summary_md(result: BatchResult, ruleset: Any, date: str, tool_version: str) 
     ]
     for o in result.outcomes:
         review = "" if o.error is not None else _md_code(Path(o.output).name)
-        verdict = {"pass": "pass", "fail": "FAIL", "error": "ERROR",
+        verdict = {"pass": "pass", "fail": "FAIL", "error": "ERROR", "timeout": "TIMEOUT",
                    "internal": "INTERNAL ERROR"}[o.verdict]
         worst = o.error if o.error is not None else "; ".join(o.worst) or "none"
         # names and messages come from the design files: escaped (no raw HTML or markup)

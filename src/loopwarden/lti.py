@@ -102,7 +102,7 @@ class Zpk:
         roots = np.concatenate([poles, zeros])
         s0 = 1j * (1.0 + 2.0 * (np.max(np.abs(roots)) if roots.size else 1.0)) + 0.37
         h = (C @ np.linalg.solve(s0 * np.eye(n) - A, B))[0, 0] + D
-        monic = np.prod(s0 - zeros) / np.prod(s0 - poles)
+        monic = monic_ratio(s0, zeros, poles)
         if h == 0:
             return cls(np.empty(0), poles, 0.0, label)
         gain = (h / monic).real
@@ -220,6 +220,16 @@ class Zpk:
             a, b, c, d = _section_ss(num, den)
             A, B, C, D = _series(A, B, C, D, a, b, c, d)
         return A, B, C, D
+
+
+def monic_ratio(x0: complex, zeros: ComplexArray, poles: ComplexArray) -> complex:
+    """``Π(x0 − z) / Π(x0 − p)``; summed in logarithms when the plain products overflow or
+    underflow (high-order models), so the result stays finite whenever it is."""
+    with np.errstate(all="ignore"):
+        ratio = np.prod(x0 - zeros) / np.prod(x0 - poles)
+        if np.isfinite(ratio) and ratio != 0:
+            return complex(ratio)
+        return complex(np.exp(np.sum(np.log(x0 - zeros)) - np.sum(np.log(x0 - poles))))
 
 
 def _factor_angle(jw: ComplexArray, root: complex) -> FloatArray:

@@ -26,7 +26,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import linalg
 
-from .lti import ComplexArray, FloatArray, Zpk, _series
+from .lti import ComplexArray, FloatArray, Zpk, _series, monic_ratio
 
 __all__ = [
     "DISCRETISATION_METHODS",
@@ -288,7 +288,7 @@ def zpk_from_discrete_ss(a: Matrix, b: Matrix, c: Matrix, d: float,
     h = (c @ np.linalg.solve(z0 * np.eye(n) - a, b))[0, 0] + d
     if h == 0:
         return Zpk(np.empty(0), p, 0.0, label)
-    monic = np.prod(z0 - zeros) / np.prod(z0 - p)
+    monic = monic_ratio(z0, zeros, p)
     return Zpk(zeros, p, float((h / monic).real), label)
 
 

@@ -10,7 +10,7 @@ from __future__ import annotations
 from collections.abc import Callable, Sequence
 from typing import TYPE_CHECKING, TypeVar
 
-from ..errors import AnalysisError, DesignError, IllPosedLoopError
+from ..errors import DesignError, IllPosedLoopError
 
 if TYPE_CHECKING:  # pragma: no cover - the numerical stack loads only when analysing
     from ..design.model import Design, PlantVariant
@@ -24,9 +24,13 @@ DEFAULT_SETTLING_BAND = 0.02
 
 
 def _attempt(errors: dict[str, str], part: str, fn: Callable[[], T]) -> T | None:
+    from .undecided import NUMERIC_ERRORS
+
     try:
         return fn()
-    except (AnalysisError, ArithmeticError, ValueError, RuntimeError) as exc:
+    except IllPosedLoopError:
+        raise
+    except NUMERIC_ERRORS as exc:
         errors[part] = f"{type(exc).__name__}: {exc}"
         return None
 
@@ -43,15 +47,54 @@ def analyze_variant(design: Design, variant: PlantVariant, *,
     import dataclasses
 
     from .pole_zero import pole_zero_map
+    from .undecided import NUMERIC_ERRORS, scrub_nan
 
     try:
-        result = _analyze_loop(design, variant, min_phase_margin_deg=min_phase_margin_deg,
-                               settling_band=settling_band)
+        try:
+            result = _analyze_loop(design, variant, min_phase_margin_deg=min_phase_margin_deg,
+                                   settling_band=settling_band)
+        except IllPosedLoopError:
+            raise
+        except NUMERIC_ERRORS as exc:
+            # The loop itself could not be formed (e.g. sampling it): nothing is decided.
+            result = _failed(design, variant, f"{type(exc).__name__}: {exc}")
+        pole_zero = _attempt(result.errors, "pole_zero",
+                             lambda: pole_zero_map(design, variant))
     except IllPosedLoopError as exc:
         raise DesignError(str(exc), file=design.path, where=variant.where,
                           hint="some block must roll off at high frequency: a strictly "
                                "proper plant, sensor or controller stage") from exc
-    return dataclasses.replace(result, pole_zero=pole_zero_map(design, variant))
+    result = dataclasses.replace(result, pole_zero=pole_zero)
+    try:
+        return scrub_nan(result)
+    except NUMERIC_ERRORS as exc:
+        return _failed(design, variant, f"{type(exc).__name__}: {exc}")
+
+
+def _failed(design: Design, variant: PlantVariant, reason: str) -> LoopAnalysis:
+    """The analysis of a loop that could not be formed: every check undecided."""
+    from types import MappingProxyType
+
+    from .results import LoopAnalysis
+    from .undecided import (
+        ALL_CHECKS,
+        empty_curves,
+        undecided_internal,
+        undecided_margins,
+        undecided_sensitivity,
+        undecided_stability,
+        undecided_tracking,
+    )
+
+    why = f"the loop could not be analysed: {reason}"
+    return LoopAnalysis(
+        variant=variant.name,
+        stability=undecided_stability(reason, "z" if design.sampling is not None else "s"),
+        internal=undecided_internal(reason), margins=undecided_margins(),
+        sensitivity=undecided_sensitivity(), tracking=undecided_tracking(), step=None,
+        slow_tail=None, boosts=(), integral_alternatives=(), curves=empty_curves(),
+        errors={"loop": reason, "step": why}, undecided=MappingProxyType(
+            dict.fromkeys(ALL_CHECKS, why)))
 
 
 def _analyze_loop(design: Design, variant: PlantVariant, *,
@@ -93,8 +136,21 @@ def _analyze_loop(design: Design, variant: PlantVariant, *,
         from .measured import analyze_measured
 
         return analyze_measured(design, variant)
+    from types import MappingProxyType
+
+    from .undecided import (
+        Recorder,
+        empty_curves,
+        undecided_internal,
+        undecided_margins,
+        undecided_sensitivity,
+        undecided_stability,
+        undecided_tracking,
+    )
+
     loop = design.continuous_loop(variant)
-    errors: dict[str, str] = {}
+    rec = Recorder()
+    errors = rec.errors
 
     blocks = [(st.name, st.model) for st in design.controller]
     blocks.append(("plant" if variant.name == "nominal" else f"plant ({variant.name})",
@@ -102,18 +158,26 @@ def _analyze_loop(design: Design, variant: PlantVariant, *,
     if design.sensor is not None:
         blocks.append(("sensor", design.sensor))
 
-    stab = stability.closed_loop_stability(loop)
-    intern = internal.internal_stability(blocks)
-    w = frequency_grid.loop_grid(loop)          # one analysis grid for both
-    marg = margins.compute_margins(loop, w)
-    if not stab.closed_loop_stable and not stab.marginal and stab.certified:
-        marg = _stabilising(loop, marg)
-    sens = sensitivity.compute_sensitivity(loop, w)
-    track = tracking.compute_tracking(loop)
+    stab = rec.run("stability", lambda: stability.closed_loop_stability(loop),
+                   undecided_stability)
+    intern = rec.run("internal_stability", lambda: internal.internal_stability(blocks),
+                     undecided_internal)
+    w = rec.run("frequency_grid", lambda: frequency_grid.loop_grid(loop), lambda r: None)
+    if w is not None:                           # one analysis grid for both
+        marg = rec.run("margins", lambda: margins.compute_margins(loop, w), undecided_margins)
+        if not stab.closed_loop_stable and not stab.marginal and stab.certified:
+            marg = _attempt(errors, "stabilising_gain", lambda: _stabilising(loop, marg)) or marg
+        sens = rec.run("sensitivity", lambda: sensitivity.compute_sensitivity(loop, w),
+                       undecided_sensitivity)
+    else:
+        marg, sens = undecided_margins(), undecided_sensitivity()
+    track = rec.run("tracking", lambda: tracking.compute_tracking(loop), undecided_tracking)
 
     step_result = None
     if stab.closed_loop_stable:
         step_result = _attempt(errors, "step", lambda: time_response.step_response(loop, band))
+    elif "stability" in errors:
+        errors["step"] = "closed-loop stability could not be decided: no step response"
     else:
         errors["step"] = "closed loop is unstable: no settled step response"
     step = step_result.metrics if step_result else None
@@ -123,25 +187,32 @@ def _analyze_loop(design: Design, variant: PlantVariant, *,
         tail = _attempt(errors, "slow_tail", lambda: slow_pairs.slow_tail(
             loop, step_result, band, roots=np.asarray(stab.closed_loop_poles, dtype=complex)))
 
-    boosts = boost_band.find_boosts(loop, design.controller, marg,
-                                    design.requirements.reference_band_rad_s)
+    boosts = rec.run("boost_band", lambda: boost_band.find_boosts(
+        loop, design.controller, marg, design.requirements.reference_band_rad_s),
+        lambda r: ())
     # The integral alternative is one controller for the whole design: see analyze().
     alternatives: tuple = ()
 
-    grid = margins.plot_grid(loop)
-    curves = Curves(
-        frequency_rad_s=grid,
-        open_loop=loop.open_loop(grid),
-        step=step_result.step if step_result else TimeSeries(time_s=_empty(), value=_empty()),
-        ramp_error=(step_result.ramp_error if step_result
-                    else TimeSeries(time_s=_empty(), value=_empty())),
-        improvement={b.stage: boost_band.improvement(loop, design.controller, b.stage, grid)
-                     for b in boosts},
-    )
+    def curves_now() -> Curves:
+        grid = margins.plot_grid(loop)
+        return Curves(
+            frequency_rad_s=grid,
+            open_loop=loop.open_loop(grid),
+            step=step_result.step if step_result else TimeSeries(time_s=_empty(),
+                                                                 value=_empty()),
+            ramp_error=(step_result.ramp_error if step_result
+                        else TimeSeries(time_s=_empty(), value=_empty())),
+            improvement={b.stage: boost_band.improvement(loop, design.controller, b.stage,
+                                                         grid)
+                         for b in boosts},
+        )
+
+    curves = _attempt(errors, "curves", curves_now) or empty_curves()
     return LoopAnalysis(
         variant=variant.name, stability=stab, internal=intern, margins=marg,
         sensitivity=sens, tracking=track, step=step, slow_tail=tail, boosts=boosts,
         integral_alternatives=alternatives, curves=curves, errors=errors,
+        undecided=MappingProxyType(dict(rec.undecided)),
     )
 
 

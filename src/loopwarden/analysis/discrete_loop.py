@@ -15,7 +15,6 @@ from types import MappingProxyType
 import numpy as np
 
 from ..design.model import Design, PlantVariant
-from ..errors import AnalysisError
 from ..lti import Zpk
 from ..lti_discrete import DiscreteLoop
 from .boost_band import find_boosts, improvement
@@ -33,6 +32,16 @@ from .discrete_response import (
 )
 from .results import Curves, LoopAnalysis, Margins, SampledInfo, TimeSeries
 from .slow_pairs import slow_tail
+from .undecided import (
+    NUMERIC_ERRORS,
+    Recorder,
+    empty_curves,
+    undecided_internal,
+    undecided_margins,
+    undecided_sensitivity,
+    undecided_stability,
+    undecided_tracking,
+)
 
 __all__ = ["INTER_SAMPLE_NOTE", "NOT_IN_Z", "analyze_sampled", "sampled_info"]
 
@@ -96,21 +105,32 @@ def _empty() -> np.ndarray:
 def analyze_sampled(design: Design, variant: PlantVariant, band: float) -> LoopAnalysis:
     """Analyse the sampled loop of ``design`` around ``variant`` (settling ``band``)."""
     loop = design.sampled_loop(variant)
-    errors: dict[str, str] = {}
-    stab = discrete_stability(loop)
-    intern = discrete_internal_stability(_blocks(design, loop))
-    marg = compute_discrete_margins(loop)
+    rec = Recorder()
+    errors = rec.errors
+    stab = rec.run("stability", lambda: discrete_stability(loop),
+                   lambda r: undecided_stability(r, "z"))
+    intern = rec.run("internal_stability",
+                     lambda: discrete_internal_stability(_blocks(design, loop)),
+                     undecided_internal)
+    marg = rec.run("margins", lambda: compute_discrete_margins(loop), undecided_margins)
     if not stab.closed_loop_stable and not stab.marginal and stab.certified:
-        marg = _stabilising(loop, marg)
-    sens = compute_discrete_sensitivity(loop)
-    track = discrete_tracking(loop)
-    info = sampled_info(design, variant, loop)
+        try:
+            marg = _stabilising(loop, marg)
+        except NUMERIC_ERRORS as exc:
+            errors["stabilising_gain"] = f"{type(exc).__name__}: {exc}"
+    sens = rec.run("sensitivity", lambda: compute_discrete_sensitivity(loop),
+                   undecided_sensitivity)
+    track = rec.run("tracking", lambda: discrete_tracking(loop), undecided_tracking)
+    info = rec.run("sampling", lambda: sampled_info(design, variant, loop), lambda r: None)
     step_result = None
     if stab.closed_loop_stable:
         try:
-            step_result = discrete_step_response(loop, band)
-        except (AnalysisError, ArithmeticError, ValueError) as exc:
+            with np.errstate(all="ignore"):
+                step_result = discrete_step_response(loop, band)
+        except NUMERIC_ERRORS as exc:
             errors["step"] = f"{type(exc).__name__}: {exc}"
+    elif "stability" in errors:
+        errors["step"] = "closed-loop stability could not be decided: no step response"
     else:
         errors["step"] = "closed loop is unstable: no settled step response"
     tail = None
@@ -118,27 +138,38 @@ def analyze_sampled(design: Design, variant: PlantVariant, band: float) -> LoopA
         try:
             tail = slow_tail(loop, step_result, band,
                              roots=np.asarray(stab.closed_loop_poles, dtype=complex))
-        except (AnalysisError, ArithmeticError, ValueError) as exc:
+        except NUMERIC_ERRORS as exc:
             errors["slow_tail"] = f"{type(exc).__name__}: {exc}"
-    phi = unit_circle_grid(loop.rational, points_per_decade=60, uniform=400)
-    if phi.size > 2000:
-        phi = phi[np.unique(np.linspace(0, phi.size - 1, 2000).round().astype(int))]
-    grid = phi / loop.period_s
     # Boost stages on the unit circle (the integral alternative is added per design).
-    boosts = find_boosts(loop, design.controller, marg,
-                         design.requirements.reference_band_rad_s, design.sampling)
-    empty = TimeSeries(time_s=_empty(), value=_empty())
-    curves = Curves(
-        frequency_rad_s=grid, open_loop=loop.open_loop(grid),
-        step=step_result.step if step_result else empty,
-        ramp_error=step_result.ramp_error if step_result else empty,
-        improvement={b.stage: improvement(loop, design.controller, b.stage, grid,
-                                          design.sampling) for b in boosts},
-    )
+    boosts = rec.run("boost_band", lambda: find_boosts(
+        loop, design.controller, marg, design.requirements.reference_band_rad_s,
+        design.sampling), lambda r: ())
+
+    def curves_now() -> Curves:
+        phi = unit_circle_grid(loop.rational, points_per_decade=60, uniform=400)
+        if phi.size > 2000:
+            phi = phi[np.unique(np.linspace(0, phi.size - 1, 2000).round().astype(int))]
+        grid = phi / loop.period_s
+        empty = TimeSeries(time_s=_empty(), value=_empty())
+        return Curves(
+            frequency_rad_s=grid, open_loop=loop.open_loop(grid),
+            step=step_result.step if step_result else empty,
+            ramp_error=step_result.ramp_error if step_result else empty,
+            improvement={b.stage: improvement(loop, design.controller, b.stage, grid,
+                                              design.sampling) for b in boosts},
+        )
+
+    try:
+        with np.errstate(all="ignore"):
+            curves = curves_now()
+    except NUMERIC_ERRORS as exc:
+        errors["curves"] = f"{type(exc).__name__}: {exc}"
+        curves = empty_curves()
     return LoopAnalysis(
         variant=variant.name, stability=stab, internal=intern, margins=marg,
         sensitivity=sens, tracking=track,
         step=step_result.metrics if step_result else None, slow_tail=tail, boosts=boosts,
         integral_alternatives=(), curves=curves, errors=errors, sampling=info,
         not_applicable=MappingProxyType(dict(NOT_IN_Z)),
+        undecided=MappingProxyType(dict(rec.undecided)),
     )

@@ -103,6 +103,10 @@ def missing_figures(a: LoopAnalysis) -> frozenset[str]:
     if a.coverage is not None:
         for check in a.coverage.uncovered:
             out.update(UNDECIDED_FIGURES.get(check, ()))
+    for check in a.undecided:
+        out.update(UNDECIDED_FIGURES.get(check, ()))
+    if "closed_loop_stability" in a.undecided or "step_settling" in a.undecided:
+        out.update(("overshoot_pct", "settling_time_s", "rise_time_s", "tail_time_s"))
     return frozenset(out)
 
 

@@ -356,3 +356,6 @@ class LoopAnalysis:
     not_applicable: Mapping[str, str] = field(     # check name → why it does not apply here
         default_factory=lambda: MappingProxyType({}))
     pole_zero: PoleZeroMap | None = None           # None: measured plant (no model)
+    # Check name → why the analysis could not decide it (a part failed numerically; its
+    # result is a placeholder, see analysis/undecided.py): those checks report ``error``.
+    undecided: Mapping[str, str] = field(default_factory=lambda: MappingProxyType({}))

@@ -30,8 +30,13 @@ written. Delete or move such files, or choose another folder.
 progress: a bar on stderr when it is a terminal, one line per design otherwise, nothing
 with --quiet.
 
-exit status: 0 every design passes, 1 a design fails, 2 a design could not be read (the
-others are still reviewed) or bad arguments, 3 internal error.
+time: each design may take --timeout seconds (default 120); a review that takes longer is
+stopped and its row in summary.csv / summary.md says so (verdict timeout). An entry that
+is no regular file (a FIFO, a device, a folder named *.toml) is skipped unopened with an
+error row. The other designs go on either way.
+
+exit status: 0 every design passes, 1 a design fails, 2 a design could not be read or
+timed out (the others are still reviewed) or bad arguments, 3 internal error.
 """
 
 
@@ -43,6 +48,17 @@ def _jobs(text: str) -> int:
     if n < 1:
         raise argparse.ArgumentTypeError(f"need at least 1 worker, got {n}")
     return n
+
+
+def _seconds(text: str) -> float:
+    try:
+        x = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected seconds, got {text!r}") from None
+    if not x >= 0 or x == float("inf"):
+        raise argparse.ArgumentTypeError(f"expected a finite number of seconds ≥ 0, got "
+                                         f"{text!r}")
+    return x
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -59,6 +75,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="shipped rule set name or a rule-set file; default general")
     parser.add_argument("--date", metavar="YYYY-MM-DD",
                         help="review date (default SOURCE_DATE_EPOCH or today, UTC)")
+    parser.add_argument("--timeout", metavar="SECONDS", type=_seconds, default=120.0,
+                        help="stop a design's review after this many seconds and record it "
+                             "as timed out (default 120; 0: no limit)")
     parser.add_argument("--quiet", "-q", action="store_true",
                         help="no progress and no summary; only the exit status tells")
 
@@ -70,14 +89,16 @@ def run(args: argparse.Namespace) -> int:
     out = Path(args.out)
     try:
         result = run_batch(inputs, out, ruleset=args.rules, jobs=args.jobs, date=args.date,
-                           progress=None if args.quiet else sys.stderr)
+                           progress=None if args.quiet else sys.stderr,
+                           timeout_s=args.timeout or None)
     except KeyboardInterrupt:
         # Reviews finished so far are in place; the summaries are not written.
         print(f"loopwarden: batch interrupted; no summary written in {out}", file=sys.stderr)
         return 130
     if not args.quiet:
         n = len(result.outcomes)
-        not_read = result.count("error") + result.count("internal")
+        not_read = (result.count("error") + result.count("internal")
+                    + result.count("timeout"))
         print(f"batch: {n} design{'s' if n != 1 else ''} in {result.seconds:.1f} s: "
               f"{result.count('pass')} pass, {result.count('fail')} fail, {not_read} could "
               f"not be reviewed")

@@ -26,7 +26,7 @@ Positions inside arrays are 1-based in messages (``plant.zpk.poles[2]``), like
 from __future__ import annotations
 
 import math
-from collections.abc import Iterable, Mapping
+from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass
 from typing import Any
 
@@ -34,6 +34,13 @@ import numpy as np
 
 from ..errors import DesignError, did_you_mean
 from ..lti import Zpk
+from .bounds import (
+    MAX_ROOT_RAD_S,
+    MIN_ROOT_RAD_S,
+    check_gain,
+    check_roots,
+    number_range_error,
+)
 
 TWO_PI = 2.0 * math.pi
 
@@ -163,7 +170,14 @@ class Table:
         if key not in self.data and default is not _MISSING:
             return default
         value = self.number(key, above=0.0, unit=self.unit)
-        return value * TWO_PI if self.hz else value
+        w = value * TWO_PI if self.hz else value
+        if not MIN_ROOT_RAD_S <= w <= MAX_ROOT_RAD_S:
+            scale = 1.0 / TWO_PI if self.hz else 1.0
+            raise self.error(key, f"expected a frequency within {MIN_ROOT_RAD_S * scale:g} .. "
+                             f"{MAX_ROOT_RAD_S * scale:g} {self.unit}, got {value:g} "
+                             f"{self.unit}", "README.md lists the ranges the analysis can "
+                                             "carry")
+        return w
 
     def integer(self, key: str, *, choices: tuple[int, ...], default: int) -> int:
         if key not in self.data:
@@ -214,10 +228,17 @@ def check_number(value: Any, file: str, where: str) -> float:
                           hint="write numbers without quotes")
     if not isinstance(value, (int, float)):
         raise DesignError(f"expected a number, got {_kind(value)}", file=file, where=where)
-    out = float(value)
+    try:
+        out = float(value)
+    except OverflowError:               # an integer beyond any float
+        out = math.inf
     if not math.isfinite(out):
         raise DesignError(f"expected a finite number, got {value!r}", file=file, where=where,
                           hint="inf and nan are valid TOML but not valid model data")
+    why = number_range_error(out)
+    if why is not None:
+        raise DesignError(why, file=file, where=where,
+                          hint="README.md lists the ranges the analysis can carry")
     return out
 
 
@@ -251,6 +272,8 @@ def read_roots(t: Table, key: str) -> list[complex]:
             out.extend([complex(re, im) * scale, complex(re, -im) * scale])
         else:
             out.append(complex(check_number(item, t.file, where)) * scale)
+        check_roots(out[-1:], file=t.file, where=where, what="a root",
+                    unit_scale=1.0 / scale, unit=t.unit)
     return out
 
 
@@ -298,7 +321,21 @@ def _tf(t: Table) -> Zpk:
     if num.size > den.size:
         raise t.error(None, f"improper: numerator degree {num.size - 1} exceeds denominator "
                       f"degree {den.size - 1}", "a physical block must be proper")
-    return Zpk.from_tf(num, den)
+    model = _factored(t, "den", lambda: Zpk.from_tf(num, den))
+    check_roots(model.poles, file=t.file, where=t.at("den"), what="a pole")
+    check_roots(model.zeros, file=t.file, where=t.at("num"), what="a zero")
+    check_gain(model.gain, file=t.file, where=t.at("num"))
+    return model
+
+
+def _factored(t: Table, key: str, build: Callable[[], Zpk]) -> Zpk:
+    """``build()``, with a numerical failure to factor reported at ``key``."""
+    try:
+        with np.errstate(all="ignore"):
+            return build()
+    except (ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:
+        raise t.error(key, f"cannot factor the model ({exc})",
+                      "the coefficients are too large or too badly scaled") from None
 
 
 def _zpk(t: Table) -> Zpk:
@@ -310,6 +347,7 @@ def _zpk(t: Table) -> Zpk:
         raise t.error(None, f"improper: {_count(len(zeros), 'zero')} but only "
                       f"{_count(len(poles), 'pole')}, a complex pair counting twice",
                       "a physical block must be proper")
+    check_gain(gain, file=t.file, where=t.at("gain"))
     return Zpk(np.array(zeros, dtype=complex), np.array(poles, dtype=complex), gain)
 
 
@@ -339,10 +377,13 @@ def _ss(t: Table) -> Zpk:
         d = float(d_mat[0, 0])
     else:
         d = t.number("d")
-    model = Zpk.from_ss(a, b, c, d)
+    model = _factored(t, "a", lambda: Zpk.from_ss(a, b, c, d))
     if model.gain == 0:
         raise t.error(None, "the state-space model has a zero transfer function",
                       "check b and c: the input does not reach the output")
+    check_roots(model.poles, file=t.file, where=t.at("a"), what="a pole")
+    check_roots(model.zeros, file=t.file, where=t.at("a"), what="a zero")
+    check_gain(model.gain, file=t.file, where=t.at("c"))
     return model
 
 

@@ -34,6 +34,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from ..errors import DesignError
+from ..input_files import read_input
 from ..lti import ComplexArray, FloatArray
 from .forms import TWO_PI, Table
 
@@ -125,6 +126,9 @@ def _unit(t: Table, key: str, choices: tuple[str, ...], default: str | None = No
 
 def _confined(design_path: str, written: str, t: Table) -> Path:
     """The CSV path, resolved, refused when it leaves the design file's folder tree."""
+    if "\0" in written:
+        raise t.error("file", "the measurement file name contains a NUL byte",
+                      "a file name cannot contain NUL")
     base = Path(design_path).resolve().parent
     candidate = Path(written)
     target = (candidate if candidate.is_absolute() else base / candidate).resolve()
@@ -150,14 +154,12 @@ def read_frd(t: Table, design_path: str, *, unstable_poles: int, integrators: in
     path = _confined(design_path, written, t)
     shown = str(Path(design_path).parent / written)
     try:
-        raw = path.read_bytes()
-    except FileNotFoundError:
-        raise DesignError("measurement file not found", file=shown,
-                          hint=f"{t.at('file')} is read relative to the design file") from None
-    except IsADirectoryError:
-        raise DesignError("is a directory, not a measurement file", file=shown) from None
-    except OSError as exc:
-        raise DesignError(f"cannot read the file: {exc.strerror or exc}", file=shown) from None
+        raw = read_input(path, DesignError, "measurement file", shown=shown,
+                         hint_missing=f"{t.at('file')} is read relative to the design "
+                                      "file")
+    except DesignError as exc:
+        raise DesignError(exc.what, file=exc.file, where=t.at("file"),
+                          hint=exc.hint) from None
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
@@ -244,6 +246,12 @@ def _check_row(values: dict[str, list[float]], numbers: list[int], cols: dict[st
     if f[-1] <= 0:
         raise DesignError(f"expected a positive frequency, got {f[-1]:g}", file=file,
                           where=where("frequency"))
+    # The input limits (README "Input limits"): frequencies 1e-8 .. 1e8 (in the file's
+    # unit), |P| within 1e-150 .. 1e150, phases within ±1e6 (degrees or radians).
+    if not 1e-8 <= f[-1] <= 1e8:
+        raise DesignError(f"the frequency {f[-1]:g} lies outside 1e-08 .. 1e+08",
+                          file=file, where=where("frequency"))
+
     if len(f) > 1 and not f[-1] > f[-2]:
         raise DesignError(f"frequencies must increase: {f[-1]:g} follows {f[-2]:g} "
                           f"(line {numbers[-2]})", file=file, where=where("frequency"),
@@ -252,3 +260,10 @@ def _check_row(values: dict[str, list[float]], numbers: list[int], cols: dict[st
         raise DesignError(f"expected a positive magnitude, got {values['magnitude'][-1]:g}",
                           file=file, where=where("magnitude"),
                           hint='magnitudes in dB need magnitude_unit = "db"')
+    m = values["magnitude"][-1]
+    if (abs(m) > 3000.0 if magnitude_unit == "db" else not 1e-150 <= m <= 1e150):
+        raise DesignError(f"the magnitude {m:g} lies outside |P| = 1e-150 .. 1e150 "
+                          f"(±3000 dB)", file=file, where=where("magnitude"))
+    if abs(values["phase"][-1]) > 1e6:
+        raise DesignError(f"the phase {values['phase'][-1]:g} lies outside ±1e6",
+                          file=file, where=where("phase"))

@@ -29,16 +29,19 @@ from __future__ import annotations
 import dataclasses
 import datetime as dt
 import hashlib
+import math
 import re
 import tomllib
 from pathlib import Path
 from types import MappingProxyType
 
 from ..errors import DesignError, did_you_mean
+from ..input_files import read_input, toml_loads
 from ..lti import Zpk
+from .bounds import MAX_STAGES, MAX_VARIANTS, Block, check_loop
 from .forms import FORMS, Table, read_form
 from .frd import read_frd
-from .model import Design, PlantVariant, Requirements, Stage, Waiver
+from .model import Design, PlantVariant, Requirements, Sampling, Stage, Waiver
 from .sampling import read_controller_stage, read_sampling
 
 __all__ = ["load_design", "parse_design"]
@@ -95,15 +98,8 @@ def load_design(path: str | Path) -> Design:
         design; the error names the file and the offending table and key.
     """
     name = str(path)
-    try:
-        raw = Path(path).read_bytes()
-    except FileNotFoundError:
-        raise DesignError("file not found", file=name,
-                          hint="check the path of the design file") from None
-    except IsADirectoryError:
-        raise DesignError("is a directory, not a design file", file=name) from None
-    except OSError as exc:
-        raise DesignError(f"cannot read the file: {exc.strerror or exc}", file=name) from None
+    raw = read_input(path, DesignError, "design file", shown=name,
+                     hint_missing="check the path of the design file")
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
@@ -123,7 +119,7 @@ def parse_design(text: str, path: str) -> Design:
 # ---------------------------------------------------------------------- top level
 def _parse(text: str, path: str, sha256: str) -> Design:
     try:
-        data = tomllib.loads(text)
+        data = toml_loads(text, DesignError, path)
     except tomllib.TOMLDecodeError as exc:
         raise _syntax_error(exc, path) from None
     top = Table(data, "", path)
@@ -161,6 +157,10 @@ def _parse(text: str, path: str, sha256: str) -> Design:
     limits = _limits(_table(top, "limits")) if "limits" in data else MappingProxyType({})
     waivers = _waivers(top, tuple(v.name for v in variants)) if "waivers" in data else ()
 
+    _check_sizes(top, variants, controller)
+    for variant in variants:
+        _check_loop(path, variant, controller, sensor, sensor_delay, sampling, hz)
+
     return Design(
         name=head.string("name"),
         path=path,
@@ -178,6 +178,41 @@ def _parse(text: str, path: str, sha256: str) -> Design:
         waivers=waivers,
         sampling=sampling,
     )
+
+
+def _check_sizes(top: Table, variants: tuple[PlantVariant, ...],
+                 controller: tuple[Stage, ...]) -> None:
+    if len(variants) - 1 > MAX_VARIANTS:
+        raise top.error("plant.variants", f"{len(variants) - 1} plant variants; at most "
+                        f"{MAX_VARIANTS} are reviewed in one design",
+                        "split the variants over several design files")
+    if len(controller) > MAX_STAGES:
+        raise top.error("controller", f"{len(controller)} controller stages; at most "
+                        f"{MAX_STAGES} are accepted", "combine stages into a tf or zpk stage")
+
+
+def _check_loop(path: str, variant: PlantVariant, controller: tuple[Stage, ...],
+                sensor: Zpk | None, sensor_delay: float, sampling: Sampling | None,
+                hz: bool) -> None:
+    """The loop-level ranges of :mod:`.bounds` for the loop around one plant variant."""
+    blocks = [Block(f"controller[{st.index}]", st.model.zeros, st.model.poles,
+                    st.model.gain, st.domain) for st in controller]
+    if variant.measured is None:
+        blocks.append(Block(f"{variant.where}.{variant.form}", variant.model.zeros,
+                            variant.model.poles, variant.model.gain))
+    if sensor is not None:
+        blocks.append(Block("sensor", sensor.zeros, sensor.poles, sensor.gain))
+    delay = variant.delay_s + sensor_delay
+    delay_where = (f"{variant.where}.delay" if variant.delay_s >= sensor_delay
+                   else "sensor.delay")
+    check_loop(blocks, file=path, variant_where=variant.where, delay_s=delay,
+               delay_where=delay_where,
+               period_s=sampling.period_s if sampling is not None else None,
+               compute_delay=sampling.compute_delay_samples if sampling is not None else 0,
+               measured_max_rad_s=(variant.measured.frequency_max_rad_s
+                                   if variant.measured is not None else None),
+               unit_scale=1.0 / (2.0 * math.pi) if hz else 1.0,
+               unit="Hz" if hz else "rad/s")
 
 
 _MISSING_HINT = {

@@ -32,6 +32,13 @@ import numpy as np
 
 from ..lti import Zpk
 from ..lti_discrete import DISCRETISATION_METHODS, DiscreteLoop, c2d, delay_z, sample_plant
+from .bounds import (
+    MAX_COMPUTE_DELAY,
+    MAX_PERIOD_S,
+    MIN_PERIOD_S,
+    check_gain,
+    check_roots,
+)
 from .forms import Table, read_poly
 from .model import Sampling, Stage
 from .stages import read_stage
@@ -47,6 +54,9 @@ def read_sampling(t: Table) -> Sampling:
     """Validate ``[sampling]`` into a :class:`Sampling` (prewarp converted to rad/s)."""
     t.check_keys(_KEYS, required=("period",))
     period = t.number("period", above=0.0, unit="s")
+    if not MIN_PERIOD_S <= period <= MAX_PERIOD_S:
+        raise t.error("period", f"expected a sample period within {MIN_PERIOD_S:g} .. "
+                      f"{MAX_PERIOD_S:g} s, got {period:g} s")
     method = t.choice("method", DISCRETISATION_METHODS, default="tustin")
     prewarp = None
     if t.has("prewarp"):
@@ -67,6 +77,9 @@ def read_sampling(t: Table) -> Sampling:
                           f"{value!r}", "compute_delay counts periods, e.g. 1")
         if value < 0:
             raise t.error("compute_delay", f"expected a number ≥ 0, got {value}")
+        if value > MAX_COMPUTE_DELAY:
+            raise t.error("compute_delay", f"expected at most {MAX_COMPUTE_DELAY} samples, "
+                          f"got {value}", "each sample of delay is a state of the loop in z")
         delay = value
     return Sampling(period_s=period, method=method, prewarp_rad_s=prewarp,
                     compute_delay_samples=delay)
@@ -100,7 +113,15 @@ def read_controller_stage(t: Table, index: int, *, sampled: bool) -> Stage:
         raise body.error(None, f"not causal: numerator degree {num.size - 1} exceeds "
                          f"denominator degree {den.size - 1} (in z)",
                          "a digital filter cannot use future samples")
-    model = Zpk.from_tf(num, den, label=f"{t.where} tf (z)")
+    try:
+        with np.errstate(all="ignore"):
+            model = Zpk.from_tf(num, den, label=f"{t.where} tf (z)")
+    except (ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:
+        raise body.error("den", f"cannot factor the filter ({exc})",
+                         "the coefficients are too large or too badly scaled") from None
+    check_roots(model.poles, file=t.file, where=body.at("den"), what="a pole", domain="z")
+    check_roots(model.zeros, file=t.file, where=body.at("num"), what="a zero", domain="z")
+    check_gain(model.gain, file=t.file, where=body.at("num"))
     params = MappingProxyType({"num": str([float(v) for v in num]),
                                "den": str([float(v) for v in den]), "domain": "z"})
     return Stage(index=index, type="tf", params=params, model=model, domain="z")

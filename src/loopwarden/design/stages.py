@@ -38,6 +38,7 @@ from types import MappingProxyType
 import numpy as np
 
 from ..lti import Zpk
+from .bounds import MAX_ROOT_RAD_S, MIN_ROOT_RAD_S, check_gain, check_roots
 from .forms import Table, read_direct_form, read_form, read_roots
 from .model import Stage
 
@@ -108,17 +109,30 @@ def _lead_lag(kind: str, default_norm: str) -> Builder:
     return build
 
 
+def _time(t: Table, key: str) -> float:
+    """A positive time constant within 1/MAX_ROOT .. 1/MIN_ROOT seconds (1e-8 .. 1e8 s):
+    its reciprocal is a root of the stage."""
+    value = t.number(key, above=0.0, unit="s")
+    if not 1.0 / MAX_ROOT_RAD_S <= value <= 1.0 / MIN_ROOT_RAD_S:
+        raise t.error(key, f"expected a time within {1.0 / MAX_ROOT_RAD_S:g} .. "
+                      f"{1.0 / MIN_ROOT_RAD_S:g} s, got {value:g} s",
+                      "README.md lists the ranges the analysis can carry")
+    return value
+
+
 def _pi(t: Table, label: str) -> tuple[Params, Zpk]:
     kp = t.number("kp", nonzero=True)
-    ti = t.number("ti", above=0.0, unit="s")
+    ti = _time(t, "ti")
     # kp (1 + 1/(ti s)) = kp (s + 1/ti) / s
     return {"kp": kp, "ti": ti}, _zpk([-1.0 / ti], [0.0], kp, label)
 
 
 def _pid(t: Table, label: str) -> tuple[Params, Zpk]:
     kp = t.number("kp", nonzero=True)
-    ti = t.number("ti", above=0.0, unit="s")
+    ti = _time(t, "ti")
     td = t.number("td", minimum=0.0, unit="s")
+    if td != 0.0:
+        td = _time(t, "td")
     n = t.number("n", above=0.0, default=10.0)
     params: Params = {"kp": kp, "ti": ti, "td": td, "n": n}
     if td == 0.0:
@@ -144,7 +158,7 @@ def _integrator(t: Table, label: str) -> tuple[Params, Zpk]:
 
 def _notch(t: Table, label: str) -> tuple[Params, Zpk]:
     w = t.frequency("freq")
-    depth = t.number("depth_db", above=0.0, unit="dB")
+    depth = t.number("depth_db", above=0.0, maximum=200.0, unit="dB")
     zeta = t.number("zeta", above=0.0, default=0.5)
     zeta_z = zeta * 10.0 ** (-depth / 20.0)
     return ({"freq": w, "depth_db": depth, "zeta": zeta},
@@ -238,4 +252,12 @@ def read_stage(t: Table, index: int) -> Stage:
     body.check_keys(spec.keys, spec.required, hints=_FORM_KEY_HINT)
     label = f"{t.where} {kind}"
     params, model = spec.build(body, label)
+    what = "the stage's {}" + (f" (from {', '.join(k for k in spec.keys if k in body.data)})"
+                               if kind not in ("tf", "zpk") else "")
+    scale = 1.0 / (2 * math.pi) if t.hz and kind not in ("tf",) else 1.0
+    check_roots(model.poles, file=t.file, where=t.where, what=what.format("pole"),
+                unit_scale=scale, unit=t.unit if scale != 1.0 else "rad/s")
+    check_roots(model.zeros, file=t.file, where=t.where, what=what.format("zero"),
+                unit_scale=scale, unit=t.unit if scale != 1.0 else "rad/s")
+    check_gain(model.gain, file=t.file, where=t.where)
     return Stage(index=index, type=kind, params=MappingProxyType(params), model=model)

@@ -90,6 +90,10 @@ def _margins(a: LoopAnalysis) -> dict[str, Any]:
         for check in a.coverage.uncovered:
             for key in _UNCOVERED_KEYS.get(check, ()):
                 out[key] = None
+    for check in a.undecided:
+        # Nor is one whose part of the analysis failed (its value is a placeholder).
+        for key in _UNCOVERED_KEYS.get(check, ()):
+            out[key] = None
     return out
 
 
@@ -121,6 +125,7 @@ def _variant(a: LoopAnalysis, design: Design) -> dict[str, Any]:
         "sampling": plain(a.sampling),
         "frequency_coverage": plain(a.coverage),
         "not_applicable": dict(sorted(a.not_applicable.items())),
+        "undecided": dict(sorted(a.undecided.items())),
     }
 
 

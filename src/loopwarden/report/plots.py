@@ -653,9 +653,11 @@ def sensitivity_figure(analysis: LoopAnalysis, unit: FrequencyUnit, *,
                     ax.axvline(unit.show(reference_band_rad_s), color=C_BAND, linewidth=0.9,
                                linestyle="-.",
                                label="reference band" if ax is ax_s else None)
-        ax_s.set_ylim(max(float(np.min(_db(np.abs(S)))), -80.0) - 3.0,
-                      max(10.0, 20.0 * math.log10(max(sens.peak_sensitivity,
-                                                      sens.peak_complementary, 1.0))) + 6.0)
+        # An infinite peak (1 + L = 0 on the axis, e.g. L(0) = −1) sets no limit.
+        peaks = [p for p in (sens.peak_sensitivity, sens.peak_complementary, 1.0)
+                 if math.isfinite(p)]
+        ax_s.set_ylim(max(float(np.nanmin(_db(np.abs(S)))), -80.0) - 3.0,
+                      max(10.0, 20.0 * math.log10(max(peaks))) + 6.0)
         ax_s.set_ylabel("magnitude (dB)")
         # Legend in a row above the axes: below, it would sit on the curves.
         ax_s.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), frameon=False, ncol=3,

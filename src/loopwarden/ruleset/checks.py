@@ -102,6 +102,9 @@ class Check:
         reason = analysis.not_applicable.get(self.name)
         if reason is not None:
             raise NotApplicable(reason)
+        undecided = analysis.undecided.get(self.name)
+        if undecided is not None:
+            raise AnalysisError(undecided)
         if analysis.coverage is not None and self.name in analysis.coverage.uncovered:
             raise AnalysisError("not covered by the measured range: "
                                 + analysis.coverage.uncovered[self.name])

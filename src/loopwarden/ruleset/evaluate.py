@@ -320,8 +320,10 @@ def evaluate_rule(rule: Rule, lim: Mapping[str, Limit], analysis: LoopAnalysis,
     if check.needs_stable and not analysis.stability.closed_loop_stable:
         # Margins and peaks describe how far a *stable* loop is from instability; on an
         # unstable loop the numbers exist but mean nothing (the stability rule fails).
+        why = ("closed-loop stability could not be decided"
+               if "closed_loop_stability" in analysis.undecided else "the closed loop is unstable")
         return _finding(rule, variant, Status.NA,
-                        f"{m.text}; the closed loop is unstable, so this is no stability "
+                        f"{m.text}; {why}, so this is no stability "
                         "margin (see closed_loop_stability)", unit=unit, measured=m.value)
     details: dict[str, float | str | None] = dict(m.details)
     details["severity"] = rule.severity

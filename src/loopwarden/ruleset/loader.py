@@ -28,6 +28,7 @@ from types import MappingProxyType
 from typing import Any
 
 from ..errors import RuleSetError, did_you_mean
+from ..input_files import check_path, read_input, require_regular_file, toml_loads
 from .checks import CHECKS, Check, is_lower_bound, is_warn_key
 from .model import Rule, RuleSet, RuleSetFile
 
@@ -79,10 +80,12 @@ def _resolve(spec: str, base: Path | None) -> Path:
     looks_like_path = (os.sep in spec or "/" in spec or spec.endswith(".toml"))
     if not looks_like_path and spec in shipped:
         return shipped[spec]
+    check_path(spec, RuleSetError, "rule-set file")
     path = Path(spec)
     if base is not None and not path.is_absolute():
         path = base / path
-    if path.is_file():
+    if path.exists():
+        require_regular_file(path, RuleSetError, "rule-set file")
         return path
     hint = did_you_mean(spec, shipped) or (
         "shipped sets: " + ", ".join(shipped) if shipped else None)
@@ -260,15 +263,21 @@ def _check_error_constant_direction(which: str, limits: Mapping[str, float], *, 
 def parse_ruleset(text: str, *, file: str) -> _Parsed:
     """Parse one rule-set file's text (without resolving ``extends``)."""
     try:
-        data = tomllib.loads(text)
+        data = toml_loads(text, RuleSetError, file)
     except tomllib.TOMLDecodeError as exc:
-        raise RuleSetError(f"not valid TOML: {exc}", file=file) from exc
+        msg = str(exc)
+        m = re.search(r"\(at line (\d+), column (\d+)\)", msg)
+        where = f"line {m.group(1)}, column {m.group(2)}" if m else "end of file"
+        what = msg[:m.start()].strip() if m else msg.replace("(at end of document)", "")
+        raise RuleSetError(f"not valid TOML: {what.strip()}", file=file, where=where,
+                           hint="see https://toml.io for the syntax") from exc
     for key in data:
         if key not in ("ruleset", "rule"):
             raise _unknown_key(key, ["ruleset", "rule"], file=file, where="", what="table")
     head = data.get("ruleset")
     if not isinstance(head, dict):
-        raise RuleSetError("missing the [ruleset] table", file=file)
+        raise RuleSetError("missing the [ruleset] table" if head is None else
+                           "expected a table [ruleset]", file=file, where="ruleset")
     for key in head:
         if key not in RULESET_KEYS:
             raise _unknown_key(key, RULESET_KEYS, file=file, where="ruleset")
@@ -304,10 +313,7 @@ def parse_ruleset(text: str, *, file: str) -> _Parsed:
 
 # --------------------------------------------------------------------------- loading
 def _read(path: Path) -> tuple[bytes, str]:
-    try:
-        raw = path.read_bytes()
-    except OSError as exc:
-        raise RuleSetError(f"cannot read: {exc.strerror or exc}", file=str(path)) from exc
+    raw = read_input(path, RuleSetError, "rule-set file")
     try:
         return raw, raw.decode("utf-8")
     except UnicodeDecodeError as exc:
@@ -350,6 +356,7 @@ def _check_bands(rules: tuple[Rule, ...], file: str) -> None:
     if len(set(bands.values())) > 1:
         listed = ", ".join(f"{k} = {v:g}" for k, v in bands.items())
         raise RuleSetError(f"rules ask for different settling bands ({listed})", file=file,
+                           where="rule",
                            hint="use one band for every rule of a set")
 
 
