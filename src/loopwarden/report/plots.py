@@ -932,6 +932,8 @@ def _z_plane_map(fig: Figure, analysis: LoopAnalysis, poles: NDArray[np.complex1
         ax.plot([(pair.pole.real + pair.zero.real) / 2.0],
                 [(pair.pole.imag + pair.zero.imag) / 2.0], "o", mfc="none", color=C_FAIL,
                 markersize=15, mew=1.0)
+    if pairs:
+        _z_zoom(ax, poles, finite, pairs)
     for root in outside:
         # An arrow from inside the view toward the root, at the edge it leaves through.
         u = root / abs(root)
@@ -959,9 +961,33 @@ def _z_plane_map(fig: Figure, analysis: LoopAnalysis, poles: NDArray[np.complex1
                     + ", ".join(f"{'pole' if x in poles else 'zero'} at z = {_fmt_z(x)}"
                                 for x in outside) + ".")
     if pairs:
-        caption += " Red rings: slow poles nearly cancelled by a zero."
+        caption += (" Red rings: slow poles nearly cancelled by a zero; the inset enlarges "
+                    "the neighbourhood of z = 1 where they sit.")
     return Plot(key="poles", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
                 caption=caption)
+
+
+def _z_zoom(ax: Axes, poles: NDArray[np.complex128], zeros: NDArray[np.complex128],
+            pairs: Sequence[SlowPair]) -> None:
+    """An inset around z = 1 (slow roots crowd there), with the unit circle and the pairs."""
+    half = 2.5 * max(max(abs(p.pole - 1.0), abs(p.zero - 1.0)) for p in pairs)
+    if not half > 0:
+        return
+    ins = ax.inset_axes((0.14, 0.6, 0.34, 0.34))
+    theta = np.linspace(-4.0 * half, 4.0 * half, 200)
+    ins.plot(np.cos(theta), np.sin(theta), color=C_MAIN, linewidth=0.8)
+    ins.plot(poles.real, poles.imag, "x", color=C_MAIN, markersize=4, mew=1.0)
+    if zeros.size:
+        ins.plot(zeros.real, zeros.imag, "o", mfc="none", color=C_SECOND, markersize=4,
+                 mew=0.9)
+    for pair in pairs:
+        ins.plot([(pair.pole.real + pair.zero.real) / 2.0],
+                 [(pair.pole.imag + pair.zero.imag) / 2.0], "o", mfc="none", color=C_FAIL,
+                 markersize=11, mew=0.9)
+    ins.set_xlim(1.0 - half, 1.0 + 0.4 * half)
+    ins.set_ylim(-0.7 * half, 0.7 * half)
+    ins.tick_params(labelsize=5.0)
+    ins.set_title("near z = 1", fontsize=6.0, loc="left")
 
 
 def _fmt_z(z: complex) -> str:
