@@ -32,7 +32,6 @@ from ..lti import FloatArray, Loop, Zpk
 from ..lti_discrete import DiscreteLoop
 from .boost_band import AnyLoop, with_stages
 from .closed_loop import delay_split
-from .discrete_loop import NOT_IN_Z
 from .discrete_margins import compute_discrete_margins, compute_discrete_sensitivity
 from .discrete_response import (
     discrete_stability,
@@ -472,17 +471,11 @@ def _review(tuned: Loop | DiscreteLoop, stage: Stage, k: float, target: float, m
         step = step_response(tuned, settling_band)
     pairs: tuple[SlowPair, ...] = ()
     pairs_error = None
-    if isinstance(tuned, DiscreteLoop) and "slow_pair_tail" in NOT_IN_Z:
-        # Until slow pairs are found in z the sampled analysis declares them not done;
-        # the alternative follows the same declaration instead of reading s-plane
-        # criteria on z-plane roots.
-        pairs_error = NOT_IN_Z["slow_pair_tail"]
-    else:
-        try:
-            # Any kind of loop: slow_tail raises where its roots are not available.
-            pairs = slow_tail(tuned, step, settling_band).pairs  # type: ignore[arg-type]
-        except AnalysisError as exc:
-            pairs_error = str(exc)
+    try:
+        # Any kind of loop: rational, delay (roots right of the search line) or sampled.
+        pairs = slow_tail(tuned, step, settling_band).pairs
+    except AnalysisError as exc:
+        pairs_error = str(exc)
     return IntegralAlternative(
         stage=stage.index, gain_factor=k, closed_loop_stable=stable, margins=marg,
         sensitivity=sens, tracking=track, step=step.metrics, slow_pairs=pairs,
