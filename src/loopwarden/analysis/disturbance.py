@@ -401,7 +401,9 @@ def sampled_load_response(loop: DiscreteLoop, plant: Zpk, at: str, size: float, 
     else:
         # Σ_k y[k] = Σ_k (y∞ − C A^k x∞) = −C (I − A)⁻¹ x∞ when y∞ = 0.
         ie = -T * float((c_y @ np.linalg.solve(eye - cl.a, x_inf))[0, 0]) if n else 0.0
-        iae = T * float(np.sum(np.abs(y)))
+        # The samples after the horizon sum to IE − T·Σ y[k ≤ N] exactly; their |·| is that
+        # (exact when they keep one sign, as a decayed tail does).
+        iae = T * float(np.sum(np.abs(y))) + abs(ie - T * float(np.sum(y)))
     gpk, gw = gain_peak(loop, at, band_rad_s)
     k = abs(size)
     return DisturbanceResponse(
