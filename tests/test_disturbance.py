@@ -329,3 +329,35 @@ def test_load_response_of_an_unstable_loop_is_refused() -> None:
 
     with pytest.raises(AnalysisError):
         load_response(loop, "plant_input", 1.0, BAND, None)
+
+
+# --------------------------------------------------------------------------- actuator peaks
+def test_actuator_peak_of_the_reference_step_closed_forms() -> None:
+    # [derived] FOPDT under PI: until the dead time θ = 8 s has passed the output has not
+    # moved, so u(t) = kp(1 + t/ti) rises to kp(1 + θ/ti) = 2.125 at t = θ, then falls.
+    e = nominal(design(FOPDT_PI)).effort
+    assert e is not None
+    assert e.u_peak_step == pytest.approx(1.875 * (1.0 + 8.0 / 60.0), rel=1e-9)
+    # [derived] A strictly proper plant: u(0+) = K(∞)·1 = kp(1 + n) for the filtered PID.
+    e = nominal(design(SERVO_PID)).effort
+    assert e is not None
+    assert e.u_peak_step == pytest.approx(0.3 * 9.0, rel=1e-9)
+    # [derived] P control of a first-order plant: u = K(1 − y) is largest at t = 0: K.
+    e = nominal(design(FIRST_ORDER_P)).effort
+    assert e is not None
+    assert e.u_peak_step == pytest.approx(K, rel=1e-12)
+    assert e.u_peak_disturbance == pytest.approx(K / (1.0 + K), rel=1e-6)
+    assert e.controller_hf_gain == pytest.approx(K)
+
+
+def test_effort_check_against_the_actuator_limit(tmp_path: Path) -> None:
+    path = tmp_path / "d.toml"
+    path.write_text(design(SERVO_PID, "", "[requirements]\nactuator_limit = 2.5\n"
+                                        "noise_gain_max = 3.0\n"), encoding="utf-8")
+    out = tmp_path / "r.json"
+    main(["review", str(path), "--rules", "motion-servo", "--json", str(out)])
+    data = json.loads(out.read_text(encoding="utf-8"))
+    found = {f["rule"]: f for f in data["findings"] if f["variant"] == "nominal"}
+    assert found["effort.actuator_peak"]["status"] == "fail"          # 2.7 > 2.5
+    assert found["effort.actuator_peak"]["measured"] == pytest.approx(2.7, rel=1e-9)
+    assert found["noise.actuator"]["status"] == "pass"                # 2.7 ≤ 3.0

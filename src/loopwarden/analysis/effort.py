@@ -28,8 +28,7 @@ from .results import Effort, LoopAnalysis
 if TYPE_CHECKING:
     from ..design.model import Design, PlantVariant
 
-__all__ = ["CHECK_PARTS", "controller_hf_gain", "ks_peak", "reference_u_peak",
-           "with_disturbance_and_effort"]
+__all__ = ["CHECK_PARTS", "controller_hf_gain", "ks_peak", "with_disturbance_and_effort"]
 
 #: Checks decided by each part added here.
 CHECK_PARTS = {"disturbance": ("disturbance_rejection",),
@@ -84,57 +83,6 @@ def ks_peak(loop: Loop | DiscreteLoop) -> tuple[float, float]:
         return refined_peak(np.abs, w, value, tuple(ends))
 
 
-def reference_u_peak(loop: Loop | DiscreteLoop, band: float) -> float:
-    """max |u| of the controller output for a unit reference step (exact, see module)."""
-    if isinstance(loop, DiscreteLoop):
-        from .discrete_response import discrete_closed_loop
-        from .disturbance import _rows
-
-        cl = discrete_closed_loop(loop)
-        n = cl.order
-        c_u, d_u = cl.c[2:3], float(cl.d[2, 0])
-        if not n:
-            return abs(d_u)
-        x_inf = np.linalg.solve(np.eye(n) - cl.a, cl.b)
-        u_inf = float((c_u @ x_inf)[0, 0]) + d_u
-        rho = float(np.max(np.abs(np.linalg.eigvals(cl.a))))
-        samples = 200 if rho == 0 else max(200, math.ceil(math.log(1e-6) / math.log(rho)))
-        samples = min(samples, 2_000_000)
-        u = u_inf - _rows(cl.a, x_inf, c_u, samples + 1)
-        return float(np.max(np.abs(u)))
-    from .closed_loop import closed_loop, delay_split, reference_to_output
-    from .time_response import (
-        PADE_ORDER,
-        RationalResponse,
-        _horizon,
-        _mode_amplitudes,
-        _pade,
-        delay_step,
-        grid_segments,
-        simulate_delay_runs,
-    )
-
-    ss = closed_loop(loop)
-    y_resp = RationalResponse(ss.a, ss.b, ss.c[0:1], float(ss.d[0, 0]))
-    u_resp = RationalResponse(ss.a, ss.b, ss.c[1:2], float(ss.d[1, 0]))
-    final = y_resp.final_value
-    scale = abs(final) if final != 0 and math.isfinite(final) else 1.0
-    if loop.has_delay:
-        padded = Loop(plant=loop.plant * _pade(loop.delay_s, PADE_ORDER),
-                      controller=loop.controller, sensor=loop.sensor, stages=loop.stages)
-        t_ref = reference_to_output(padded)
-    else:
-        t_ref = reference_to_output(loop)
-    poles, amp = _mode_amplitudes(t_ref)
-    horizon = _horizon(poles, amp, scale, band, None)
-    if loop.has_delay:
-        h, steps = delay_step(loop, horizon, poles, amp, scale, band)
-        _, _, up, um = simulate_delay_runs(delay_split(loop), loop.delay_s, h, steps)
-        return float(max(np.max(np.abs(up[:, 0])), np.max(np.abs(um[:, 0]))))
-    _, u, _ = u_resp.on_segments(grid_segments(t_ref, horizon, scale, band))
-    return float(np.max(np.abs(u)))
-
-
 def with_disturbance_and_effort(design: Design, variant: PlantVariant, a: LoopAnalysis,
                                 band: float) -> LoopAnalysis:
     """``a`` with its disturbance response and effort figures (or why they are missing)."""
@@ -176,7 +124,9 @@ def with_disturbance_and_effort(design: Design, variant: PlantVariant, a: LoopAn
     try:
         with np.errstate(all="ignore"):
             peak, where = ks_peak(loop)
-            u_step = reference_u_peak(loop, band) if stable else None
+            # The reference step's |u| peak comes with its exact response (time_response,
+            # discrete_response).
+            u_step = a.step.u_peak if stable and a.step is not None else None
             effort = Effort(ks_peak=peak, ks_peak_rad_s=where,
                             controller_hf_gain=controller_hf_gain(loop),
                             u_peak_step=u_step,

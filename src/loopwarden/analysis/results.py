@@ -150,6 +150,7 @@ class StepMetrics:
     horizon_s: float                               # simulated length
     ramp_error_final: float                        # e(t_end) for r = t (per unit slope)
     exact_delay: bool                              # True: delay simulated exactly
+    u_peak: float | None = None                    # max |u| of the controller output
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

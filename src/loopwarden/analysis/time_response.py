@@ -21,6 +21,7 @@ extended when the simulated response has not clearly settled.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import weakref
 from collections.abc import Callable
@@ -728,25 +729,38 @@ def step_response(loop: Loop, band: float) -> StepResult:
 
     for _ in range(MAX_EXTENSIONS + 1):
         if loop.has_delay:
-            t, y, e = _delay_run(loop, horizon, poles, amp, final, band)
+            t, y, e, u_peak = _delay_run(loop, horizon, poles, amp, final, band)
         else:
-            t, y, e = rational.on_segments(grid_segments(t_ref, horizon, final, band))
+            segments = grid_segments(t_ref, horizon, final, band)
+            t, y, e = rational.on_segments(segments)
         if _settled(t, y, final, band):
             break
         horizon *= 2.0
     else:
         raise AnalysisError(f"the step response has not settled within {horizon / 2:.4g} s")
+    if not loop.has_delay:
+        # The controller output on the same exact grid (the u row of the closed loop).
+        u_resp = RationalResponse(ss.a, ss.b, ss.c[1:2], float(ss.d[1, 0]))
+        u_peak = float(np.max(np.abs(u_resp.on_segments(segments)[1])))
 
-    metrics = _metrics(t, y, e, final, band, loop.has_delay,
-                       None if loop.has_delay else rational)
+    metrics = dataclasses.replace(
+        _metrics(t, y, e, final, band, loop.has_delay, None if loop.has_delay else rational),
+        u_peak=u_peak)
     return StepResult(metrics=metrics, step=plot_series(t, y), ramp_error=plot_series(t, e))
 
 
 def _delay_run(loop: Loop, horizon: float, poles: NDArray[np.complex128], amp: FloatArray,
-               final: float, band: float) -> tuple[FloatArray, FloatArray, FloatArray]:
-    """Choose h = delay/N fine enough for every significant mode, then simulate."""
+               final: float, band: float
+               ) -> tuple[FloatArray, FloatArray, FloatArray, float]:
+    """Choose h = delay/N fine enough for every significant mode, then simulate.
+
+    Returns t, the step response, the ramp error and the step's largest |u| (either side
+    of every sample, so a jump of u counts).
+    """
     h, steps = delay_step(loop, horizon, poles, amp, final, band)
-    return _simulate_delay(delay_split(loop), loop.delay_s, h, steps)
+    t, y, u_plus, u_minus = simulate_delay_runs(delay_split(loop), loop.delay_s, h, steps)
+    u_peak = float(max(np.max(np.abs(u_plus[:, 0])), np.max(np.abs(u_minus[:, 0]))))
+    return t, y[:, 0], t - y[:, 1], u_peak
 
 
 def delay_step(loop: Loop, horizon: float, poles: NDArray[np.complex128], amp: FloatArray,
