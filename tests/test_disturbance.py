@@ -361,3 +361,50 @@ def test_effort_check_against_the_actuator_limit(tmp_path: Path) -> None:
     assert found["effort.actuator_peak"]["status"] == "fail"          # 2.7 > 2.5
     assert found["effort.actuator_peak"]["measured"] == pytest.approx(2.7, rel=1e-9)
     assert found["noise.actuator"]["status"] == "pass"                # 2.7 ≤ 3.0
+
+
+# --------------------------------------------------------------------------- reference libraries
+def test_servo_load_response_against_python_control() -> None:
+    # python-control as reference library: P·S = feedback(P, K) simulated on a fine grid;
+    # its peak, peak time and ∫|y| dt agree with the exact closed-loop solution.
+    control = pytest.importorskip("control")
+    d = nominal(design(SERVO_PID)).disturbance
+    assert d is not None
+    loop, ctrl = _servo_loop()
+    c_tf = control.tf(np.real(np.poly(ctrl.zeros)) * ctrl.gain, np.real(np.poly(ctrl.poles)))
+    p_tf = control.tf([400.0], [1.0, 20.0, 0.0])
+    t = np.linspace(0.0, d.horizon_s, 400_001)
+    resp = control.step_response(control.feedback(p_tf, c_tf), T=t)
+    y = np.squeeze(resp.outputs)
+    k = int(np.argmax(np.abs(y)))
+    assert d.peak == pytest.approx(abs(y[k]), rel=1e-6)
+    assert d.peak_time_s == pytest.approx(t[k], abs=2.0 * (t[1] - t[0]))
+    assert d.iae == pytest.approx(np.trapezoid(np.abs(y), t), rel=1e-5)
+    assert d.ie == pytest.approx(np.trapezoid(y, t), rel=1e-5)
+
+
+def test_sampled_load_response_against_scipy() -> None:
+    # scipy.signal as reference: the plant 1/(s + 1) sampled through a zoh (cont2discrete),
+    # the digital PI 2 + 0.5·T/(z − 1) (zoh form of kp(1 + 1/(ti s)), kp = 2, ti = 4), and
+    # y[k] = (P_d/(1 + C·P_d)) applied to the held unit step, by dlsim.
+    from scipy import signal
+
+    T = 0.1
+    text = design(f'[sampling]\nperiod = {T}\nmethod = "zoh"\n\n[plant]\ntf = {{ num = [1.0], '
+                  'den = [1.0, 1.0] }\n\n[[controller]]\ntype = "pi"\nkp = 2.0\nti = 4.0\n')
+    d = nominal(text).disturbance
+    assert d is not None
+    num_p, den_p, _ = signal.cont2discrete(([1.0], [1.0, 1.0]), T, method="zoh")
+    num_p = np.trim_zeros(np.ravel(num_p), "f")
+    num_c = np.polyadd(2.0 * np.array([1.0, -1.0]), [0.5 * T])     # 2(z − 1) + 0.5T
+    den_c = np.array([1.0, -1.0])
+    num = np.polymul(num_p, den_c)
+    den = np.polyadd(np.polymul(den_p, den_c), np.polymul(num_p, num_c))
+    n = round(d.horizon_s / T) + 1
+    _, y = signal.dlsim((num, den, T), np.ones(n))
+    y = np.ravel(y)
+    k = int(np.argmax(np.abs(y)))
+    assert d.peak == pytest.approx(abs(y[k]), rel=1e-9)
+    assert d.peak_time_s == pytest.approx(k * T, rel=1e-12)
+    assert d.iae == pytest.approx(T * np.sum(np.abs(y)), rel=1e-7)
+    assert d.ie == pytest.approx(1.0 / 0.5, rel=1e-9)        # 1/ki, ki = kp/ti [derived]
