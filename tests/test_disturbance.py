@@ -408,3 +408,35 @@ def test_sampled_load_response_against_scipy() -> None:
     assert d.peak_time_s == pytest.approx(k * T, rel=1e-12)
     assert d.iae == pytest.approx(T * np.sum(np.abs(y)), rel=1e-7)
     assert d.ie == pytest.approx(1.0 / 0.5, rel=1e-9)        # 1/ki, ki = kp/ti [derived]
+
+
+def test_sampled_output_load_against_scipy() -> None:
+    # S = 1/(1 + C·P_d) applied to a unit step at the instants (scipy dlsim) [derived].
+    from scipy import signal
+
+    T = 0.1
+    body = (f'[sampling]\nperiod = {T}\nmethod = "zoh"\n\n[plant]\ntf = {{ num = [1.0], '
+            'den = [1.0, 1.0] }\n\n[[controller]]\ntype = "gain"\nk = 3.0\n')
+    d = nominal(design(body, '[disturbance]\nat = "plant_output"\n')).disturbance
+    assert d is not None
+    num_p, den_p, _ = signal.cont2discrete(([1.0], [1.0, 1.0]), T, method="zoh")
+    num_p = np.trim_zeros(np.ravel(num_p), "f")
+    den = np.polyadd(den_p, 3.0 * num_p)
+    n = round(d.horizon_s / T) + 1
+    _, y = signal.dlsim((np.ravel(den_p), den, T), np.ones(n))
+    y = np.ravel(y)
+    assert d.peak == pytest.approx(1.0, rel=1e-12)                   # y[0] = d
+    assert d.static_deviation == pytest.approx(y[-1], rel=1e-9)      # 1/(1 + 3) [derived]
+    assert d.static_deviation == pytest.approx(0.25, rel=1e-9)
+    level = BAND * 1.0
+    last = int(np.flatnonzero(np.abs(y - y[-1]) > level)[-1])
+    assert d.recovery_time_s == pytest.approx((last + 1) * T, rel=1e-12)
+
+
+def test_sampled_output_load_behind_a_sensor_is_an_error_finding(tmp_path: Path) -> None:
+    body = ('[sampling]\nperiod = 0.1\n\n[plant]\ntf = { num = [1.0], den = [1.0, 1.0] }\n\n'
+            '[sensor]\ntf = { num = [1.0], den = [0.05, 1.0] }\n\n'
+            '[[controller]]\ntype = "pi"\nkp = 1.0\nti = 1.0\n')
+    a = nominal(design(body, '[disturbance]\nat = "plant_output"\n'))
+    assert a.disturbance is None
+    assert "sensor" in a.undecided["disturbance_rejection"]
