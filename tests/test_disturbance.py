@@ -440,3 +440,21 @@ def test_sampled_output_load_behind_a_sensor_is_an_error_finding(tmp_path: Path)
     a = nominal(design(body, '[disturbance]\nat = "plant_output"\n'))
     assert a.disturbance is None
     assert "sensor" in a.undecided["disturbance_rejection"]
+
+
+def test_output_load_behind_a_sensor_against_python_control() -> None:
+    # y = S·d with S = 1/(1 + C·P·H) (python-control feedback(1, C·P·H)); the sensor sees
+    # the disturbed output.
+    control = pytest.importorskip("control")
+    body = ('[plant]\ntf = { num = [1.0], den = [1.0, 1.0] }\n\n'
+            '[sensor]\ntf = { num = [1.0], den = [0.1, 1.0] }\n\n'
+            '[[controller]]\ntype = "pi"\nkp = 2.0\nti = 0.5\n')
+    d = nominal(design(body, '[disturbance]\nat = "plant_output"\n')).disturbance
+    assert d is not None
+    s = control.tf("s")
+    loop_tf = 2.0 * (1.0 + 1.0 / (0.5 * s)) / (s + 1.0) / (0.1 * s + 1.0)
+    t = np.linspace(0.0, d.horizon_s, 400_001)
+    y = np.squeeze(control.step_response(control.feedback(1, loop_tf), T=t).outputs)
+    assert d.peak == pytest.approx(np.max(np.abs(y)), rel=1e-9)        # y(0+) = 1
+    assert d.iae == pytest.approx(np.trapezoid(np.abs(y), t), rel=1e-5)
+    assert d.ie == pytest.approx(np.trapezoid(y, t), rel=1e-5, abs=1e-7)
