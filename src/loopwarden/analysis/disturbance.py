@@ -293,8 +293,8 @@ def gain_peak(loop: Loop | DiscreteLoop, at: str, band_rad_s: float | None
     if math.isfinite(hi):
         ends.append((hi, float(np.abs(value(np.array([hi])))[0])))
     if w.size < 2:
-        lo = hi * 1e-6 if math.isfinite(hi) else 1e-6
-        w = np.geomspace(lo, hi, 200)
+        w = np.geomspace(hi * 1e-6, hi, 200) if math.isfinite(hi) else np.geomspace(
+            1e-6, 1e6, 241)
     # ω = 0 (a finite limit, or 0 / inf): taken six decades below the grid.
     ends.append((0.0, float(np.abs(value(np.array([w[0] * 1e-6])))[0])))
     with np.errstate(all="ignore"):

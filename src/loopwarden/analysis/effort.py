@@ -21,6 +21,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from ..errors import AnalysisError
 from ..lti import FloatArray, Loop
 from ..lti_discrete import DiscreteLoop
 from .results import Effort, LoopAnalysis
@@ -78,6 +79,12 @@ def ks_peak(loop: Loop | DiscreteLoop) -> tuple[float, float]:
         else:
             at_inf = k_inf / (1.0 - l_inf) if l_inf < 1.0 else math.inf
         ends.append((math.inf, at_inf))
+    if w.size < 2:
+        w = np.geomspace(1e-6, 1e6, 241)
+        if isinstance(loop, DiscreteLoop):
+            w = w[w < math.pi / loop.period_s]
+    if w.size < 2:
+        raise AnalysisError("no frequency grid for the |K·S| peak")
     ends.append((0.0, float(np.abs(value(np.array([w[0] * 1e-6])))[0])))
     with np.errstate(all="ignore"):
         return refined_peak(np.abs, w, value, tuple(ends))
