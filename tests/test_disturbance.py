@@ -433,13 +433,37 @@ def test_sampled_output_load_against_scipy() -> None:
     assert d.recovery_time_s == pytest.approx((last + 1) * T, rel=1e-12)
 
 
-def test_sampled_output_load_behind_a_sensor_is_an_error_finding(tmp_path: Path) -> None:
-    body = ('[sampling]\nperiod = 0.1\n\n[plant]\ntf = { num = [1.0], den = [1.0, 1.0] }\n\n'
-            '[sensor]\ntf = { num = [1.0], den = [0.05, 1.0] }\n\n'
+def test_sampled_output_load_behind_a_sensor_against_scipy() -> None:
+    # [derived] At the instants, with zoh images P_z, (HP)_z, H_z (cont2discrete) and the
+    # digital controller C: u = −C·H_z·d/(1 + C·(HP)_z) and y = d + P_z·u, because the
+    # held step d is exactly what the sensor sees between the instants. dlsim as reference.
+    from scipy import signal
+
+    T = 0.1
+    body = (f'[sampling]\nperiod = {T}\nmethod = "zoh"\n\n[plant]\ntf = {{ num = [1.0], '
+            'den = [1.0, 1.0] }\n\n[sensor]\ntf = { num = [1.0], den = [0.3, 1.0] }\n\n'
             '[[controller]]\ntype = "pi"\nkp = 1.0\nti = 1.0\n')
-    a = nominal(design(body, '[disturbance]\nat = "plant_output"\n'))
-    assert a.disturbance is None
-    assert "sensor" in a.undecided["disturbance_rejection"]
+    d = nominal(design(body, '[disturbance]\nat = "plant_output"\n')).disturbance
+    assert d is not None
+
+    def zoh(num: list[float], den: list[float]) -> tuple[np.ndarray, np.ndarray]:
+        n, m, _ = signal.cont2discrete((num, den), T, method="zoh")
+        return np.ravel(n), np.ravel(m)
+
+    n_p, d_p = zoh([1.0], [1.0, 1.0])
+    n_h, d_h = zoh([1.0], [0.3, 1.0])
+    n_hp, d_hp = zoh([1.0], np.polymul([0.3, 1.0], [1.0, 1.0]))
+    n_c, d_c = np.array([1.0, -1.0 + T]), np.array([1.0, -1.0])    # kp(1 + T/(ti(z − 1)))
+    closed = np.polyadd(np.polymul(d_c, d_hp), np.polymul(n_c, n_hp))
+    den = np.polymul(np.polymul(d_p, d_h), closed)
+    num = np.polysub(den, np.polymul(np.polymul(n_p, n_c), np.polymul(n_h, d_hp)))
+    n = round(d.horizon_s / T) + 1
+    _, y = signal.dlsim((num, den, T), np.ones(n))
+    y = np.ravel(y)
+    k = int(np.argmax(np.abs(y)))
+    assert d.peak == pytest.approx(abs(y[k]), rel=1e-9)
+    assert d.iae == pytest.approx(T * np.sum(np.abs(y)), rel=1e-7)
+    assert d.ie == pytest.approx(T * np.sum(y), rel=1e-7, abs=1e-9)
 
 
 def test_output_load_behind_a_sensor_against_python_control() -> None:

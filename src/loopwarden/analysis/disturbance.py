@@ -11,7 +11,8 @@ sensor then sees).  Its response is computed like the reference step
   the cut loop (:func:`.time_response.simulate_delay_runs`); its ramp run is ∫y dt;
 * sampled loops at the sampling instants; the plant-input disturbance enters through the
   hold (ahead of any transport delay inside the sampled plant: the response is shifted by
-  that delay, which leaves the peak and the integrals unchanged).
+  that delay, which leaves the peak and the integrals unchanged); an output disturbance
+  reaches the measurement through a held copy of the sensor (exact for a step).
 
 Integrated error [derived; Åström & Hägglund, *Advanced PID Control*, memory]: with
 integral action y(∞) = 0 and ``IE = ∫y dt = C A⁻¹ x∞`` for x∞ = −A⁻¹B (continuous), or
@@ -302,54 +303,78 @@ def gain_peak(loop: Loop | DiscreteLoop, at: str, band_rad_s: float | None
 
 
 # --------------------------------------------------------------------------- sampled
-def sampled_disturbance_loop(loop: DiscreteLoop, at: str) -> StateSpace:
+def sampled_disturbance_loop(loop: DiscreteLoop, at: str, sensor: Zpk | None = None
+                             ) -> StateSpace:
     """The sampled closed loop d → [y, u] at the sampling instants, every mode kept.
 
-    The plant-input disturbance is held like u (``u + d`` enters the sampled plant); the
-    output disturbance adds to the measurement and to y, which needs a unity sensor
-    without delay (the measured output equal to the plant output).
+    The plant-input disturbance is held like u (``u + d`` enters the sampled plant).  The
+    output disturbance adds to y and reaches the measurement through the (continuous)
+    ``sensor``: a copy of the sensor driven by d, sampled through a zero-order hold, which
+    is exact for a step (d is constant over every period).  As in the continuous model,
+    the sensor's transport delay is part of the loop delay at the plant input.
     """
     ac, bc, cc, dc = lti_series(loop.stages or (loop.controller,))
     sp = loop.sampled
     ap, bp, cp, dp = sp.a, sp.b, sp.c, sp.d
-    if at == AT_OUTPUT and not (np.array_equal(cp[0], cp[1]) and dp[0, 0] == dp[1, 0]):
-        raise AnalysisError("an output disturbance in a sampled loop with sensor dynamics or "
-                            "a sensor delay is not modelled (the sensor filters the step "
-                            "between the instants)")
-    nc, npl = ac.shape[0], ap.shape[0]
+    if at == AT_OUTPUT:
+        a_s, b_s, c_s, d_s = _held_sensor(sensor, loop.period_s)
+    else:
+        a_s, b_s, c_s, d_s = np.zeros((0, 0)), np.zeros((0, 1)), np.zeros((1, 0)), 0.0
+    nc, npl, ns = ac.shape[0], ap.shape[0], a_s.shape[0]
     dc0, dm, dy = float(dc[0, 0]), float(dp[0, 0]), float(dp[1, 0])
     q = 1.0 + dc0 * dm
     if abs(q) < 1e-12:
         raise IllPosedLoopError("the sampled loop is not well posed: 1 + L(∞) = 0")
-    ku = np.hstack([cc, -dc0 * cp[0:1]]) / q
-    # u = ku·x + kd·d; the plant input is u + d (input) or u (output).
-    kd = -dc0 * dm / q if at == AT_INPUT else -dc0 / q
+    # ym = Cym xp + Dym u + Cs xs + Ds d (Cs, Ds: the sensor copy; zero for a load at the
+    # plant input);  u = Cc xc − Dc ym  →  u = ku·x + kd·d.
+    ku = np.hstack([cc, -dc0 * cp[0:1], -dc0 * c_s]) / q
+    kd = -dc0 * (dm + d_s) / q if at == AT_INPUT else -dc0 * d_s / q
     into_plant = kd + 1.0 if at == AT_INPUT else kd
-    e_x = np.hstack([np.zeros((1, nc)), -cp[0:1]]) - dm * ku
-    e_d = -dm * into_plant - (0.0 if at == AT_INPUT else 1.0)
-    n = nc + npl
+    e_x = np.hstack([np.zeros((1, nc)), -cp[0:1], -c_s]) - dm * ku
+    e_d = -dm * into_plant - d_s
+    n = nc + npl + ns
     a = np.zeros((n, n))
     b = np.zeros((n, 1))
     a[:nc, :nc] = ac
     a[:nc, :] += bc @ e_x
     b[:nc] = bc * e_d
-    a[nc:, nc:] = ap
-    a[nc:, :] += bp @ ku
-    b[nc:] = bp * into_plant
-    c_y = np.hstack([np.zeros((1, nc)), cp[1:2]]) + dy * ku
+    a[nc:nc + npl, nc:nc + npl] = ap
+    a[nc:nc + npl, :] += bp @ ku
+    b[nc:nc + npl] = bp * into_plant
+    a[nc + npl:, nc + npl:] = a_s
+    b[nc + npl:] = b_s
+    c_y = np.hstack([np.zeros((1, nc)), cp[1:2], np.zeros((1, ns))]) + dy * ku
     d_y = dy * into_plant + (0.0 if at == AT_INPUT else 1.0)
     return StateSpace(a, b, np.vstack([c_y, ku]), np.array([[d_y], [kd]]))
 
 
+def _held_sensor(sensor: Zpk | None, period_s: float
+                 ) -> tuple[Matrix, Matrix, Matrix, float]:
+    """The sensor sampled through a zero-order hold: (Φ, Γ, C, D); unity when None."""
+    if sensor is None:
+        return np.zeros((0, 0)), np.zeros((0, 1)), np.zeros((1, 0)), 1.0
+    from scipy import linalg
+
+    a, b, c, d = sensor.to_ss()
+    n = a.shape[0]
+    big = np.zeros((n + 1, n + 1))
+    big[:n, :n] = a * period_s
+    big[:n, n:] = b * period_s
+    e = linalg.expm(big)
+    return e[:n, :n], e[:n, n:], np.asarray(c, dtype=float), float(np.asarray(d)[0, 0])
+
+
 def sampled_load_response(loop: DiscreteLoop, plant: Zpk, at: str, size: float, band: float,
-                          band_rad_s: float | None) -> DisturbanceResponse:
+                          band_rad_s: float | None, sensor: Zpk | None = None
+                          ) -> DisturbanceResponse:
     """As :func:`load_response` at the sampling instants of a stable sampled loop.
 
-    ``plant`` is the continuous plant (its P(0) scales the recovery band).  Peak and
+    ``plant`` is the continuous plant (its P(0) scales the recovery band), ``sensor`` the
+    continuous sensor (None: unity) that an output load reaches the measurement through.  Peak and
     recovery are read at the instants (recovery: the first instant after the last sample
     outside the band); ``ie = T·Σ y[k]`` exactly, ``iae = T·Σ |y[k]|`` over the horizon.
     """
-    cl = sampled_disturbance_loop(loop, at)
+    cl = sampled_disturbance_loop(loop, at, sensor)
     n = cl.order
     T = loop.period_s
     eye = np.eye(n)

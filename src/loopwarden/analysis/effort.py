@@ -118,7 +118,8 @@ def with_disturbance_and_effort(design: Design, variant: PlantVariant, a: LoopAn
             with np.errstate(all="ignore"):
                 if isinstance(loop, DiscreteLoop):
                     disturbance = sampled_load_response(loop, variant.model, dist.at,
-                                                        dist.size, band, dist.band_rad_s)
+                                                        dist.size, band, dist.band_rad_s,
+                                                        design.sensor)
                 else:
                     disturbance = load_response(loop, dist.at, dist.size, band,
                                                 dist.band_rad_s)
