@@ -13,7 +13,8 @@ frequency in the file is multiplied by 2π on reading, so the model holds rad/s 
 * lead and lag ``zero`` and ``pole``; notch and lowpass ``freq``;
 * the roots of every ``zpk`` form (plant, plant variants, sensor and zpk stages) — the zpk
   ``gain`` still multiplies the monic factors ``(s − z)`` of the converted roots;
-* the frequency requirements ``reference_band``, ``crossover_min`` and ``crossover_max``.
+* the frequency requirements ``reference_band``, ``crossover_min`` and ``crossover_max``;
+* the ``[disturbance]`` ``band``.
 
 ``tf`` and ``ss`` coefficients are always in the Laplace variable s in rad/s and are never
 converted.  Times (``ti``, ``td``, ``delay``, ``settling_time``, ``rise_time``,
