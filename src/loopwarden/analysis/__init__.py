@@ -65,6 +65,11 @@ def analyze_variant(design: Design, variant: PlantVariant, *,
                           hint="some block must roll off at high frequency: a strictly "
                                "proper plant, sensor or controller stage") from exc
     result = dataclasses.replace(result, pole_zero=pole_zero)
+    from .effort import with_disturbance_and_effort
+
+    result = with_disturbance_and_effort(
+        design, variant, result,
+        settling_band or design.requirements.settling_band or DEFAULT_SETTLING_BAND)
     try:
         return scrub_nan(result)
     except NUMERIC_ERRORS as exc:

@@ -14,6 +14,7 @@ instants (ripple of the continuous output) is not part of it.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -304,6 +305,12 @@ def discrete_step_response(loop: DiscreteLoop, band: float) -> StepResult:
         ramp_tail = abs(float(powers[-1, 1])) if n else 0.0
         ramp_quiet = ramp_tail <= floor * max(abs(float(e[-1])), T)
         if metrics.settling_time_s <= 0.75 * t[-1] and quiet and ramp_quiet:
+            # The controller output at the same instants: u[k] = u∞ − C_u A^k x∞.
+            c_u, d_u = cl.c[2:3], float(cl.d[2, 0])
+            u = (float((c_u @ x_inf)[0, 0]) + d_u
+                 - output_of_powers(cl.a, x_inf, c_u, samples + 1)[:, 0]) if n \
+                else np.full(t.shape, d_u)
+            metrics = dataclasses.replace(metrics, u_peak=float(np.max(np.abs(u))))
             return StepResult(metrics=metrics, step=plot_series(t, y), ramp_error=plot_series(t, e))
         if samples >= MAX_SAMPLES:
             break

@@ -150,6 +150,7 @@ class StepMetrics:
     horizon_s: float                               # simulated length
     ramp_error_final: float                        # e(t_end) for r = t (per unit slope)
     exact_delay: bool                              # True: delay simulated exactly
+    u_peak: float | None = None                    # max |u| of the controller output
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -167,6 +168,60 @@ class StepResult:
     metrics: StepMetrics
     step: TimeSeries                               # y(t) for r = 1(t)
     ramp_error: TimeSeries                         # e(t) = t − y(t) for r = t
+
+
+# --------------------------------------------------------------------------- disturbance
+@dataclass(frozen=True, slots=True, kw_only=True)
+class DisturbanceResponse:
+    """Response of the plant output y to a step load disturbance of height ``size``.
+
+    ``at`` is ``"plant_input"`` or ``"plant_output"`` (y then includes the step itself).
+    ``peak`` = max |y| (output units) at ``peak_time_s`` (None: approached only as
+    t → ∞, a monotone response); ``static_deviation`` = y(∞) (0 with integral action);
+    ``ie`` = ∫y dt and ``iae`` = ∫|y| dt (output·s; ±inf / inf when y(∞) ≠ 0);
+    ``recovery_time_s`` = the last time |y − y(∞)| exceeds ``recovery_level`` =
+    ``settling_band`` × the disturbance's static effect |size·P(0)| (|size| at the output;
+    the peak when P(0) is not finite or zero).  ``gain_peak`` = max |P·S| (|S| at the
+    output) for ω ≤ ``band_rad_s`` (the whole axis when None) at ``gain_peak_rad_s``.
+    Sampled loops: every figure at the sampling instants, ``ie`` = T·Σ y[k].
+    """
+
+    at: str
+    size: float
+    peak: float
+    peak_time_s: float | None
+    static_deviation: float
+    ie: float
+    iae: float
+    recovery_time_s: float
+    recovery_level: float
+    settling_band: float
+    gain_peak: float
+    gain_peak_rad_s: float
+    band_rad_s: float | None
+    horizon_s: float
+    u_peak: float                                   # max |u| of the controller output
+    exact_delay: bool = False                       # the delay simulated exactly
+    sampled: bool = False
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Effort:
+    """Measurement noise to the actuator and the actuator signal's peaks.
+
+    ``ks_peak`` = max |K·S| over ω (K the controller, S = 1/(1 + L)) at
+    ``ks_peak_rad_s`` (``inf``: the supremum is approached as ω → ∞; sampled loops: up to
+    the Nyquist frequency); ``controller_hf_gain`` = |K(∞)| (sampled: |K(e^{jπ})| at the
+    Nyquist frequency); ``u_peak_step`` = max |u| for a unit reference step and
+    ``u_peak_disturbance`` = max |u| for the design's disturbance step (None: no
+    ``[disturbance]`` table, or the closed loop is not stable).
+    """
+
+    ks_peak: float
+    ks_peak_rad_s: float
+    controller_hf_gain: float
+    u_peak_step: float | None
+    u_peak_disturbance: float | None
 
 
 # --------------------------------------------------------------------------- boost
@@ -359,3 +414,5 @@ class LoopAnalysis:
     # Check name → why the analysis could not decide it (a part failed numerically; its
     # result is a placeholder, see analysis/undecided.py): those checks report ``error``.
     undecided: Mapping[str, str] = field(default_factory=lambda: MappingProxyType({}))
+    disturbance: DisturbanceResponse | None = None  # None: no [disturbance] or not computed
+    effort: Effort | None = None                    # None: not computed (see errors)

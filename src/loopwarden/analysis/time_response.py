@@ -21,6 +21,7 @@ extended when the simulated response has not clearly settled.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import weakref
 from collections.abc import Callable
@@ -341,6 +342,18 @@ def _simulate_delay(split: StateSpace, delay_s: float, h: float, steps: int,
     ``steps`` is rounded up to whole blocks.  Two runs go side by side (columns): the
     reference step and the reference ramp.
     """
+    t, y, _u_plus, _u_minus = simulate_delay_runs(split, delay_s, h, steps)
+    return t, y[:, 0], t - y[:, 1]
+
+
+def simulate_delay_runs(split: StateSpace, delay_s: float, h: float, steps: int,
+                        ) -> tuple[FloatArray, FloatArray, FloatArray, FloatArray]:
+    """``t``, then y, u⁺ and u⁻ at the samples for a unit step and a unit ramp (columns)
+    on the first input of ``split`` (the reference of :func:`.closed_loop.delay_split`, or
+    a disturbance entering the same way), exact for the loop with its delay.
+
+    u⁺/u⁻ are the controller output just after and just before each sample.
+    """
     n_delay = round(delay_s / h)
     block = DELAY_BLOCK
     steps = math.ceil(steps / block) * block
@@ -389,7 +402,7 @@ def _simulate_delay(split: StateSpace, delay_s: float, h: float, steps: int,
                                     + hy["w0"] @ wp + hy["w1"] @ wm + dyr * rp1 + dyw * wps)
         x = (maps.phi_b @ x + end["r0"] @ rp0 + end["r1"] @ rm1 + end["w0"] @ wp
              + end["w1"] @ wm)
-    return t, y[:, 0], t - y[:, 1]
+    return t, y, u_plus, u_minus
 
 
 def _inside(values: NDArray[np.float64], src: NDArray[np.int_]) -> NDArray[np.float64]:
@@ -716,23 +729,47 @@ def step_response(loop: Loop, band: float) -> StepResult:
 
     for _ in range(MAX_EXTENSIONS + 1):
         if loop.has_delay:
-            t, y, e = _delay_run(loop, horizon, poles, amp, final, band)
+            t, y, e, u_peak = _delay_run(loop, horizon, poles, amp, final, band)
         else:
-            t, y, e = rational.on_segments(grid_segments(t_ref, horizon, final, band))
+            segments = grid_segments(t_ref, horizon, final, band)
+            t, y, e = rational.on_segments(segments)
         if _settled(t, y, final, band):
             break
         horizon *= 2.0
     else:
         raise AnalysisError(f"the step response has not settled within {horizon / 2:.4g} s")
+    if not loop.has_delay:
+        # The controller output on the same exact grid (the u row of the closed loop).
+        u_resp = RationalResponse(ss.a, ss.b, ss.c[1:2], float(ss.d[1, 0]))
+        u_peak = float(np.max(np.abs(u_resp.on_segments(segments)[1])))
 
-    metrics = _metrics(t, y, e, final, band, loop.has_delay,
-                       None if loop.has_delay else rational)
+    metrics = dataclasses.replace(
+        _metrics(t, y, e, final, band, loop.has_delay, None if loop.has_delay else rational),
+        u_peak=u_peak)
     return StepResult(metrics=metrics, step=plot_series(t, y), ramp_error=plot_series(t, e))
 
 
 def _delay_run(loop: Loop, horizon: float, poles: NDArray[np.complex128], amp: FloatArray,
-               final: float, band: float) -> tuple[FloatArray, FloatArray, FloatArray]:
-    """Choose h = delay/N fine enough for every significant mode, then simulate."""
+               final: float, band: float
+               ) -> tuple[FloatArray, FloatArray, FloatArray, float]:
+    """Choose h = delay/N fine enough for every significant mode, then simulate.
+
+    Returns t, the step response, the ramp error and the step's largest |u| (either side
+    of every sample, so a jump of u counts).
+    """
+    h, steps = delay_step(loop, horizon, poles, amp, final, band)
+    t, y, u_plus, u_minus = simulate_delay_runs(delay_split(loop), loop.delay_s, h, steps)
+    u_peak = float(max(np.max(np.abs(u_plus[:, 0])), np.max(np.abs(u_minus[:, 0]))))
+    return t, y[:, 0], t - y[:, 1], u_peak
+
+
+def delay_step(loop: Loop, horizon: float, poles: NDArray[np.complex128], amp: FloatArray,
+               final: float, band: float) -> tuple[float, int]:
+    """Step h = delay/N of the exact delay simulation and the number of steps.
+
+    ``poles`` and ``amp`` are the modes of a Padé copy and their step amplitudes, ``final``
+    the scale of the response (the band is ``band·|final|``).
+    """
     floor = HORIZON_TAIL_FRACTION * band * abs(final)
     tol = DELAY_HOLD_TOL * band * abs(final)
     # Padé poles far beyond its order/delay are artefacts of the approximation.
@@ -749,4 +786,4 @@ def _delay_run(loop: Loop, horizon: float, poles: NDArray[np.complex128], amp: F
         raise AnalysisError(
             f"the delay ({loop.delay_s:.3g} s) is too short against the {horizon:.3g} s "
             f"horizon to simulate it exactly ({steps} steps needed)")
-    return _simulate_delay(delay_split(loop), loop.delay_s, h, steps)
+    return h, steps

@@ -13,7 +13,8 @@ frequency in the file is multiplied by 2π on reading, so the model holds rad/s 
 * lead and lag ``zero`` and ``pole``; notch and lowpass ``freq``;
 * the roots of every ``zpk`` form (plant, plant variants, sensor and zpk stages) — the zpk
   ``gain`` still multiplies the monic factors ``(s − z)`` of the converted roots;
-* the frequency requirements ``reference_band``, ``crossover_min`` and ``crossover_max``.
+* the frequency requirements ``reference_band``, ``crossover_min`` and ``crossover_max``;
+* the ``[disturbance]`` ``band``.
 
 ``tf`` and ``ss`` coefficients are always in the Laplace variable s in rad/s and are never
 converted.  Times (``ti``, ``td``, ``delay``, ``settling_time``, ``rise_time``,
@@ -41,13 +42,13 @@ from ..lti import Zpk
 from .bounds import MAX_STAGES, MAX_VARIANTS, Block, check_loop
 from .forms import FORMS, Table, read_form
 from .frd import read_frd
-from .model import Design, PlantVariant, Requirements, Sampling, Stage, Waiver
+from .model import Design, Disturbance, PlantVariant, Requirements, Sampling, Stage, Waiver
 from .sampling import read_controller_stage, read_sampling
 
 __all__ = ["load_design", "parse_design"]
 
 _TOP = ("design", "plant", "controller", "sensor", "requirements", "limits", "waivers",
-        "sampling")
+        "sampling", "disturbance")
 _FRD_HINT = ("a measured frequency response (frd) is accepted for the plant and its "
              "variants only; give the sensor as a tf, zpk or ss model")
 #: Keys that describe what a measured response cannot show: declared poles.
@@ -72,6 +73,12 @@ _REQUIREMENTS: dict[str, tuple[str, float, bool, float | None, bool]] = {
     "crossover_max": ("frequency", 0.0, True, None, False),
     "step_error": ("", 0.0, False, None, False),
     "ramp_error": ("", 0.0, False, None, False),
+    # Load disturbance, noise and effort (in the units of the disturbed / actuator signal).
+    "disturbance_peak": ("", 0.0, True, None, False),
+    "disturbance_iae": ("", 0.0, True, None, False),
+    "disturbance_recovery_time": ("s", 0.0, True, None, False),
+    "noise_gain_max": ("", 0.0, True, None, False),
+    "actuator_limit": ("", 0.0, True, None, False),
 }
 _LIMIT_KEYS = ("min", "max", "warn_min", "warn_max")
 
@@ -156,6 +163,7 @@ def _parse(text: str, path: str, sha256: str) -> Design:
         else Requirements()
     limits = _limits(_table(top, "limits")) if "limits" in data else MappingProxyType({})
     waivers = _waivers(top, tuple(v.name for v in variants)) if "waivers" in data else ()
+    disturbance = _disturbance(_table(top, "disturbance")) if "disturbance" in data else None
 
     _check_sizes(top, variants, controller)
     for variant in variants:
@@ -177,6 +185,7 @@ def _parse(text: str, path: str, sha256: str) -> Design:
         rule_limits=limits,
         waivers=waivers,
         sampling=sampling,
+        disturbance=disturbance,
     )
 
 
@@ -366,6 +375,16 @@ def _requirements(t: Table) -> Requirements:
         settling_band=values.get("settling_band"),
         values=MappingProxyType(dict(sorted(values.items()))),
     )
+
+
+# ---------------------------------------------------------------------- disturbance
+def _disturbance(t: Table) -> Disturbance:
+    """``[disturbance]``: where a step load enters, its size and its frequency band."""
+    t.check_keys(("at", "size", "band"))
+    at = t.choice("at", ("plant_input", "plant_output"), default="plant_input")
+    size = t.number("size", nonzero=True, default=1.0)
+    band = t.frequency("band") if t.has("band") else None
+    return Disturbance(at=at, size=size, band_rad_s=band)
 
 
 # ---------------------------------------------------------------------- limits and waivers

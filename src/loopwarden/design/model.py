@@ -81,6 +81,21 @@ class Sampling:
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
+class Disturbance:
+    """``[disturbance]``: a step load disturbance the loop must reject.
+
+    ``at`` is ``"plant_input"`` (a load added to the actuator signal, after the transport
+    delay) or ``"plant_output"`` (added to the plant output); ``size`` is the step height in
+    the units of that signal; ``band_rad_s`` the highest frequency of disturbance content
+    (``None``: the whole axis) for the |P·S| (|S|) peak.
+    """
+
+    at: str = "plant_input"
+    size: float = 1.0
+    band_rad_s: float | None = None
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
 class Waiver:
     rule: str
     reason: str
@@ -109,6 +124,7 @@ class Design:
         default_factory=lambda: MappingProxyType({}))   # [limits."rule.id"] min = ...
     waivers: tuple[Waiver, ...] = ()
     sampling: Sampling | None = None            # None: a continuous-time controller
+    disturbance: Disturbance | None = None      # None: no [disturbance] table
 
     def loop(self, variant: PlantVariant) -> Loop | DiscreteLoop:
         """The feedback loop of this design around one plant variant.

@@ -126,6 +126,8 @@ def _variant(a: LoopAnalysis, design: Design) -> dict[str, Any]:
         "frequency_coverage": plain(a.coverage),
         "not_applicable": dict(sorted(a.not_applicable.items())),
         "undecided": dict(sorted(a.undecided.items())),
+        "disturbance": plain(a.disturbance),
+        "effort": plain(a.effort),
     }
 
 

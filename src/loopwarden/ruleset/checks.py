@@ -120,6 +120,8 @@ class Check:
 
     def limit_unit(self, key: str, options: Mapping[str, float | str | bool]) -> str:
         """The unit of one limit key (``*_ratio`` keys compare a dimensionless factor)."""
+        if key.endswith("_recovery"):
+            return "s"
         return "x" if key.endswith("_ratio") else self.unit_for(options)
 
 
@@ -530,6 +532,96 @@ def slow_pair_tail(a: LoopAnalysis, rule: Rule, design: Design, *,
     return Measurement(value=t, text=text, details=details,
                        compare={"max": t, "warn_max": t, "max_ratio": ratio,
                                 "warn_max_ratio": ratio})
+
+
+# --------------------------------------------------------------------------- loads, noise, effort
+def _stable_for(a: LoopAnalysis, what: str) -> None:
+    if not a.stability.closed_loop_stable:
+        raise NotApplicable(f"the closed loop is unstable (see closed_loop_stability): no {what}")
+
+
+@_check("disturbance_rejection", unit="",
+        limits=(*UPPER, "max_iae", "warn_max_iae", "max_recovery",
+                "warn_max_recovery"),
+        summary="step load disturbance ([disturbance]): peak deviation of the output (max), "
+                "IAE = ∫|y| dt (max_iae) and recovery time (max_recovery, s); IE and "
+                "the |P·S| peak up to the disturbance band are reported")
+def disturbance_rejection(a: LoopAnalysis, rule: Rule, design: Design, *,
+                          baseline: LoopAnalysis | None = None) -> Measurement:
+    dist = design.disturbance
+    if dist is None:
+        raise NotApplicable("the design has no [disturbance] table (where a load enters and "
+                            "how large it is)")
+    _stable_for(a, "settled disturbance response")
+    d = a.disturbance
+    if d is None:
+        raise AnalysisError(a.errors.get("disturbance",
+                                         "the disturbance response was not computed"))
+    where = "plant input" if d.at == "plant_input" else "plant output"
+    when = f" at {fmt(d.peak_time_s, 's')}" if d.peak_time_s is not None else " (final value)"
+    gain = "|P·S|" if d.at == "plant_input" else "|S|"
+    upto = f" up to {_freq(d.band_rad_s)}" if d.band_rad_s is not None else ""
+    text = (f"load step {fmt(d.size)} at the {where}: peak deviation {fmt(d.peak)}{when}, "
+            f"IE {fmt(d.ie)}, IAE {fmt(d.iae)}, recovers within ±{fmt(d.recovery_level)} "
+            f"after {fmt(d.recovery_time_s, 's')}; {gain} peak {fmt(d.gain_peak)}{upto}")
+    if d.static_deviation != 0.0:
+        text += f"; static deviation {fmt(d.static_deviation)} (no integral action)"
+    if d.sampled:
+        text += " (at the sampling instants)"
+    return Measurement(
+        value=d.peak, text=text,
+        compare={"max": d.peak, "warn_max": d.peak, "max_iae": d.iae, "warn_max_iae": d.iae,
+                 "max_recovery": d.recovery_time_s,
+                 "warn_max_recovery": d.recovery_time_s},
+        details={"peak_time_s": d.peak_time_s, "ie": d.ie, "iae": d.iae,
+                 "recovery_time_s": d.recovery_time_s, "recovery_level": d.recovery_level,
+                 "static_deviation": d.static_deviation, "gain_peak": d.gain_peak,
+                 "gain_peak_rad_s": d.gain_peak_rad_s, "at": d.at})
+
+
+def _effort(a: LoopAnalysis):  # type: ignore[no-untyped-def]
+    if a.effort is None:
+        raise AnalysisError(a.errors.get("effort", "the noise and effort figures were not "
+                                                   "computed"))
+    return a.effort
+
+
+@_check("noise_sensitivity", unit="", limits=UPPER, needs_stable=True,
+        summary="peak of |K·S|, measurement noise to the actuator (K the controller); the "
+                "controller's high-frequency gain is reported")
+def noise_sensitivity(a: LoopAnalysis, rule: Rule, design: Design, *,
+                      baseline: LoopAnalysis | None = None) -> Measurement:
+    e = _effort(a)
+    at = ("as ω → ∞" if math.isinf(e.ks_peak_rad_s) else f"at {_freq(e.ks_peak_rad_s)}")
+    hf = "at the Nyquist frequency" if design.sampling is not None else "as ω → ∞"
+    text = (f"noise to actuator |K·S| peaks at {fmt(e.ks_peak)} {at}; controller gain "
+            f"{fmt(e.controller_hf_gain)} {hf}")
+    return Measurement(value=e.ks_peak, text=text, compare=dict.fromkeys(UPPER, e.ks_peak),
+                       details={"ks_peak_rad_s": e.ks_peak_rad_s,
+                                "controller_hf_gain": e.controller_hf_gain})
+
+
+@_check("control_effort", unit="", limits=UPPER,
+        summary="peak actuator signal |u| for the unit reference step and for the "
+                "[disturbance] step, against the actuator limit")
+def control_effort(a: LoopAnalysis, rule: Rule, design: Design, *,
+                   baseline: LoopAnalysis | None = None) -> Measurement:
+    _stable_for(a, "settled actuator signal")
+    e = _effort(a)
+    if e.u_peak_step is None:
+        raise AnalysisError(a.errors.get("effort", "the actuator signal was not computed"))
+    peaks = {"reference step": e.u_peak_step}
+    if e.u_peak_disturbance is not None:
+        peaks["disturbance step"] = e.u_peak_disturbance
+    worst_name = max(peaks, key=lambda k: peaks[k])
+    worst = peaks[worst_name]
+    text = "peak |u| " + ", ".join(f"{fmt(v)} for the {k}" for k, v in peaks.items())
+    if design.disturbance is None:
+        text += " (no [disturbance] table: reference step only)"
+    return Measurement(value=worst, text=text, compare=dict.fromkeys(UPPER, worst),
+                       details={"u_peak_step": e.u_peak_step,
+                                "u_peak_disturbance": e.u_peak_disturbance,
+                                "worst": worst_name})
 
 
 # --------------------------------------------------------------------------- boost stages

@@ -84,6 +84,11 @@ REQUIREMENT_TARGETS: dict[str, tuple[Target, ...]] = {
     # The boost must help by 3 dB across the reference band (fail) and by 2x (warn).
     "reference_band": (Target("boost_band", ("min", "warn_min")),),
     "system_type": (Target("system_type", ("min",)),),
+    "disturbance_peak": (Target("disturbance_rejection", ("max",)),),
+    "disturbance_iae": (Target("disturbance_rejection", ("max_iae",)),),
+    "disturbance_recovery_time": (Target("disturbance_rejection", ("max_recovery",)),),
+    "noise_gain_max": (Target("noise_sensitivity", ("max",)),),
+    "actuator_limit": (Target("control_effort", ("max",)),),
     "step_error": (Target("error_constant", ("max",), when=_which("step_error")),
                    Target("error_constant", ("min",), when=_which("kp"),
                           convert=lambda e: math.inf if e == 0.0 else 1.0 / e - 1.0)),
@@ -354,7 +359,7 @@ def evaluate_rule(rule: Rule, lim: Mapping[str, Limit], analysis: LoopAnalysis,
         details[f"{part}.status"] = part_status.value
     limit = lim[key]
     measured = m.compare[key]
-    if key.endswith("_ratio"):
+    if key.endswith(("_ratio", "_recovery")):
         unit = check.limit_unit(key, rule.options)
     message = f"{m.text}: {phrase}"
     return _finding(rule, variant, status, message, unit=unit, measured=measured,
