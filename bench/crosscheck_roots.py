@@ -194,6 +194,9 @@ def gen_sampled(rng, i) -> Spec:
     z = _round(wc / rng.uniform(5.0, 50.0), 3)
     p = _round(z / rng.uniform(3.0, 12.0), 3)
     cd = int(rng.integers(0, 2))
+    # A loop gain below 1 at DC has no gain crossover (lag_phase_budget rightly n/a): keep
+    # the DC loop gain k·K·β at 1.5 or more.
+    k = _round(max(k, 1.5 * p / (kpl * z)))
     if i % 2:
         zq, pq = math.exp(-z * period), math.exp(-p * period)
         stages = [("gain", k), ("ztf", [1.0, -zq], [1.0, -pq])]
