@@ -109,3 +109,34 @@ def test_sampled_slow_integral_alternative_is_decided() -> None:
     assert a.stability.closed_loop_stable
     assert "integral_alternative" not in a.errors
     assert a.integral_alternatives
+
+
+def test_long_delay_lag_loop_certified_after_search_line_retreat() -> None:
+    """bench "delay lag 3" at 1.03× its critical gain (a 22 s delay over a 1.1 s lag):
+    right of the first search line (σT = 4) the argument principle counts 363 roots
+    [derived: the bench's own winding count agrees], more than the generator's size limit
+    resolves, so the loop was "not certified".  The line now retreats to σ = 0.0907 rad/s,
+    where the bench's independent winding counts 51 roots [derived].  Reference verdict: 2
+    roots right of the axis, 0.0012845493274 ± 0.1350452345257j (winding count and
+    mpmath.findroot on F(s) = D(s) + N(s)·e^{−sT}) [derived]."""
+    import numpy as np
+
+    from loopwarden.analysis.stability import closed_loop_stability
+    from loopwarden.lti import Loop, Zpk
+
+    one = Zpk(np.zeros(0), np.zeros(0), 1.0)
+    loop = Loop(plant=Zpk(np.zeros(0), np.array([-0.9066183136899365]), 0.4771532184950136),
+                controller=Zpk(np.array([-0.002419]), np.array([-0.0002326]), 1.97833),
+                sensor=one, delay_s=22.05)
+    st = closed_loop_stability(loop)
+    assert st.certified, st.note
+    assert not st.closed_loop_stable
+    assert st.unstable_roots_counted == 2
+    poles = np.asarray(st.closed_loop_poles)
+    assert poles.size == st.roots_right_of_search_counted
+    if st.search_abscissa_rad_s == pytest.approx(0.09070294784580499, rel=1e-12):
+        assert st.roots_right_of_search_counted == 51
+    rhp = poles[poles.real > 0]
+    ref = complex(0.001284549327427845, 0.13504523452572603)
+    assert rhp.size == 2
+    assert np.min(np.abs(rhp - ref)) <= 1e-6 * abs(ref)
