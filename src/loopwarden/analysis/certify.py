@@ -43,9 +43,6 @@ SEARCH_FACTOR = 3.0
 #: ... but no further than σ·T = this: the number of roots right of the line grows like
 #: e^{σT}, and the roots that decide settling and tails lie well inside it.
 MAX_SEARCH_DELAY_PRODUCT = 4.0
-#: Times the search line may move halfway to the axis when its roots outnumber what the
-#: generator's size limit resolves.
-SEARCH_RETREATS = 3
 #: Iterations of the polish for a delay loop's seeds.
 DELAY_ITERATIONS = 60
 #: Two polished roots closer than this (relative) are one root found twice.
@@ -168,30 +165,12 @@ def delay_roots(loop: Loop) -> RootSearch:
     The line is fixed first (clear of the open-loop poles) and the argument principle
     counts the roots right of it; the discretisation is then refined (more Chebyshev
     nodes) until as many polished roots are found there, or its size limit is reached.
-    When the limit is reached first (a long delay over a slowly decaying R puts hundreds
-    of roots right of the line), the line is moved halfway to the axis, up to
-    ``SEARCH_RETREATS`` times: the number of roots right of it falls like e^{σT} while the
-    dominant and slow roots stay inside.  The caller compares the two numbers.
+    The caller compares the two numbers.
     """
-    fn = char_function(loop)
-    sigma = _gap(search_abscissa(loop), fn.poles)
-    found, counted, iterations = _search_right_of(loop, fn, sigma)
-    for _ in range(SEARCH_RETREATS):
-        if found.size >= counted:
-            break
-        trial = _gap(0.5 * sigma, fn.poles)
-        t_found, t_counted, it = _search_right_of(loop, fn, trial)
-        iterations += it
-        sigma, found, counted = trial, t_found, t_counted
-    return RootSearch(roots=found, iterations=iterations,
-                      search_abscissa_rad_s=sigma, counted_right_of_search=counted)
-
-
-def _search_right_of(loop: Loop, fn: CharFunction, sigma: float,
-                     ) -> tuple[ComplexArray, int, int]:
-    """(roots found right of ``Re s = −σ``, the argument principle's count, iterations)."""
     from .roots import _conjugate_pairs
 
+    fn = char_function(loop)
+    sigma = _gap(search_abscissa(loop), fn.poles)
     counted, _ = count_right_of(fn, sigma)
     n_states = max(1, fn.poles.size)
     found = np.zeros(0, dtype=complex)
@@ -214,7 +193,8 @@ def _search_right_of(loop: Loop, fn: CharFunction, sigma: float,
         if found.size >= counted or n_states * (2 * nodes + 1) > MAX_GENERATOR_SIZE:
             break
         nodes *= 2
-    return _conjugate_pairs(found), counted, iterations
+    return RootSearch(roots=_conjugate_pairs(found), iterations=iterations,
+                      search_abscissa_rad_s=sigma, counted_right_of_search=counted)
 
 
 # --------------------------------------------------------------------------- slow region
