@@ -63,6 +63,26 @@ def write_case(i: int, seed: int, folder: Path, pdf_fraction: float = 0.1) -> li
     return args
 
 
+def _names_file_and_key(err: list[str], folder: Path) -> bool:
+    """Whether an exit-2 message names the input file and, after it, a table/key or line.
+
+    The message reads ``loopwarden: error: FILE: WHERE: what``: FILE is the design or the
+    rule set of the case, WHERE a non-empty place (``plant.num[2]``, ``line 3``...).
+    """
+    prefix = "loopwarden: error: "
+    lines = [line for line in err if line.startswith(prefix)]
+    if not lines:
+        return False
+    msg = lines[-1][len(prefix):]
+    for name in ("design.toml", "rules.toml", "spindle_sweep.csv"):
+        path = str(folder / name) + ": "
+        if msg.startswith(path):
+            rest = msg[len(path):]
+            where, sep, what = rest.partition(": ")
+            return bool(sep and where.strip() and what.strip())
+    return False
+
+
 def _child(args: list[str], folder: Path, limit_bytes: int) -> None:
     """In the forked child: run the command line with stdout/stderr to files; exit."""
     code = 99
@@ -117,6 +137,7 @@ def main() -> int:
     slow: list[tuple[float, int]] = []
     big: list[tuple[int, int]] = []
     wrote_on_2: list[int] = []
+    unnamed_2: list[tuple[int, str]] = []
     stats: list[tuple[float, int, int]] = []
     t_start = time.monotonic()
 
@@ -144,6 +165,8 @@ def main() -> int:
                 internal.append((i, f"exit {code}: " + (err[-1] if err else "")[:300]))
             if code == 2 and any((folder / "out").iterdir()):
                 wrote_on_2.append(i)
+            if code == 2 and not _names_file_and_key(err, folder):
+                unnamed_2.append((i, (err[-1] if err else "")[:300]))
             if opts.case is not None:
                 print((folder / "stderr").read_text(errors="replace"))
                 print(f"case {i}: exit {code}, {dt_s:.1f} s, {rss / 1024:.0f} MB, {folder}")
@@ -180,6 +203,9 @@ def main() -> int:
     print(f"runs over 2 GB: {len(big)}  "
           + ", ".join(f"case {i} {kb / 1024:.0f} MB" for kb, i in sorted(big, reverse=True)))
     print(f"exit 2 with a file written: {len(wrote_on_2)} {wrote_on_2[:10]}")
+    print(f"exit 2 whose message does not name the input file and a key: {len(unnamed_2)}")
+    for i, msg in unnamed_2[:20]:
+        print(f"  case {i}: {msg}")
     if stats:
         stats.sort()
         print("slowest: " + ", ".join(f"case {i} {t:.1f} s" for t, _, i in stats[-5:][::-1]))
@@ -189,7 +215,7 @@ def main() -> int:
               f"(case {by_mem[-1][2]})")
     if opts.case is None:
         shutil.rmtree(base, ignore_errors=True)
-    return 1 if internal or slow or big or wrote_on_2 else 0
+    return 1 if internal or slow or big or wrote_on_2 or unnamed_2 else 0
 
 
 if __name__ == "__main__":
