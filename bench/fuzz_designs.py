@@ -139,6 +139,7 @@ def main() -> int:
     wrote_on_2: list[int] = []
     unnamed_2: list[tuple[int, str]] = []
     stats: list[tuple[float, int, int]] = []
+    cpu: list[tuple[float, int]] = []       # CPU seconds (user + system) of each run
     t_start = time.monotonic()
 
     def reap(block: bool) -> None:
@@ -156,6 +157,7 @@ def main() -> int:
             codes[code] += 1
             rss = usage.ru_maxrss
             stats.append((dt_s, rss, i))
+            cpu.append((usage.ru_utime + usage.ru_stime, i))
             if dt_s > SLOW_S:
                 slow.append((dt_s, i))
             if rss > BIG_KB:
@@ -209,6 +211,9 @@ def main() -> int:
     if stats:
         stats.sort()
         print("slowest: " + ", ".join(f"case {i} {t:.1f} s" for t, _, i in stats[-5:][::-1]))
+        cpu.sort()
+        print("most CPU (user + system; wall time counts waiting on a loaded machine): "
+              + ", ".join(f"case {i} {t:.1f} s" for t, i in cpu[-5:][::-1]))
         by_mem = sorted(stats, key=lambda s: s[1])
         median_mb, max_mb = by_mem[n // 2][1] / 1024, by_mem[-1][1] / 1024
         print(f"peak memory: median {median_mb:.0f} MB, max {max_mb:.0f} MB "
