@@ -122,6 +122,13 @@ def main() -> int:
                    help="fraction of the cases that also write the PDF (default 0.1)")
     opts = p.parse_args()
 
+    # Single-threaded BLAS, as the command line sets it before numpy loads (cli.main):
+    # numpy imported here first would otherwise start a BLAS thread pool that every forked
+    # child inherits, and on a busy 2-core machine its spinning threads multiplied the
+    # CPU time of a run several-fold (seed 777 case 568: over 25 s against 4 s from the
+    # command line).
+    for name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ.setdefault(name, "1")
     # Import the numerical stack once, before forking (a child starts warm).
     import loopwarden.analysis.time_response  # noqa: F401
     import loopwarden.cli  # noqa: F401
