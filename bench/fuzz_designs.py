@@ -63,6 +63,26 @@ def write_case(i: int, seed: int, folder: Path, pdf_fraction: float = 0.1) -> li
     return args
 
 
+def _names_file_and_key(err: list[str], folder: Path) -> bool:
+    """Whether an exit-2 message names the input file and, after it, a table/key or line.
+
+    The message reads ``loopwarden: error: FILE: WHERE: what``: FILE is the design or the
+    rule set of the case, WHERE a non-empty place (``plant.num[2]``, ``line 3``...).
+    """
+    prefix = "loopwarden: error: "
+    lines = [line for line in err if line.startswith(prefix)]
+    if not lines:
+        return False
+    msg = lines[-1][len(prefix):]
+    for name in ("design.toml", "rules.toml", "spindle_sweep.csv"):
+        path = str(folder / name) + ": "
+        if msg.startswith(path):
+            rest = msg[len(path):]
+            where, sep, what = rest.partition(": ")
+            return bool(sep and where.strip() and what.strip())
+    return False
+
+
 def _child(args: list[str], folder: Path, limit_bytes: int) -> None:
     """In the forked child: run the command line with stdout/stderr to files; exit."""
     code = 99
@@ -102,6 +122,13 @@ def main() -> int:
                    help="fraction of the cases that also write the PDF (default 0.1)")
     opts = p.parse_args()
 
+    # Single-threaded BLAS, as the command line sets it before numpy loads (cli.main):
+    # numpy imported here first would otherwise start a BLAS thread pool that every forked
+    # child inherits, and on a busy 2-core machine its spinning threads multiplied the
+    # CPU time of a run several-fold (seed 777 case 568: over 25 s against 4 s from the
+    # command line).
+    for name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ.setdefault(name, "1")
     # Import the numerical stack once, before forking (a child starts warm).
     import loopwarden.analysis.time_response  # noqa: F401
     import loopwarden.cli  # noqa: F401
@@ -117,7 +144,9 @@ def main() -> int:
     slow: list[tuple[float, int]] = []
     big: list[tuple[int, int]] = []
     wrote_on_2: list[int] = []
+    unnamed_2: list[tuple[int, str]] = []
     stats: list[tuple[float, int, int]] = []
+    cpu: list[tuple[float, int]] = []       # CPU seconds (user + system) of each run
     t_start = time.monotonic()
 
     def reap(block: bool) -> None:
@@ -135,6 +164,7 @@ def main() -> int:
             codes[code] += 1
             rss = usage.ru_maxrss
             stats.append((dt_s, rss, i))
+            cpu.append((usage.ru_utime + usage.ru_stime, i))
             if dt_s > SLOW_S:
                 slow.append((dt_s, i))
             if rss > BIG_KB:
@@ -144,6 +174,8 @@ def main() -> int:
                 internal.append((i, f"exit {code}: " + (err[-1] if err else "")[:300]))
             if code == 2 and any((folder / "out").iterdir()):
                 wrote_on_2.append(i)
+            if code == 2 and not _names_file_and_key(err, folder):
+                unnamed_2.append((i, (err[-1] if err else "")[:300]))
             if opts.case is not None:
                 print((folder / "stderr").read_text(errors="replace"))
                 print(f"case {i}: exit {code}, {dt_s:.1f} s, {rss / 1024:.0f} MB, {folder}")
@@ -180,16 +212,22 @@ def main() -> int:
     print(f"runs over 2 GB: {len(big)}  "
           + ", ".join(f"case {i} {kb / 1024:.0f} MB" for kb, i in sorted(big, reverse=True)))
     print(f"exit 2 with a file written: {len(wrote_on_2)} {wrote_on_2[:10]}")
+    print(f"exit 2 whose message does not name the input file and a key: {len(unnamed_2)}")
+    for i, msg in unnamed_2[:20]:
+        print(f"  case {i}: {msg}")
     if stats:
         stats.sort()
         print("slowest: " + ", ".join(f"case {i} {t:.1f} s" for t, _, i in stats[-5:][::-1]))
+        cpu.sort()
+        print("most CPU (user + system; wall time counts waiting on a loaded machine): "
+              + ", ".join(f"case {i} {t:.1f} s" for t, i in cpu[-5:][::-1]))
         by_mem = sorted(stats, key=lambda s: s[1])
         median_mb, max_mb = by_mem[n // 2][1] / 1024, by_mem[-1][1] / 1024
         print(f"peak memory: median {median_mb:.0f} MB, max {max_mb:.0f} MB "
               f"(case {by_mem[-1][2]})")
     if opts.case is None:
         shutil.rmtree(base, ignore_errors=True)
-    return 1 if internal or slow or big or wrote_on_2 else 0
+    return 1 if internal or slow or big or wrote_on_2 or unnamed_2 else 0
 
 
 if __name__ == "__main__":

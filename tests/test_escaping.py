@@ -170,3 +170,21 @@ def test_batch_summary_escapes_design_names(tmp_path: Path) -> None:
     row = next(line for line in text.splitlines() if "&lt;img" in line)
     assert row.replace("\\|", "").count(" | ") == 6          # seven cells
     assert "`a.json`" in row
+
+
+def test_markdown_alternative_section_escapes_the_sizing_variant() -> None:
+    # The conveyor axis has a lag stage, so the review carries an integral-action
+    # alternative whose gain one plant variant sets; both variants carry hostile names.
+    text = (Path(__file__).resolve().parents[1] / "sample_designs" / "conveyor_axis.toml"
+            ).read_text(encoding="utf-8")
+    bad = "\\u001b]0;t\\u0007 <b>x</b> `c`"
+    text = text.replace('name = "heavy load"', f'name = "heavy {bad}"', 1)
+    text = text.replace('name = "light load"', f'name = "light {bad}"', 1)
+    review = run_review(parse_design(text, "conveyor.toml"), "general", today="2025-02-02",
+                        tool_version="t")
+    sizing = {alt.sizing_variant for a in review.analyses for alt in a.integral_alternatives}
+    assert any(v and "\x1b" in v for v in sizing)        # the hostile name sets the gain
+    out = markdown.render(review).decode("utf-8")
+    assert "## Integral-action alternative" in out
+    assert not any(c in out for c in _CONTROL)
+    assert "<b>" not in out

@@ -352,3 +352,15 @@ def test_pdf_of_a_loop_with_an_infinite_sensitivity_peak(tmp_path):
     doc = json.loads((tmp_path / "r.json").read_text(encoding="utf-8"))
     assert doc["variants"][0]["margins"]["peak_sensitivity"] == "inf"
     assert (tmp_path / "r.pdf").stat().st_size > 0
+
+
+def test_measurement_fifo_message_names_the_design_file_key_and_csv(tmp_path):
+    # The key that names the CSV lives in the design: the message names both files.
+    os.mkfifo(tmp_path / "sweep.csv")
+    frd = ('frd = { file = "sweep.csv", magnitude_unit = "db", phase_unit = "deg" }')
+    path = tmp_path / "d.toml"
+    path.write_text(design(plant=frd), encoding="utf-8")
+    with pytest.raises(DesignError) as info:
+        load_design(path)
+    assert info.value.file == str(path) and info.value.where == "plant.frd.file"
+    assert "sweep.csv" in info.value.what and "named pipe" in info.value.what

@@ -22,7 +22,14 @@ from collections.abc import Callable
 from ..errors import AnalysisError
 from .results import Margins
 
-__all__ = ["stabilising_margins"]
+__all__ = ["MAX_PROBES", "stabilising_margins"]
+
+#: Most gain ranges counted, nearest to the present gain first (the first stable one is
+#: the nearest).  A delay loop has a phase crossing every 2π/delay rad/s up to the top of
+#: its grid (hundreds), each range one Nyquist count; when none of the nearest MAX_PROBES
+#: is stable, only the end ranges (k -> 0, k -> ∞) are counted as well, and a stable one
+#: of them is reported instead of a possibly nearer range among those not counted.
+MAX_PROBES = 32
 
 
 def stabilising_margins(margins: Margins, unstable_count: Callable[[float], int]) -> Margins:
@@ -42,7 +49,7 @@ def stabilising_margins(margins: Margins, unstable_count: Callable[[float], int]
         closest to 1 (negative: reduce the gain), ``phase_crossover_rad_s`` where it is
         met, ``gain_margin_lower_db`` None and ``stable_gain_range_db`` the whole range
         (±inf where it reaches k = 0 or ∞).  Unchanged, with ``stable_gain_found`` False,
-        when no positive gain is stable.
+        when no positive gain is stable (of the ranges counted, see :data:`MAX_PROBES`).
     """
     edges = sorted({(1.0 / pc.magnitude, pc.frequency_rad_s) for pc in margins.phase_crossings
                     if 0.0 < pc.magnitude < math.inf})
@@ -50,8 +57,21 @@ def stabilising_margins(margins: Margins, unstable_count: Callable[[float], int]
         return dataclasses.replace(margins, stable_gain_found=False)
     ks = [0.0, *(k for k, _ in edges), math.inf]
     freqs = [None, *(w for _, w in edges), None]
-    best: tuple[float, int] | None = None
-    for i in range(len(ks) - 1):
+
+    def distance(i: int) -> float:
+        # distance (in |log10 k|) from the present gain to the range (ks[i], ks[i + 1])
+        near = ks[i + 1] if ks[i + 1] < 1.0 else ks[i]
+        return abs(math.log10(near)) if 0.0 < near < math.inf else math.inf
+
+    # Nearest range first: the first stable one is the answer, so a delay loop with
+    # hundreds of phase crossings (one Nyquist count each) stops after a few counts.
+    # Beyond MAX_PROBES only the two end ranges (k -> 0, k -> inf) are still counted.
+    order = sorted(range(len(ks) - 1), key=lambda i: (distance(i), i))
+    if len(order) > MAX_PROBES:
+        order = order[:MAX_PROBES] + [i for i in (0, len(ks) - 2)
+                                      if i not in order[:MAX_PROBES]]
+    best: int | None = None
+    for i in order:
         lo, hi = ks[i], ks[i + 1]
         probe = hi / 2.0 if lo == 0.0 else 2.0 * lo if hi == math.inf else math.sqrt(lo * hi)
         try:
@@ -59,14 +79,11 @@ def stabilising_margins(margins: Margins, unstable_count: Callable[[float], int]
                 continue
         except AnalysisError:
             continue
-        # distance (in |dB|) from the present gain to this range
-        near = hi if hi < 1.0 else lo
-        dist = abs(math.log10(near)) if 0.0 < near < math.inf else math.inf
-        if best is None or dist < best[0]:
-            best = (dist, i)
+        best = i
+        break
     if best is None:
         return dataclasses.replace(margins, stable_gain_found=False)
-    i = best[1]
+    i = best
     lo, hi = ks[i], ks[i + 1]
     if hi < 1.0:
         near, w, far = hi, freqs[i + 1], lo

@@ -158,8 +158,10 @@ def read_frd(t: Table, design_path: str, *, unstable_poles: int, integrators: in
                          hint_missing=f"{t.at('file')} is read relative to the design "
                                       "file")
     except DesignError as exc:
-        raise DesignError(exc.what, file=exc.file, where=t.at("file"),
-                          hint=exc.hint) from None
+        # named as the design file's key, with the CSV it names: "d.toml: plant.frd.file:
+        # sweep.csv: is a named pipe ..."
+        raise DesignError(f"{exc.file}: {exc.what}" if exc.file else exc.what,
+                          file=design_path, where=t.at("file"), hint=exc.hint) from None
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:

@@ -91,10 +91,11 @@ def _alternatives(review: Review) -> list[str]:
         first = rows[0][1]
         name = next((s.name for s in review.design.controller if s.index == index),
                     f"controller[{index}]")
-        lines += ["", f"## Integral-action alternative to {name}", "",
+        lines += ["", f"## Integral-action alternative to {_line(name)}", "",
                   f"The stage's pole moved to the origin and one overall gain factor "
                   f"x{fmt(first.gain_factor)} for every plant variant"
-                  + (f" (set by '{first.sizing_variant}')" if first.sizing_variant else "")
+                  + (f" (set by '{_line(first.sizing_variant)}')" if first.sizing_variant
+                     else "")
                   + f"; phase-margin target {fmt(first.target_phase_margin_deg, 'deg')}"
                   + ("" if first.meets_target else " (not reachable: best margin used)")
                   + ".", "",
