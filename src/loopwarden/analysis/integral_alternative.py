@@ -248,7 +248,9 @@ class _GainSearch:
                 if not discrete_stability(loop).closed_loop_stable:
                     return False, None
                 return True, compute_discrete_margins(loop).phase_margin_deg
-            if not closed_loop_stability(loop).closed_loop_stable:
+            # The search needs the verdict only (the Nyquist count); the chosen gain's
+            # loop gets its certified roots in _review.
+            if not closed_loop_stability(loop, find_roots=False).closed_loop_stable:
                 return False, None
             return True, compute_margins(loop).phase_margin_deg
         if not self._stable(k):

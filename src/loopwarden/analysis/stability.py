@@ -349,7 +349,7 @@ def nyquist_count(loop: Loop) -> NyquistCount:
     )
 
 
-def _nyquist_stability(loop: Loop) -> Stability:
+def _nyquist_stability(loop: Loop, find_roots: bool = True) -> Stability:
     full = loop.rational
     rhp_ol, axis_ol = open_loop_pole_counts(full)
     if full.relative_degree < 0 or (full.relative_degree == 0 and abs(full.gain) >= 1.0):
@@ -364,7 +364,10 @@ def _nyquist_stability(loop: Loop) -> Stability:
         )
     nc = nyquist_count(loop)
     marginal = nc.min_return_difference <= MARGINAL_RETURN_DIFFERENCE or nc.hidden_axis_modes > 0
-    roots, extra = _delay_root_fields(loop, nc.rhp_closed_loop_poles, marginal)
+    if find_roots:
+        roots, extra = _delay_root_fields(loop, nc.rhp_closed_loop_poles, marginal)
+    else:
+        roots, extra = (), {"problems": []}
     parts = [f"Nyquist count on the D-contour ({nc.contour_points} points): "
              f"N = {nc.clockwise_encirclements} clockwise encirclements of −1, "
              f"P = {nc.open_loop_rhp_poles}, Z = N + P = {nc.rhp_closed_loop_poles}"]
@@ -423,7 +426,7 @@ def _delay_root_fields(loop: Loop, rhp_counted: int, marginal: bool,
     }
 
 
-def closed_loop_stability(loop: Loop) -> Stability:
+def closed_loop_stability(loop: Loop, *, find_roots: bool = True) -> Stability:
     """Closed-loop stability of the loop: eigenvalues when rational, Nyquist with a delay.
 
     Returns
@@ -432,8 +435,10 @@ def closed_loop_stability(loop: Loop) -> Stability:
         ``closed_loop_stable`` is True only when every closed-loop root lies in the open
         left half-plane; a root on the imaginary axis sets ``marginal`` (and is not
         stable).  ``rhp_closed_loop_poles`` is None for a neutral delay loop, whose count
-        is not finite.
+        is not finite.  With ``find_roots=False`` a delay loop is decided by the Nyquist
+        count alone and lists no roots (for searches over many gains; the review itself
+        always certifies the roots).
     """
     if loop.has_delay:
-        return _nyquist_stability(loop)
+        return _nyquist_stability(loop, find_roots)
     return _pole_stability(loop)
