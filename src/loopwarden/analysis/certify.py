@@ -27,6 +27,7 @@ from .roots import (
     MAX_GENERATOR_SIZE,
     CharFunction,
     char_function,
+    conjugate_pairs,
     count_outside_circle,
     count_right_of,
     delay_seeds,
@@ -167,8 +168,6 @@ def delay_roots(loop: Loop) -> RootSearch:
     nodes) until as many polished roots are found there, or its size limit is reached.
     The caller compares the two numbers.
     """
-    from .roots import _conjugate_pairs
-
     fn = char_function(loop)
     sigma = _gap(search_abscissa(loop), fn.poles)
     counted, _ = count_right_of(fn, sigma)
@@ -193,7 +192,7 @@ def delay_roots(loop: Loop) -> RootSearch:
         if found.size >= counted or n_states * (2 * nodes + 1) > MAX_GENERATOR_SIZE:
             break
         nodes *= 2
-    return RootSearch(roots=_conjugate_pairs(found), iterations=iterations,
+    return RootSearch(roots=conjugate_pairs(found), iterations=iterations,
                       search_abscissa_rad_s=sigma, counted_right_of_search=counted)
 
 

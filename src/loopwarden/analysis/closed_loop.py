@@ -185,19 +185,25 @@ def closed_loop(loop: Loop) -> StateSpace:
     AnalysisError
         When the loop is not well posed (``1 + L(∞) = 0``).
     """
-    sp = delay_split(loop)
-    # Close w = u: u = Cu x + Dur r + Duw u  →  u = (Cu x + Dur r) / (1 − Duw)
+    return close_split(delay_split(loop))
+
+
+def close_split(sp: StateSpace) -> StateSpace:
+    """Close ``w = u`` of a split loop (no delay): the system from its first input to
+    ``[y, u]``.  With the split of :func:`delay_split` the first input is r; the
+    disturbance analysis passes a split whose first input is the load."""
+    # u = Cu x + Du1 v + Duw u  →  u = (Cu x + Du1 v) / (1 − Duw)
     duw = sp.d[1, 1]
     if abs(1.0 - duw) < 1e-12:
         raise IllPosedLoopError("the loop is not well posed: 1 + L(∞) = 0")
     cu = sp.c[1:2, :] / (1.0 - duw)
-    dur = sp.d[1, 0] / (1.0 - duw)
+    du = sp.d[1, 0] / (1.0 - duw)
     bw = sp.b[:, 1:2]
-    A = sp.a + bw @ cu
-    B = sp.b[:, 0:1] + bw * dur
-    C = np.vstack([sp.c[0:1, :] + sp.d[0, 1] * cu, cu])
-    D = np.array([[sp.d[0, 1] * dur], [dur]])
-    return StateSpace(A, B, C, D)
+    a = sp.a + bw @ cu
+    b = sp.b[:, 0:1] + bw * du
+    c = np.vstack([sp.c[0:1, :] + sp.d[0, 1] * cu, cu])
+    d = np.array([[sp.d[0, 0] + sp.d[0, 1] * du], [du]])
+    return StateSpace(a, b, c, d)
 
 
 @_cached

@@ -88,12 +88,13 @@ def _blocks(design: Design, loop: DiscreteLoop) -> list[tuple[str, Zpk]]:
 
 def _stabilising(loop: DiscreteLoop, marg: Margins) -> Margins:
     """Gain margin of an unstable sampled loop: the change to a stable gain range."""
+    from .discrete_response import COUNT_RADIUS_MARGIN
     from .roots import count_outside_circle, z_char_function
     from .stabilising_gain import stabilising_margins
 
     def unstable(k: float) -> int:
         fn = z_char_function(loop.rational.scaled(k))
-        return count_outside_circle(fn, 1.0 + 1e-7)[0]
+        return count_outside_circle(fn, 1.0 + COUNT_RADIUS_MARGIN)[0]
 
     return stabilising_margins(marg, unstable)
 

@@ -37,6 +37,7 @@ from .closed_loop import (
     StateSpace,
     _controller_blocks,
     _realise_chain,
+    close_split,
     closed_loop_poles,
     delay_split,
 )
@@ -102,21 +103,6 @@ def disturbance_split(loop: Loop, at: str) -> StateSpace:
     return StateSpace(sp.a, b, sp.c, d)
 
 
-def _close(sp: StateSpace) -> StateSpace:
-    """Close ``w = u`` (no delay): the system from the first input to ``[y, u]``."""
-    duw = sp.d[1, 1]
-    if abs(1.0 - duw) < 1e-12:
-        raise IllPosedLoopError("the loop is not well posed: 1 + L(∞) = 0")
-    cu = sp.c[1:2, :] / (1.0 - duw)
-    du = sp.d[1, 0] / (1.0 - duw)
-    bw = sp.b[:, 1:2]
-    a = sp.a + bw @ cu
-    b = sp.b[:, 0:1] + bw * du
-    c = np.vstack([sp.c[0:1, :] + sp.d[0, 1] * cu, cu])
-    d = np.array([[sp.d[0, 0] + sp.d[0, 1] * du], [du]])
-    return StateSpace(a, b, c, d)
-
-
 def disturbance_transfer(loop: Loop, at: str) -> Zpk:
     """``P·S`` (plant input) or ``S`` (plant output), delay-free, in zpk form.
 
@@ -163,7 +149,7 @@ def load_response(loop: Loop, at: str, size: float, band: float, band_rad_s: flo
         raise AnalysisError(f"settling band must be positive, got {band}")
     if not loop.has_delay and np.max(closed_loop_poles(loop).real, initial=-1.0) >= 0:
         raise AnalysisError("the closed loop is not stable: no disturbance response")
-    cl = _close(disturbance_split(loop, at))
+    cl = close_split(disturbance_split(loop, at))
     y_resp = RationalResponse(cl.a, cl.b, cl.c[0:1], float(cl.d[0, 0]))
     u_resp = RationalResponse(cl.a, cl.b, cl.c[1:2], float(cl.d[1, 0]))
     try:

@@ -41,6 +41,7 @@ from ..lti import ComplexArray, FloatArray, Loop, Zpk
 __all__ = [
     "CharFunction",
     "char_function",
+    "conjugate_pairs",
     "count_outside_circle",
     "count_right_of",
     "delay_seeds",
@@ -115,10 +116,6 @@ class CharFunction:
             g = np.exp(np.where(big, -lg, lg))             # 1/L where |L| > 1, else L
             dlog = np.where(big, (a * g + b) / (g + 1.0), (a + g * b) / (1.0 + g))
             return 1.0 / dlog
-
-    def return_difference(self, s: ComplexArray) -> FloatArray:
-        """``|1 + L(s)|`` (``inf`` where L overflows)."""
-        return np.abs(1.0 + self.loop(s))
 
     def hidden_modes(self) -> ComplexArray:
         """Poles of L cancelled exactly (1e−9 relative) by its zeros: roots of f at which
@@ -272,7 +269,7 @@ def polish(fn: CharFunction, seeds: ComplexArray, *,
         active[idx[done]] = False
         if not active.any():
             break
-    return _conjugate_pairs(x), it
+    return conjugate_pairs(x), it
 
 
 #: Where |ln |L|| exceeds this, the polish steps on ln(−L) instead of on f.
@@ -296,7 +293,7 @@ def _log_newton(fn: CharFunction, x: ComplexArray, ratio: ComplexArray) -> NDArr
     return far
 
 
-def _conjugate_pairs(x: ComplexArray) -> ComplexArray:
+def conjugate_pairs(x: ComplexArray) -> ComplexArray:
     """Snap numerically real roots to the axis and make conjugate partners exact."""
     x = np.array(x, dtype=complex)
     mag = np.maximum(np.abs(x), 1e-300)
