@@ -828,6 +828,7 @@ def pole_zero_figure(analysis: LoopAnalysis, zeros: NDArray[np.complex128], *,
         if getattr(analysis.stability, "domain", "s") == "z":
             return _z_plane_map(fig, analysis, poles, zeros, width_in, height_in)
         search = analysis.stability.search_abscissa_rad_s
+        line_drawn = False
         span = float(np.max(np.abs(np.concatenate([poles, zeros])))) or 1.0
         zoom = None
         if pairs:
@@ -856,21 +857,26 @@ def pole_zero_figure(analysis: LoopAnalysis, zeros: NDArray[np.complex128], *,
             xlim = _pz_limits(poles, zeros, r)[0]
             if search is not None and xlim[0] <= -search <= xlim[1]:
                 ax.axvline(-search, color=C_MARK, linewidth=0.8, linestyle="--")
+                line_drawn = True
             ax.set_xlim(*xlim)
             ax.set_ylim(*_pz_limits(poles, zeros, r)[1])
             ax.set_ylabel("Im s (rad/s)")
             _style(ax)
         views[-1][0].set_xlabel("Re s (1/s)")
-        ax_all.set_title(f"Closed-loop poles and zeros — {analysis.variant}", loc="left")
+        title = f"Closed-loop poles and zeros — {analysis.variant}"
+        if len(title) > 34:                 # a long variant name would run off the axes
+            title = f"Closed-loop poles and zeros\n{analysis.variant}"
+        ax_all.set_title(title, loc="left")
         # No legend: it would sit on roots; the caption names the markers.
         if zoom is not None:
             views[-1][0].set_title("near the origin (slow pairs ringed)", loc="left")
         _place(fig, left=0.66, rows=2 if zoom is not None else 1, hgap=0.6)
         caption = f"Closed-loop poles (×) and zeros (○), {analysis.variant}."
         if search is not None:
-            caption += (f" Transport delay: every closed-loop root right of the dashed search "
-                        f"line Re s = {-search:.4g} is drawn (counted by the argument "
-                        "principle); infinitely many more lie left of it.")
+            line = f"Re s = {-search:.4g}" + ("" if line_drawn else ", left of this view")
+            caption += (f" Transport delay: every closed-loop root right of the search line "
+                        f"({'dashed, ' if line_drawn else ''}{line}) is drawn (counted by the "
+                        "argument principle); infinitely many more lie left of it.")
         if pairs:
             caption += (" Red rings: slow closed-loop poles nearly cancelled by a zero; "
                         "their small residue decays slowly.")
