@@ -1,6 +1,6 @@
 """Loop designs (TOML text) shared by several test files.
 
-Ogata's lag design (REFERENCE_CHECKS.md, Ogata, Modern Control Engineering [memory,
+Ogata's lag design (REFERENCE_VALUES.md, Ogata, Modern Control Engineering [memory,
 matched]): G = 1/(s(s+1)(0.5s+1)), written as 2/(s(s+1)(s+2)), with
 Gc = 5(10s+1)/(100s+1), written as a gain 0.5 and a lag with zero 0.1 and pole 0.01.
 The reference values each test checks stand beside its check.

@@ -2,7 +2,7 @@
 
 Loops (invented for these tests): K/(s(s+1)) has PM = 90° − atan(ωc) with
 ωc·√(1 + ωc²) = K [derived], checked with control.stability_margins [python-control];
-K = 1 gives PM 51.83° (the ζ = 0.5 row of REFERENCE_CHECKS.md [derived]), so K ≤ 1
+K = 1 gives PM 51.83° (the ζ = 0.5 row of REFERENCE_VALUES.md [derived]), so K ≤ 1
 passes the general set.  The Ogata plant
 1/(s(s+1)(0.5s+1)) with gain 5 and no lag is closed-loop unstable [memory, matched].
 """

@@ -1,4 +1,4 @@
-"""Boost stages: DC boost, band edges and lag phase budget against REFERENCE_CHECKS.md,
+"""Boost stages: DC boost, band edges and lag phase budget against REFERENCE_VALUES.md,
 closed forms and an independent python-control + scipy brentq computation."""
 
 from __future__ import annotations
@@ -52,7 +52,7 @@ def edge(factor, level: float, lo: float, hi: float) -> float:
 
 
 @pytest.mark.parametrize(("text", "unity_edge"), [
-    # REFERENCE_CHECKS.md "Boost band" [derived]: the factor exceeds 1 only below
+    # REFERENCE_VALUES.md "Boost band" [derived]: the factor exceeds 1 only below
     # 0.2334 rad/s (FPE lag example) and 0.1657 rad/s (Ogata's lag design).
     pytest.param(FPE_TOML, 0.2334, id="fpe-edge-0.2334"),
     pytest.param(OGATA_TOML, 0.1657, id="ogata-edge-0.1657"),
@@ -110,7 +110,7 @@ pole = {pole!r}
 
 
 @pytest.mark.parametrize(("ratio", "phase_deg"), [
-    # REFERENCE_CHECKS.md lag network (s+z)/(s+p), β = 10 [derived]
+    # REFERENCE_VALUES.md lag network (s+z)/(s+p), β = 10 [derived]
     pytest.param(10.0, -5.14, id="derived-10z"),
     pytest.param(5.0, -10.16, id="derived-5z"),
     pytest.param(3.0, -16.53, id="derived-3z"),

@@ -1,6 +1,6 @@
 """The review and rules commands through ``main([...])``: exit codes, outputs, safety.
 
-Loops (REFERENCE_CHECKS.md): e^(−0.5s)/s passes general (PM 61.35°, GM π = 9.94 dB,
+Loops (REFERENCE_VALUES.md): e^(−0.5s)/s passes general (PM 61.35°, GM π = 9.94 dB,
 Ms 1.59 [derived; Skogestad 2003 memory]); Ogata's lag loop fails it (PM 41.61° < 45°
 [memory, matched]); the Ogata plant with gain 5 and no lag is closed-loop unstable.
 """

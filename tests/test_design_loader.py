@@ -374,7 +374,7 @@ def test_rational_samples_keep_their_character(name, crossings, rhp_open_loop):
 
 def test_tank_level_reproduces_simc_robustness_figures():
     # Skogestad, J. Process Control 13 (2003), SIMC with τc = θ [memory]: L = e^(−θs)/(2θs),
-    # GM 3.14, PM 61.4°, Ms 1.59 (REFERENCE_CHECKS.md). L(jω) from python-control times the
+    # GM 3.14, PM 61.4°, Ms 1.59 (REFERENCE_VALUES.md). L(jω) from python-control times the
     # exact delay, on a fine grid; the crossings are where this grid puts them.
     design = load_design(SAMPLES / "tank_level.toml")
     nominal = design.variants[0]

@@ -97,7 +97,7 @@ def test_lag_default_is_hf_and_dc_boost_is_beta():
 
 @pytest.mark.parametrize("mult,deg", [(10.0, -5.14), (5.0, -10.16), (3.0, -16.53)])
 def test_lag_phase_reference_values(mult, deg):
-    # REFERENCE_CHECKS.md, lag network β = 10 [derived]: −5.14° at 10z, −10.16° at 5z,
+    # REFERENCE_VALUES.md, lag network β = 10 [derived]: −5.14° at 10z, −10.16° at 5z,
     # −16.53° at 3z (rounded to 0.01°)
     st = _stage('type = "lag"\nzero = 2.0\npole = 0.2')
     phase_deg = math.degrees(np.angle(st.model.freqresp([mult * 2.0])[0]))

@@ -3,7 +3,7 @@
 References: python-control (``control.c2d``, ``control.stability_margins`` on dt systems)
 and scipy (``signal.cont2discrete``, ``signal.lsim`` on a fine grid) where they are right;
 closed forms [derived] where they are not — python-control misses a phase crossing at the
-Nyquist frequency (REFERENCE_CHECKS.md), e.g. the held integrator kT/(z − 1), whose gain
+Nyquist frequency (REFERENCE_VALUES.md), e.g. the held integrator kT/(z − 1), whose gain
 margin 2/(kT) lies exactly there.
 """
 

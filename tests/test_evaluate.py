@@ -1,6 +1,6 @@
 """Evaluation: findings from real analyses, limits and their sources, severities, waivers.
 
-Loops and their reference values (REFERENCE_CHECKS.md):
+Loops and their reference values (REFERENCE_VALUES.md):
 * Ogata's lag design, G = 1/(s(s+1)(0.5s+1)), Gc = 5(10s+1)/(100s+1): PM 41.61° at
   0.4544 rad/s, GM 14.30 dB, Ms 1.761, overshoot 34.8 %, 2 % settling 22.0 s, slow pole
   tail 21.7 s — Ogata, Modern Control Engineering [memory, matched].

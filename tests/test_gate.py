@@ -314,7 +314,7 @@ BETTER = {
     "tail_time_s": "lower",            # slow pole-zero pair's tail
 }
 
-# Ogata's lag loop (REFERENCE_CHECKS.md [memory, matched]): every figure is finite and it
+# Ogata's lag loop (REFERENCE_VALUES.md [memory, matched]): every figure is finite and it
 # has a slow pair, so each figure can be moved alone.
 OGATA = """
 [design]

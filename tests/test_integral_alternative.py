@@ -1,4 +1,4 @@
-"""The integral-action alternative against REFERENCE_CHECKS.md, python-control margins and
+"""The integral-action alternative against REFERENCE_VALUES.md, python-control margins and
 the design loader (the snippet must paste into a design and give the same loop)."""
 
 from __future__ import annotations
@@ -43,7 +43,7 @@ def pc_margins(loop: Loop) -> tuple[float, float]:
 
 
 def test_ogata_integral_alternative_unretuned():
-    # REFERENCE_CHECKS.md integral alternative [derived]: 0.5(s+0.1)/s on 1/(s(s+1)(0.5s+1))
+    # REFERENCE_VALUES.md integral alternative [derived]: 0.5(s+0.1)/s on 1/(s(s+1)(0.5s+1))
     # gives PM 40.35°, GM 5.10 (14.15 dB), type 2, zero ramp error; the slow pole near the
     # zero (−0.126) remains.
     d, loop, _, _ = setup(OGATA_TOML)
@@ -62,7 +62,7 @@ def test_ogata_integral_alternative_unretuned():
 
 
 def test_pi_limit_phase_at_ten_times_zero():
-    # REFERENCE_CHECKS.md lag network, β = 10: −5.71° at 10z in the integral limit [derived]
+    # REFERENCE_VALUES.md lag network, β = 10: −5.71° at 10z in the integral limit [derived]
     pi = integral_stage(Zpk([-1.0], [-0.1], 1.0))
     assert math.degrees(pi.phase_rad(np.array([10.0]))[0]) == pytest.approx(-5.71, abs=0.005)
     assert list(pi.poles) == [0.0] and list(pi.zeros) == [-1.0] and pi.gain == 1.0

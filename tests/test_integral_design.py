@@ -1,7 +1,7 @@
 """One integral-action alternative per design: one gain over all plant variants (the worst
 sets it), sampled and z-domain stages, and its judgement against the review's limits.
 
-References: REFERENCE_CHECKS.md (Ogata's lag design and its integral alternative
+References: REFERENCE_VALUES.md (Ogata's lag design and its integral alternative
 0.5(s+0.1)/s [derived]); python-control stability_margins and an independent brentq over
 the variants; scipy.signal.cont2discrete for the sampled loops."""
 
@@ -28,7 +28,7 @@ T = SAMPLED_T
 
 
 def test_ogata_design_level_alternative_is_the_published_one():
-    # REFERENCE_CHECKS.md integral alternative [derived]: 0.5(s+0.1)/s on Ogata's plant
+    # REFERENCE_VALUES.md integral alternative [derived]: 0.5(s+0.1)/s on Ogata's plant
     # gives PM 40.35°, GM 5.10 (14.15 dB), type 2.  With a 40° target the highest gain
     # factor, 1, already meets it: the alternative is exactly the published one.
     d = parse_design(OGATA_TOML, "ogata.toml")
@@ -46,7 +46,7 @@ def test_ogata_design_level_alternative_is_the_published_one():
 
 def test_single_variant_design_keeps_its_alternative():
     # One variant: the design-level alternative is the per-loop one (target = its own
-    # 41.61°, REFERENCE_CHECKS.md Ogata PM [memory, matched]).
+    # 41.61°, REFERENCE_VALUES.md Ogata PM [memory, matched]).
     d = parse_design(OGATA_TOML, "ogata.toml")
     (a,) = analyze(d)
     (alt,) = a.integral_alternatives

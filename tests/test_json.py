@@ -1,6 +1,6 @@
 """JSON evidence: DESIGN.md §5 keys, conventions (inf, null, complex, rad/s), determinism.
 
-Loops: the lag examples of REFERENCE_CHECKS.md — Ogata (PM 41.61°, GM 14.30 dB, slow pole
+Loops: the lag examples of REFERENCE_VALUES.md — Ogata (PM 41.61°, GM 14.30 dB, slow pole
 −0.12281 with residue 0.2857 [memory, matched]) and Franklin–Powell–Emami-Naeini
 L = 10(10s+1)/(s(s+1)(100s+1)) (GM infinite, Kv = 10, PM 45.19° [derived]).
 """

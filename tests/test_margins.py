@@ -1,4 +1,4 @@
-"""Gain, phase and delay margins against closed forms and REFERENCE_CHECKS.md.
+"""Gain, phase and delay margins against closed forms and REFERENCE_VALUES.md.
 
 Each case names its source: [derived] values are recomputed here from the stated formula
 (tolerance: the 1e-6 relative target of the analysis); [memory] values are checked to the
@@ -31,7 +31,7 @@ def db(x: float) -> float:
 
 # --------------------------------------------------------------------------- table
 def test_integrator_double_lag_derived():
-    """1/(s(s+1)²) — [derived] REFERENCE_CHECKS: L(j1) = −1/2, so GM = 2 at 1 rad/s;
+    """1/(s(s+1)²) — [derived] REFERENCE_VALUES.md: L(j1) = −1/2, so GM = 2 at 1 rad/s;
     crossover is the real root of ω³ + ω − 1 = 0, PM = 90° − 2·atan(ωc)."""
     m = compute_margins(loop([], [0, -1, -1], 1.0))
     wc = float(np.real(np.roots([1, 0, 1, -1])[np.isreal(np.roots([1, 0, 1, -1]))][0]))
@@ -110,7 +110,7 @@ def test_inverse_response_pi_memory():
 
 def test_ogata_lag_design_memory():
     """Ogata, Modern Control Engineering, lag design [memory, matched]; derived figures in
-    REFERENCE_CHECKS: PM 41.61° at 0.4544 rad/s, GM 5.188 (14.30 dB) at 1.3154 rad/s."""
+    REFERENCE_VALUES.md: PM 41.61° at 0.4544 rad/s, GM 5.188 (14.30 dB) at 1.3154 rad/s."""
     plant = Zpk([], [0, -1, -2], 2.0)                  # 1/(s(s+1)(0.5s+1))
     lag = Zpk([-0.1], [-0.01], 5.0 * 10.0 / 100.0)     # 5(10s+1)/(100s+1)
     m = compute_margins(Loop(plant=plant, controller=lag, sensor=ONE, stages=(lag,)))
@@ -142,7 +142,7 @@ def test_fpe_lag_example_derived():
 
 
 def test_type_two_lead_derived():
-    """10(s+1)/(s²(s+10)) — REFERENCE_CHECKS tracking table [derived]: PM 44.46°."""
+    """10(s+1)/(s²(s+10)) — REFERENCE_VALUES.md tracking table [derived]: PM 44.46°."""
     m = compute_margins(loop([-1], [0, 0, -10], 10.0))
     assert m.phase_margin_deg == pytest.approx(44.46, abs=5e-3)
 
@@ -150,7 +150,7 @@ def test_type_two_lead_derived():
 @pytest.mark.parametrize(("zeta", "pm_table"), [(0.3, 33.27), (0.5, 51.83), (0.7, 65.16)],
                          ids=["zeta0.3", "zeta0.5", "zeta0.7"])
 def test_second_order_pm_column_derived(zeta, pm_table):
-    """ωn²/(s(s + 2ζωn)), ωn = 1 — REFERENCE_CHECKS time-response table [derived]; closed
+    """ωn²/(s(s + 2ζωn)), ωn = 1 — REFERENCE_VALUES.md time-response table [derived]; closed
     form PM = atan(2ζ / √(√(1 + 4ζ⁴) − 2ζ²)), ωc = √(√(1 + 4ζ⁴) − 2ζ²)."""
     m = compute_margins(loop([], [0, -2 * zeta], 1.0))
     wc = math.sqrt(math.sqrt(1 + 4 * zeta**4) - 2 * zeta**2)

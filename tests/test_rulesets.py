@@ -15,7 +15,7 @@ from loopwarden.ruleset.loader import load_ruleset, parse_ruleset, shipped_rules
 
 RULES_DIR = Path(__file__).resolve().parents[1] / "rules"
 SHIPPED_FILES = sorted(RULES_DIR.glob("*.toml"))
-# Provenance tags every source string must use when it cites a level (REFERENCE_CHECKS.md).
+# Provenance tags every source string must use when it cites a level (REFERENCE_VALUES.md).
 TAGS = ("[memory", "[derived]", "[practice]")
 
 #: The check names of DESIGN.md §4 (part of the JSON contract: never renamed).
@@ -96,7 +96,7 @@ def test_shipped_set_loads_with_parents(name: str) -> None:
 
 def test_general_levels_are_the_cited_ones() -> None:
     rules = {r.id: r for r in load_ruleset("general").rules}
-    # REFERENCE_CHECKS.md "Requirement levels": GM 6 dB / PM 45° (MIL-F-9490D, [memory]),
+    # REFERENCE_VALUES.md "Requirement levels": GM 6 dB / PM 45° (MIL-F-9490D, [memory]),
     # Ms < 2 and Mt < 1.25 (Skogestad & Postlethwaite §2.4, [memory]).
     assert dict(rules["margin.gain"].limits) == {"min": 6.0, "warn_min": 8.0,
                                                  "max_lower": -6.0, "warn_max_lower": -8.0}

@@ -1,4 +1,4 @@
-"""Sensitivity peaks and disk margins against REFERENCE_CHECKS.md and closed forms.
+"""Sensitivity peaks and disk margins against REFERENCE_VALUES.md and closed forms.
 
 Sources: [derived] closed forms recomputed here (tolerance 1e-5 relative, the analysis
 target for Ms/Mt); [memory] table values to the rounding of their printed digits; the
@@ -64,7 +64,7 @@ def test_inverse_response_pi_memory():
 
 
 def test_ogata_lag_ms_derived():
-    """Ogata lag design, derived figure in REFERENCE_CHECKS: Ms 1.761."""
+    """Ogata lag design, derived figure in REFERENCE_VALUES.md: Ms 1.761."""
     lag = Zpk([-0.1], [-0.01], 0.5)
     s = compute_sensitivity(loop([], [0, -1, -2], 2.0, controller=lag))
     assert s.peak_sensitivity == pytest.approx(1.761, abs=5e-4)

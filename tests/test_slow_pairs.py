@@ -1,5 +1,5 @@
 """Slow closed-loop pole–zero pairs: poles, residues and tail times against
-REFERENCE_CHECKS.md, polynomial algebra (numpy/scipy) and python-control simulations."""
+REFERENCE_VALUES.md, polynomial algebra (numpy/scipy) and python-control simulations."""
 
 from __future__ import annotations
 
@@ -92,7 +92,7 @@ def test_fpe_lag_slow_pair():
     assert pair.pole.real == pytest.approx(-0.10975, abs=5e-6)
     assert pair.residue == pytest.approx(0.1077, abs=5e-5)
     assert tail.settling_time_s == pytest.approx(14.8, abs=0.05)
-    # formula of REFERENCE_CHECKS.md "Slow-pair tail" [derived]
+    # formula of REFERENCE_VALUES.md "Slow-pair tail" [derived]
     assert pair.tail_time_s == pytest.approx(math.log(pair.residue / BAND) / 0.1097452, rel=1e-5)
 
 

@@ -1,6 +1,6 @@
 """Closed-loop stability: eigenvalues and the Nyquist count against independent references.
 
-References: REFERENCE_CHECKS.md closed-loop poles [memory]/[derived]; closed-form stability
+References: REFERENCE_VALUES.md closed-loop poles [memory]/[derived]; closed-form stability
 boundaries [derived]; the roots of first-order delay loops from the Lambert W function
 (scipy.special.lambertw); the eigenvalue count of the delay-free loop for the Nyquist
 count on rational loops.

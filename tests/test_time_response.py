@@ -53,7 +53,7 @@ def second_order_settling(zeta: float, band: float) -> float:
     return optimize.brentq(lambda s: dev(s) - level, t[k], t[k + 1], xtol=1e-13)
 
 
-# REFERENCE_CHECKS.md "Time response", standard second order, ωn = 1 [derived]
+# REFERENCE_VALUES.md "Time response", standard second order, ωn = 1 [derived]
 SECOND_ORDER = [
     pytest.param(0.3, 37.23, 3.293, 11.23, id="derived-zeta0.3"),
     pytest.param(0.5, 16.30, 3.628, 8.08, id="derived-zeta0.5"),

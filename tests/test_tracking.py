@@ -1,4 +1,4 @@
-"""System type and error constants against REFERENCE_CHECKS.md and python-control."""
+"""System type and error constants against REFERENCE_VALUES.md and python-control."""
 
 from __future__ import annotations
 
@@ -21,7 +21,7 @@ def tf_loop(num: list[float], den: list[float], *, delay: float = 0.0,
                 stages=(one,))
 
 
-# Error-constant table of REFERENCE_CHECKS.md ("Tracking (error constants)").
+# Error-constant table of REFERENCE_VALUES.md ("Tracking (error constants)").
 TABLE = [
     # [derived] 10/((s+1)(s+2)): type 0, Kp = 5, step error 1/6
     pytest.param([10.0], [1.0, 3.0, 2.0], 0, "kp", 5.0, "step_error", 1.0 / 6.0,
