@@ -1,14 +1,15 @@
 """Numbers as the outputs show them (messages, tables, the terminal and JUnit).
 
 One formatting rule for every renderer and for the rule messages the checks compose:
-4 significant digits, integers without a decimal point, infinities as ``inf``.
+4 significant digits, integers without a decimal point, infinities as ``inf``.  A leaf
+module (it imports nothing of loopwarden), so the rule code may use it too.
 """
 
 from __future__ import annotations
 
 import math
 
-__all__ = ["fmt"]
+__all__ = ["fmt", "root_text"]
 
 
 def fmt(value: float | str | None, unit: str = "") -> str:
@@ -28,3 +29,10 @@ def fmt(value: float | str | None, unit: str = "") -> str:
     if unit in ("", "x", "%"):
         return text + unit
     return f"{text}°" if unit == "deg" else f"{text} {unit}"
+
+
+def root_text(z: complex) -> str:
+    """A pole or zero for messages: ``-0.1228`` on the real axis, else ``-1+2j``."""
+    if abs(z.imag) < 1e-12:
+        return fmt(z.real)
+    return f"{z.real:.4g}{'+' if z.imag >= 0 else '-'}{abs(z.imag):.4g}j"

@@ -31,7 +31,7 @@ from ..analysis.regression import FIGURE_NAMES, FigureChange
 from ..analysis.regression import compare as compare_figures
 from ..analysis.results import Boost, IntegralAlternative, LoopAnalysis, StepMetrics
 from ..errors import AnalysisError
-from ..report.numbers import fmt
+from ..report.numbers import fmt, root_text
 from .model import Bound, LimitKey, Rule
 
 if TYPE_CHECKING:  # annotations only: `loopwarden rules` must not load the design stack
@@ -204,18 +204,12 @@ def internal_stability(a: LoopAnalysis, rule: Rule, design: Design, *,
     if it.internally_stable:
         text = "no unstable pole-zero cancellation between blocks"
     else:
-        parts = [f"pole {_root(c.pole)} of {c.pole_block} cancelled by zero {_root(c.zero)} "
-                 f"of {c.zero_block}" for c in it.cancellations]
+        parts = [f"pole {root_text(c.pole)} of {c.pole_block} cancelled by zero "
+                 f"{root_text(c.zero)} of {c.zero_block}" for c in it.cancellations]
         text = "internally unstable: " + ("; ".join(parts) or it.note)
     return Measurement(value="stable" if it.internally_stable else "unstable", text=text,
                        ok=it.internally_stable,
                        details={"cancellations": float(len(it.cancellations))})
-
-
-def _root(z: complex) -> str:
-    if abs(z.imag) < 1e-12:
-        return fmt(z.real)
-    return f"{z.real:.4g}{'+' if z.imag >= 0 else '-'}{abs(z.imag):.4g}j"
 
 
 # --------------------------------------------------------------------------- margins
@@ -503,7 +497,7 @@ def slow_pair_tail(a: LoopAnalysis, rule: Rule, design: Design, *,
     worst = max(tail.pairs, key=lambda p: p.tail_time_s)
     details |= {"pole_re": worst.pole.real, "zero_re": worst.zero.real,
                 "residue": worst.residue, "time_constant_s": worst.time_constant_s}
-    text = (f"slow pole {_root(worst.pole)} beside zero {_root(worst.zero)}: residue "
+    text = (f"slow pole {root_text(worst.pole)} beside zero {root_text(worst.zero)}: residue "
             f"{fmt(worst.residue)}, its tail enters the {_band_note(st)} after "
             f"{fmt(worst.tail_time_s, 's')} (settling {fmt(tail.settling_time_s, 's')}, "
             f"{fmt(tail.settling_time_without_tail_s, 's')} without the tail)")
