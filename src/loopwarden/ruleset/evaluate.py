@@ -39,10 +39,10 @@ from ..errors import AnalysisError, DesignError, did_you_mean
 from ..report.numbers import fmt
 from .checks import CHECKS, Measurement, NotApplicable
 from .model import Bound, Finding, Level, LimitKey, Rule, RuleSet, Severity, Status
+from .waivers import decide_waiver, unmatched_waiver, waiver_matches
 
 __all__ = ["REQUIREMENT_TARGETS", "Limit", "Outcome", "alternative_limits", "analysis_settings",
-           "build_finding", "decide_waiver", "evaluate", "evaluate_rule", "judge_rule",
-           "resolve_limits"]
+           "build_finding", "evaluate", "evaluate_rule", "judge_rule", "resolve_limits"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -297,7 +297,8 @@ class Outcome:
     """What one rule gave on one variant before any waiver is considered.
 
     :func:`evaluate` decides the waiver from this and the design's waivers, then builds
-    the :class:`Finding` once (:func:`build_finding`).
+    the :class:`Finding` once (:func:`build_finding`, with
+    :func:`loopwarden.ruleset.waivers.decide_waiver`).
     """
 
     status: Status
@@ -372,68 +373,15 @@ def judge_rule(rule: Rule, lim: Mapping[str, Limit], analysis: LoopAnalysis,
                    limit_key=limit.key, details=MappingProxyType(details))
 
 
-# --------------------------------------------------------------------------- waivers
+# --------------------------------------------------------------------------- findings
 _UNCHECKED_RATIONALE = "A requirement the design states but no rule checks gives false comfort."
-_WAIVER_RATIONALE = "A waiver that matches nothing is probably stale or misspelt."
-
-
-def _waiver_text(w: Waiver) -> str:
-    return f"{w.reason} (approved by {w.approved_by}, expires {w.expires.isoformat()})"
-
-
-def _waive_parts(details: Mapping[str, float | str | None]
-                 ) -> Mapping[str, float | str | None]:
-    """The details with every failing part's status turned into ``waived``."""
-    return MappingProxyType({k: Status.WAIVED.value if k.endswith(".status")
-                             and v == Status.FAIL.value else v for k, v in details.items()})
-
-
-def _waiver_matches(w: Waiver, rule: Rule, variant: str) -> bool:
-    return w.rule == rule.id and (w.variant is None or w.variant == variant)
-
-
-@dataclass(frozen=True, slots=True)
-class _Waived:
-    status: Status
-    message: str
-    waiver: str | None
-    details: Mapping[str, float | str | None]
-
-
-def decide_waiver(rule: Rule, outcome: Outcome, waivers: Sequence[Waiver], *,
-                  today: dt.date | None) -> _Waived:
-    """The waivers matching one rule on one variant, in design order, applied to its
-    outcome: an unexpired waiver turns ``fail`` into ``waived`` (the first one wins); an
-    expired or refused one (stability checks) leaves ``fail`` and says so; one for a rule
-    that does not fail says it is not needed."""
-    status, message, waiver, details = outcome.status, outcome.message, None, outcome.details
-    for w in waivers:
-        if waiver is not None and status is Status.WAIVED:
-            continue                        # an earlier waiver already applies
-        if not CHECKS[rule.check].waivable:
-            if status is Status.FAIL:
-                waiver = f"refused: {_waiver_text(w)}"
-                message = (f"{message}. Waiver by {w.approved_by} refused: {rule.check} "
-                           "cannot be waived")
-        elif today is None or w.expires < today:
-            if status is Status.FAIL:
-                waiver = f"expired: {_waiver_text(w)}"
-                message = (f"{message}. Waiver by {w.approved_by} expired on "
-                           f"{w.expires.isoformat()}; it does not count")
-        elif status is Status.FAIL:
-            status, waiver, details = Status.WAIVED, _waiver_text(w), _waive_parts(details)
-            message = (f"{message}. Waived by {w.approved_by} until "
-                       f"{w.expires.isoformat()}: {w.reason}")
-        else:
-            message = (f"{message}. (Waiver by {w.approved_by} not needed: the rule does not "
-                       "fail)")
-    return _Waived(status, message, waiver, details)
 
 
 def build_finding(rule: Rule, variant: str, outcome: Outcome, waivers: Sequence[Waiver] = (),
                   *, today: dt.date | None = None) -> Finding:
     """The finding of one rule on one variant, complete: its waiver decided first."""
-    w = decide_waiver(rule, outcome, waivers, today=today)
+    w = decide_waiver(rule.check, outcome.status, outcome.message, outcome.details, waivers,
+                      today=today)
     return Finding(rule=rule.id, check=rule.check, status=w.status, variant=variant,
                    measured=outcome.measured, limit=outcome.limit, unit=outcome.unit,
                    message=w.message, limit_source=outcome.limit_source,
@@ -446,17 +394,6 @@ def evaluate_rule(rule: Rule, lim: Mapping[str, Limit], analysis: LoopAnalysis,
     """One rule on one variant, without waivers; never raises for a check's own failure."""
     return build_finding(rule, analysis.variant,
                          judge_rule(rule, lim, analysis, design, baseline=baseline))
-
-
-def _unmatched_waiver(w: Waiver, rule_ids: Sequence[str]) -> Finding:
-    scope = f" on variant '{w.variant}'" if w.variant else ""
-    hint = did_you_mean(w.rule, rule_ids)
-    return Finding(
-        rule=w.rule, check="waiver", status=Status.WARN, variant=w.variant,
-        measured=None, limit=None, unit="", limit_source="design [[waivers]]",
-        message=f"waiver for rule '{w.rule}'{scope} matches no finding"
-                + (f" ({hint})" if hint else "") + "; it has no effect",
-        waiver=_waiver_text(w), rationale=_WAIVER_RATIONALE, source="design [[waivers]]")
 
 
 def _unused_requirements(design: Design, ruleset: RuleSet) -> list[Finding]:
@@ -505,13 +442,13 @@ def evaluate(design: Design, ruleset: RuleSet, analyses: Sequence[LoopAnalysis],
             else:
                 outcome = judge_rule(rule, lim[rule.id], analysis, design, baseline=b)
             mine = [i for i, w in enumerate(waivers)
-                    if _waiver_matches(w, rule, analysis.variant)]
+                    if waiver_matches(w, rule.id, analysis.variant)]
             for i in mine:
                 matched[i] = True
             findings.append(build_finding(rule, analysis.variant, outcome,
                                           [waivers[i] for i in mine], today=today))
     findings.extend(_unused_requirements(design, ruleset))
     rule_ids = [r.id for r in ruleset.rules]
-    findings.extend(_unmatched_waiver(w, rule_ids)
+    findings.extend(unmatched_waiver(w, rule_ids)
                     for w, hit in zip(waivers, matched, strict=True) if not hit)
     return tuple(findings)
