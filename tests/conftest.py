@@ -4,6 +4,8 @@ Every review JSON a test renders in this process (``json_out.to_dict``, which
 ``json_out.render`` and the ``review`` and ``batch`` commands go through) is checked
 against the shipped JSON Schema as it is made: a test that produces evidence the schema
 rejects fails there, with the offending path.  The count is shown at the end of the run.
+Reviews made in other processes (batch workers, which start by ``spawn``; commands run as
+a subprocess) are not seen here: tests/test_schema.py validates a batch's files itself.
 """
 
 from __future__ import annotations
