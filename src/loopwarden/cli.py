@@ -32,6 +32,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "batch": ("loopwarden.commands.batch", "review many designs in parallel"),
     "keygen": ("loopwarden.commands.keygen", "make a local signing key for trials"),
     "verify": ("loopwarden.commands.verify", "check a signed PDF review"),
+    "schema": ("loopwarden.commands.schema", "print the JSON Schema of the review JSON"),
 }
 
 

@@ -45,7 +45,8 @@ def _shipped() -> list[str]:
 
 
 def _show(spec: str) -> list[str]:
-    from ..ruleset.checks import CHECKS, fmt
+    from ..report.numbers import fmt
+    from ..ruleset.checks import CHECKS
     from ..ruleset.loader import load_ruleset
 
     rs = load_ruleset(spec)

@@ -4,6 +4,13 @@ Conventions: frequencies in rad/s whatever the design's unit; infinities as the 
 ``"inf"``/``"-inf"``; not-applicable as ``null``; complex numbers as ``{"re": …, "im": …}``;
 keys sorted and no clock read here, so the same review gives byte-identical output.
 Plot data (``LoopAnalysis.curves``) is not part of the JSON.
+
+The keys are a contract, written down in one place: the builders below (``to_dict`` and
+its helpers) name every top-level, design, rule-set, variant and finding key, and
+:data:`OBJECT_KEYS` names the keys of every result object nested in them.  Nothing is
+found by reflection: a Python field renamed without updating the table stops the render
+(``AttributeError``), it never renames a key; a new field stays out of the JSON until it is
+added here, to ``src/loopwarden/schema/review.schema.json`` and to the README.
 """
 
 from __future__ import annotations
@@ -19,21 +26,116 @@ from typing import Any
 
 import numpy as np
 
-from ..analysis.results import IntegralAlternative, LoopAnalysis
-from ..design.model import Design
+from ..analysis.results import (
+    Boost,
+    Cancellation,
+    DisturbanceResponse,
+    Effort,
+    FrequencyCoverage,
+    GainCrossing,
+    IntegralAlternative,
+    InternalStability,
+    LoopAnalysis,
+    Margins,
+    PhaseCrossing,
+    RequirementCheck,
+    SampledInfo,
+    Sensitivity,
+    SlowPair,
+    SlowTail,
+    Stability,
+    StageCrossoverCost,
+    StepMetrics,
+    Tracking,
+)
+from ..design.model import Design, Sampling, Waiver
 from ..ruleset.model import Finding, RuleSet, Status
 from . import CAUTIONS
 from .review import Review
 
-__all__ = ["SCHEMA", "SUFFIX", "plain", "render", "to_dict"]
+__all__ = ["OBJECT_KEYS", "SCHEMA", "SUFFIX", "plain", "render", "to_dict"]
 
 SCHEMA = "loopwarden-review/1"
 SUFFIX = ".json"
-_SKIP_FIELDS = {"curves"}
+
+KeyMap = tuple[tuple[str, str], ...]
+
+
+def _same(*names: str) -> KeyMap:
+    """JSON keys that read the attribute of the same name (``(key, attribute)`` pairs)."""
+    return tuple((name, name) for name in names)
+
+
+#: The contract of the nested result objects: type → ((JSON key, attribute), ...).
+#: The first string of each pair is the key in the JSON (never change it: extend); the
+#: second the attribute it is read from.  A field of one of these classes that is not
+#: listed is not in the JSON (tests/test_schema.py insists that each field is listed).
+OBJECT_KEYS: dict[type, KeyMap] = {
+    Stability: _same(
+        "closed_loop_stable", "method", "closed_loop_poles", "open_loop_rhp_poles",
+        "open_loop_imag_axis_poles", "rhp_closed_loop_poles", "clockwise_encirclements",
+        "marginal", "note", "domain", "certified", "unstable_roots_counted",
+        "search_abscissa_rad_s", "roots_right_of_search_counted", "slow_abscissa_rad_s",
+        "slow_roots_found", "slow_roots_counted", "polish_iterations"),
+    InternalStability: _same("internally_stable", "cancellations", "note"),
+    Cancellation: _same("pole", "zero", "pole_block", "zero_block", "distance"),
+    Margins: _same(
+        "gain_margin_db", "gain_margin_lower_db", "phase_margin_deg", "gain_crossover_rad_s",
+        "phase_crossover_rad_s", "delay_margin_s", "gain_crossings", "phase_crossings",
+        "delay_margin_samples", "stable_gain_found", "stable_gain_range_db"),
+    GainCrossing: _same("frequency_rad_s", "phase_margin_deg", "delay_margin_s"),
+    PhaseCrossing: _same("frequency_rad_s", "magnitude", "gain_margin_db"),
+    Sensitivity: _same(
+        "peak_sensitivity", "peak_sensitivity_rad_s", "peak_complementary",
+        "peak_complementary_rad_s", "disk_margin", "disk_gain_low", "disk_gain_high",
+        "disk_phase_deg"),
+    Tracking: _same("system_type", "kp", "kv", "ka", "step_error", "ramp_error",
+                    "parabola_error", "unknown"),
+    StepMetrics: _same(
+        "final_value", "overshoot_pct", "peak_time_s", "rise_time_s", "settling_time_s",
+        "settling_band", "horizon_s", "ramp_error_final", "exact_delay", "u_peak"),
+    SlowPair: _same("pole", "zero", "residue", "time_constant_s", "tail_time_s",
+                    "ramp_residue", "ramp_tail_time_s", "tail_samples", "domain"),
+    SlowTail: _same("pairs", "settling_time_s", "settling_time_without_tail_s", "criteria"),
+    Boost: _same("stage", "stage_name", "zero_rad_s", "pole_rad_s", "dc_boost",
+                 "band_2x_rad_s", "band_3db_rad_s", "improvement_at_reference_band", "costs"),
+    StageCrossoverCost: _same("crossover_rad_s", "phase_cost_deg", "zero_ratio"),
+    IntegralAlternative: _same(
+        "stage", "gain_factor", "closed_loop_stable", "margins", "sensitivity", "tracking",
+        "step", "slow_pairs", "snippet_toml", "target_phase_margin_deg", "meets_target",
+        "requirements", "meets", "fails", "slow_pairs_error", "sizing_variant"),
+    RequirementCheck: _same("rule", "figure", "bound", "limit", "value", "unit", "met"),
+    SampledInfo: _same(
+        "period_s", "method", "prewarp_rad_s", "compute_delay_samples",
+        "plant_delay_samples", "nyquist_rad_s", "sample_rate_rad_s",
+        "closed_loop_bandwidth_rad_s", "sample_rate_ratio", "note"),
+    FrequencyCoverage: _same(
+        "file", "sha256", "frequency_min_rad_s", "frequency_max_rad_s", "points",
+        "unstable_poles", "integrators", "loop_gain_at_min", "loop_gain_at_max",
+        "assumptions", "uncovered", "bounded"),
+    DisturbanceResponse: _same(
+        "at", "size", "peak", "peak_time_s", "static_deviation", "ie", "iae",
+        "recovery_time_s", "recovery_level", "settling_band", "gain_peak", "gain_peak_rad_s",
+        "band_rad_s", "horizon_s", "u_peak", "exact_delay", "sampled"),
+    Effort: _same("ks_peak", "ks_peak_rad_s", "controller_hf_gain", "u_peak_step",
+                  "u_peak_disturbance"),
+    Sampling: _same("period_s", "method", "prewarp_rad_s", "compute_delay_samples"),
+    Waiver: _same("rule", "reason", "approved_by", "expires", "variant"),
+}
+
+
+def _object(x: Any) -> dict[str, Any]:
+    keys = OBJECT_KEYS.get(type(x))
+    if keys is None:
+        raise TypeError(f"{type(x).__name__} has no entry in json_out.OBJECT_KEYS: add its "
+                        "keys there and to the JSON schema")
+    return {key: plain(getattr(x, attribute)) for key, attribute in keys}
 
 
 def plain(x: Any) -> Any:
     """Convert result objects to JSON-ready values (see the module conventions)."""
+    if isinstance(x, enum.Enum):
+        return plain(x.value)
     if x is None or isinstance(x, bool | str):
         return x
     if isinstance(x, np.generic):
@@ -48,13 +150,10 @@ def plain(x: Any) -> Any:
         return x
     if isinstance(x, complex):
         return {"re": plain(x.real), "im": plain(x.imag)}
-    if isinstance(x, enum.Enum):
-        return plain(x.value)
     if isinstance(x, dt.date):
         return x.isoformat()
     if dataclasses.is_dataclass(x) and not isinstance(x, type):
-        return {f.name: plain(getattr(x, f.name)) for f in dataclasses.fields(x)
-                if f.name not in _SKIP_FIELDS and not isinstance(getattr(x, f.name), np.ndarray)}
+        return _object(x)
     if isinstance(x, Mapping):
         return {str(k): plain(v) for k, v in x.items()}
     if isinstance(x, list | tuple):
@@ -155,7 +254,7 @@ def _ruleset(rs: RuleSet) -> dict[str, Any]:
         "file": PurePath(rs.path).name, "extends": list(rs.extends),
         "files": [{"id": f.id, "version": f.version, "file": PurePath(f.path).name,
                    "sha256": f.sha256} for f in rs.files],
-        "rules": [{"id": r.id, "check": r.check, "severity": r.severity,
+        "rules": [{"id": r.id, "check": r.check, "severity": plain(r.severity),
                    "limits": plain(r.limits), "options": plain(r.options),
                    "origin": r.origin, "rationale": r.rationale, "source": r.source}
                   for r in rs.rules],
@@ -164,7 +263,7 @@ def _ruleset(rs: RuleSet) -> dict[str, Any]:
 
 def _finding(f: Finding) -> dict[str, Any]:
     return {
-        "rule": f.rule, "check": f.check, "status": f.status.value, "variant": f.variant,
+        "rule": f.rule, "check": f.check, "status": plain(f.status), "variant": f.variant,
         "measured": plain(f.measured), "limit": plain(f.limit), "unit": f.unit,
         "message": f.message, "limit_source": f.limit_source or None,
         "rationale": f.rationale, "source": f.source, "waiver": f.waiver,
@@ -176,7 +275,7 @@ def to_dict(review: Review) -> dict[str, Any]:
     """The evidence as plain JSON values."""
     out: dict[str, Any] = {
         "schema": SCHEMA,
-        "verdict": review.verdict,
+        "verdict": plain(review.verdict),
         "date": review.run.date,
         "signer": review.run.signer,
         "signed_at": review.run.signed_at,

@@ -12,10 +12,10 @@ from __future__ import annotations
 
 import xml.etree.ElementTree as ET
 
-from ..ruleset.checks import fmt
 from ..ruleset.model import Finding, Status
 from .atomic import MARKER
 from .escape import for_xml
+from .numbers import fmt
 from .review import Review
 
 __all__ = ["SUFFIX", "render"]

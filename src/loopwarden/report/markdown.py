@@ -10,11 +10,12 @@ those rules gave it (read from the findings' per-figure details, never re-judged
 from __future__ import annotations
 
 from ..analysis.regression import FigureChange
-from ..ruleset.checks import fmt, worsening_pct
+from ..ruleset.checks import worsening_pct
 from ..ruleset.model import Finding, Status
 from . import CAUTIONS
 from .atomic import MARKER
 from .escape import for_markdown
+from .numbers import fmt
 from .review import Review
 
 __all__ = ["SUFFIX", "limit_text", "render"]
@@ -36,8 +37,7 @@ def limit_text(f: Finding) -> str:
         return ""
     if isinstance(f.limit, str):
         return f.limit
-    key = str(f.details.get("limit_key", ""))
-    sign = "≥ " if key.removeprefix("warn_").startswith("min") else "≤ " if key else ""
+    sign = f"{f.limit_key.bound.sign} " if f.limit_key is not None else ""
     return sign + fmt(f.limit, f.unit)
 
 

@@ -350,14 +350,9 @@ def _glance_table(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> Ta
 def _limit_text(review: Review, f: Finding, unit: FrequencyUnit) -> str:
     """The limit with its direction (≥ for a minimum, ≤ for a maximum) where known."""
     shown = value_text(f.limit, f.unit, unit)
-    if not isinstance(f.limit, int | float):
+    if not isinstance(f.limit, int | float) or f.limit_key is None:
         return shown
-    rule = next((r for r in review.ruleset.rules if r.id == f.rule), None)
-    if rule is not None:
-        for key, sign in (("min", "≥"), ("max", "≤"), ("warn_min", "≥"), ("warn_max", "≤")):
-            if rule.limits.get(key) == f.limit:
-                return f"{sign} {shown}"
-    return shown
+    return f"{f.limit_key.bound.sign} {shown}"
 
 
 #: Order of the findings table: what needs attention first, n/a last (in its own table).

@@ -9,7 +9,7 @@ from types import MappingProxyType
 from ..analysis.regression import FigureChange
 from ..analysis.results import LoopAnalysis
 from ..design.model import Design
-from ..ruleset.model import Finding, RuleSet, Status
+from ..ruleset.model import Finding, RuleSet, Status, Verdict
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -42,8 +42,8 @@ class Review:
     baseline: Baseline | None = None
 
     @property
-    def verdict(self) -> str:
-        return "fail" if any(f.status.blocks for f in self.findings) else "pass"
+    def verdict(self) -> Verdict:
+        return Verdict.FAIL if any(f.status.blocks for f in self.findings) else Verdict.PASS
 
     def count(self, status: Status) -> int:
         return sum(1 for f in self.findings if f.status is status)

@@ -10,10 +10,10 @@ terminal raw.
 
 from __future__ import annotations
 
-from ..ruleset.checks import fmt
 from ..ruleset.model import Status
 from .escape import for_terminal
 from .markdown import limit_text
+from .numbers import fmt
 from .review import Review
 
 __all__ = ["SUFFIX", "render"]

@@ -12,10 +12,11 @@ design); a few checks use them to pick the worst of several candidates.
 
 Limit keys: ``min``/``warn_min`` are lower bounds, ``max``/``warn_max`` upper bounds; a
 suffix names a second quantity of the same check (``max_lower``: the gain-reduction margin,
-``max_ratio``: the slow-tail settling ratio).  ``Measurement.compare`` maps each limit key
-to the number compared with it, so a check may compare different quantities against
-different keys (boost_band: the 3 dB band against ``min``, the 2× band against
-``warn_min``).
+``max_ratio``: the slow-tail settling ratio).  Each key is read once, when a check is
+registered, into a :class:`~loopwarden.ruleset.model.LimitKey` (quantity, bound, level).
+``Measurement.compare`` maps each limit key to the number compared with it, so a check may
+compare different quantities against different keys (boost_band: the 3 dB band against
+``min``, the 2× band against ``warn_min``).
 """
 
 from __future__ import annotations
@@ -30,7 +31,8 @@ from ..analysis.regression import FIGURE_NAMES, FigureChange
 from ..analysis.regression import compare as compare_figures
 from ..analysis.results import Boost, IntegralAlternative, LoopAnalysis, StepMetrics
 from ..errors import AnalysisError
-from .model import Rule
+from ..report.numbers import fmt, root_text
+from .model import Bound, LimitKey, Rule
 
 if TYPE_CHECKING:  # annotations only: `loopwarden rules` must not load the design stack
     from ..design.model import Design
@@ -89,6 +91,8 @@ class Check:
     summary: str
     limit_keys: tuple[str, ...]
     function: CheckFunction
+    #: each of ``limit_keys`` read once into quantity, bound and level
+    limit_specs: Mapping[str, LimitKey] = field(default_factory=lambda: MappingProxyType({}))
     options: Mapping[str, Option] = field(default_factory=lambda: MappingProxyType({}))
     waivable: bool = True
     predicate: bool = False                         # pass/fail without numeric limits
@@ -140,6 +144,8 @@ def _check(name: str, *, unit: str, summary: str, limits: tuple[str, ...] = (),
            ) -> Callable[[CheckFunction], CheckFunction]:
     def register(fn: CheckFunction) -> CheckFunction:
         CHECKS[name] = Check(name=name, unit=unit, summary=summary, limit_keys=limits,
+                             limit_specs=MappingProxyType(
+                                 {k: LimitKey.parse(k) for k in limits}),
                              function=fn, options=MappingProxyType(dict(options or {})),
                              waivable=waivable, predicate=predicate,
                              needs_stable=needs_stable)
@@ -147,35 +153,7 @@ def _check(name: str, *, unit: str, summary: str, limits: tuple[str, ...] = (),
     return register
 
 
-def is_lower_bound(key: str) -> bool:
-    """True for ``min``-type limit keys (the measured value must not be below them)."""
-    return key.removeprefix("warn_").startswith("min")
-
-
-def is_warn_key(key: str) -> bool:
-    return key.startswith("warn_")
-
-
 # --------------------------------------------------------------------------- formatting
-def fmt(value: float | str | None, unit: str = "") -> str:
-    """Format a measured value for messages and tables (4 significant digits)."""
-    if value is None:
-        return "n/a"
-    if isinstance(value, str):
-        return value
-    if isinstance(value, bool):
-        return str(value).lower()
-    if math.isinf(value):
-        text = "inf" if value > 0 else "-inf"
-    elif isinstance(value, int) or float(value).is_integer() and abs(value) < 1e6:
-        text = str(int(value))
-    else:
-        text = f"{value:.4g}"
-    if unit in ("", "x", "%"):
-        return text + unit
-    return f"{text}°" if unit == "deg" else f"{text} {unit}"
-
-
 def _deg(x: float) -> str:
     return fmt(x, "deg")
 
@@ -226,18 +204,12 @@ def internal_stability(a: LoopAnalysis, rule: Rule, design: Design, *,
     if it.internally_stable:
         text = "no unstable pole-zero cancellation between blocks"
     else:
-        parts = [f"pole {_root(c.pole)} of {c.pole_block} cancelled by zero {_root(c.zero)} "
-                 f"of {c.zero_block}" for c in it.cancellations]
+        parts = [f"pole {root_text(c.pole)} of {c.pole_block} cancelled by zero "
+                 f"{root_text(c.zero)} of {c.zero_block}" for c in it.cancellations]
         text = "internally unstable: " + ("; ".join(parts) or it.note)
     return Measurement(value="stable" if it.internally_stable else "unstable", text=text,
                        ok=it.internally_stable,
                        details={"cancellations": float(len(it.cancellations))})
-
-
-def _root(z: complex) -> str:
-    if abs(z.imag) < 1e-12:
-        return fmt(z.real)
-    return f"{z.real:.4g}{'+' if z.imag >= 0 else '-'}{abs(z.imag):.4g}j"
 
 
 # --------------------------------------------------------------------------- margins
@@ -441,7 +413,8 @@ def crossover_band(a: LoopAnalysis, rule: Rule, design: Design, *,
     lo, hi = ws[0], ws[-1]
     text = (f"gain crossover at {_freq(lo)}" if len(ws) == 1
             else f"{len(ws)} gain crossovers from {_freq(lo)} to {_freq(hi)}")
-    return Measurement(value=hi if "max" in rule.limits or "warn_max" in rule.limits else lo,
+    upper = any(rule.limit_specs[k].bound is Bound.MAX for k in rule.limits)
+    return Measurement(value=hi if upper else lo,
                        text=text,
                        compare={"min": lo, "warn_min": lo, "max": hi, "warn_max": hi},
                        details={"lowest_rad_s": lo, "highest_rad_s": hi})
@@ -524,7 +497,7 @@ def slow_pair_tail(a: LoopAnalysis, rule: Rule, design: Design, *,
     worst = max(tail.pairs, key=lambda p: p.tail_time_s)
     details |= {"pole_re": worst.pole.real, "zero_re": worst.zero.real,
                 "residue": worst.residue, "time_constant_s": worst.time_constant_s}
-    text = (f"slow pole {_root(worst.pole)} beside zero {_root(worst.zero)}: residue "
+    text = (f"slow pole {root_text(worst.pole)} beside zero {root_text(worst.zero)}: residue "
             f"{fmt(worst.residue)}, its tail enters the {_band_note(st)} after "
             f"{fmt(worst.tail_time_s, 's')} (settling {fmt(tail.settling_time_s, 's')}, "
             f"{fmt(tail.settling_time_without_tail_s, 's')} without the tail)")

@@ -29,22 +29,25 @@ from __future__ import annotations
 import dataclasses
 import datetime as dt
 import math
-from collections.abc import Callable, Iterable, Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from types import MappingProxyType
 
 from ..analysis.results import LoopAnalysis, RequirementLimit
 from ..design.model import Design, Waiver
 from ..errors import AnalysisError, DesignError, did_you_mean
-from .checks import CHECKS, Measurement, NotApplicable, fmt, is_lower_bound, is_warn_key
-from .model import Finding, Rule, RuleSet, Status
+from ..report.numbers import fmt
+from .checks import CHECKS, Measurement, NotApplicable
+from .model import Bound, Finding, Level, LimitKey, Rule, RuleSet, Severity, Status
+from .waivers import decide_waiver, unmatched_waiver, waiver_matches
 
-__all__ = ["REQUIREMENT_TARGETS", "Limit", "alternative_limits", "analysis_settings", "evaluate",
-           "resolve_limits"]
+__all__ = ["REQUIREMENT_TARGETS", "Limit", "Outcome", "alternative_limits", "analysis_settings",
+           "build_finding", "evaluate", "evaluate_rule", "judge_rule", "resolve_limits"]
 
 
 @dataclass(frozen=True, slots=True)
 class Limit:
+    key: LimitKey                        # which quantity, bound and level
     value: float
     source: str                          # "rule set general 1.0", "design [requirements].x"
 
@@ -115,11 +118,6 @@ def requirement_values(design: Design) -> dict[str, float]:
     return dict(sorted(values.items()))
 
 
-def _stricter(key: str, a: float, b: float) -> bool:
-    """True when ``b`` is stricter than ``a`` for limit ``key``."""
-    return b > a if is_lower_bound(key) else b < a
-
-
 def resolve_limits(design: Design, ruleset: RuleSet) -> dict[str, dict[str, Limit]]:
     """Effective limits per rule id: rule set, tightened by the design.
 
@@ -155,27 +153,28 @@ def resolve_limits(design: Design, ruleset: RuleSet) -> dict[str, dict[str, Limi
     reqs = requirement_values(design)
     out: dict[str, dict[str, Limit]] = {}
     for rule in ruleset.rules:
-        lim = {k: Limit(v, f"rule set {rule.origin}") for k, v in rule.limits.items()}
+        spec = CHECKS[rule.check].limit_specs
+        lim = {k: Limit(spec[k], v, f"rule set {rule.origin}") for k, v in rule.limits.items()}
         for req_key, value in reqs.items():
             for target in REQUIREMENT_TARGETS.get(req_key, ()):
                 if target.check != rule.check or not target.when(rule):
                     continue
                 for key in target.keys:
                     new = target.convert(value)
-                    if key not in lim or _stricter(key, lim[key].value, new):
-                        lim[key] = Limit(new, f"design [requirements].{req_key}")
+                    if key not in lim or spec[key].bound.stricter(lim[key].value, new):
+                        lim[key] = Limit(spec[key], new, f"design [requirements].{req_key}")
         for key, value in design.rule_limits.get(rule.id, {}).items():
             value = float(value)
             own = rule.limits.get(key)
-            if own is not None and _stricter(key, value, own):
-                bound = "lower" if is_lower_bound(key) else "raise"
+            if own is not None and spec[key].bound.stricter(value, own):
+                bound = "lower" if spec[key].bound is Bound.MIN else "raise"
                 raise DesignError(
                     f"{key} = {value:g} would {bound} the rule set's {key} = {own:g}; a design "
                     "may only tighten a rule", file=design.path,
                     where=f"limits.{rule.id}.{key}",
                     hint="to accept a breach, add a waiver with a reason, approver and expiry")
-            if key not in lim or _stricter(key, lim[key].value, value):
-                lim[key] = Limit(value, f"design [limits.{rule.id}]")
+            if key not in lim or spec[key].bound.stricter(lim[key].value, value):
+                lim[key] = Limit(spec[key], value, f"design [limits.{rule.id}]")
         out[rule.id] = lim
     return out
 
@@ -237,17 +236,17 @@ def alternative_limits(ruleset: RuleSet, limits: Mapping[str, Mapping[str, Limit
             if lim is None:
                 continue
             out.append(RequirementLimit(
-                rule=rule.id, figure=figure, bound=key, value=lim.value,
+                rule=rule.id, figure=figure, bound=lim.key.bound.value, value=lim.value,
                 unit=check.limit_unit(key, rule.options), source=lim.source,
                 nominal_only=rule.options.get("variants") == "nominal"))
     return tuple(out)
 
 
 # --------------------------------------------------------------------------- judging
-_BREACH = {"fail": Status.FAIL, "warn": Status.WARN, "info": Status.WARN}
+_BREACH = {Severity.FAIL: Status.FAIL, Severity.WARN: Status.WARN, Severity.INFO: Status.WARN}
 
 
-def _judge(m: Measurement, lim: Mapping[str, Limit], severity: str,
+def _judge(m: Measurement, lim: Mapping[str, Limit], severity: Severity,
            unit: Callable[[str], str]) -> tuple[Status, str | None, str]:
     """(status, determining limit key, phrase) for a numeric measurement.
 
@@ -256,31 +255,31 @@ def _judge(m: Measurement, lim: Mapping[str, Limit], severity: str,
     usable = [k for k in lim if k in m.compare]
     if not usable:
         return Status.NA, None, ""
-    hard = [k for k in usable if not is_warn_key(k)]
-    warn = [k for k in usable if is_warn_key(k)]
+    hard = [k for k in usable if lim[k].key.level is Level.FAIL]
+    warn = [k for k in usable if lim[k].key.level is Level.WARN]
 
     def value(key: str) -> str:
         return fmt(lim[key].value, unit(key))
 
     def breached(key: str) -> bool:
-        measured, limit = m.compare[key], lim[key].value
-        return measured < limit if is_lower_bound(key) else measured > limit
+        return lim[key].key.bound.breached(m.compare[key], lim[key].value)
+
+    def lower(key: str) -> bool:
+        return lim[key].key.bound is Bound.MIN
 
     for key in hard:
         if breached(key):
-            word = "below the minimum" if is_lower_bound(key) else "above the maximum"
+            word = "below the minimum" if lower(key) else "above the maximum"
             return _BREACH[severity], key, f"{word} {value(key)}"
     for key in warn:
         if breached(key):
-            word = ("below the warning level" if is_lower_bound(key)
-                    else "above the warning level")
-            if severity == "info":
+            word = "below the warning level" if lower(key) else "above the warning level"
+            if severity == Severity.INFO:
                 return Status.PASS, key, f"{word} {value(key)} (noted only: info rule)"
             return Status.WARN, key, f"{word} {value(key)}"
     met = hard or warn
     if len(met) == 1:
-        sign = "≥" if is_lower_bound(met[0]) else "≤"
-        return Status.PASS, met[0], f"meets {sign} {value(met[0])}"
+        return Status.PASS, met[0], f"meets {lim[met[0]].key.bound.sign} {value(met[0])}"
     return Status.PASS, met[0], "meets " + ", ".join(f"{k} {value(k)}" for k in met)
 
 
@@ -293,62 +292,71 @@ def _requirement_hint(rule: Rule) -> str:
         f"[requirements].{k}" for k in keys) + ")"
 
 
-def _finding(rule: Rule, variant: str | None, status: Status, message: str, *,
-             unit: str, measured: float | str | None = None, limit: float | str | None = None,
-             limit_source: str = "", details: Mapping[str, float | str | None] | None = None
-             ) -> Finding:
-    return Finding(rule=rule.id, check=rule.check, status=status, variant=variant,
-                   measured=measured, limit=limit, unit=unit, message=message,
-                   limit_source=limit_source, rationale=rule.rationale, source=rule.source,
-                   details=MappingProxyType(dict(details or {})))
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Outcome:
+    """What one rule gave on one variant before any waiver is considered.
+
+    :func:`evaluate` decides the waiver from this and the design's waivers, then builds
+    the :class:`Finding` once (:func:`build_finding`, with
+    :func:`loopwarden.ruleset.waivers.decide_waiver`).
+    """
+
+    status: Status
+    message: str
+    unit: str
+    measured: float | str | None = None
+    limit: float | str | None = None
+    limit_source: str = ""
+    limit_key: LimitKey | None = None
+    details: Mapping[str, float | str | None] = dataclasses.field(
+        default_factory=lambda: MappingProxyType({}))
 
 
-def evaluate_rule(rule: Rule, lim: Mapping[str, Limit], analysis: LoopAnalysis,
-                  design: Design, *, baseline: LoopAnalysis | None = None) -> Finding:
+def judge_rule(rule: Rule, lim: Mapping[str, Limit], analysis: LoopAnalysis,
+               design: Design, *, baseline: LoopAnalysis | None = None) -> Outcome:
     """One rule on one variant; never raises for a check's own failure."""
     check = CHECKS[rule.check]
     unit = check.unit_for(rule.options)
     effective = dataclasses.replace(
         rule, limits=MappingProxyType({k: v.value for k, v in lim.items()}))
-    variant = analysis.variant
     try:
         m = check(analysis, effective, design, baseline=baseline)
     except NotApplicable as exc:
-        return _finding(rule, variant, Status.NA, exc.reason, unit=unit)
+        return Outcome(status=Status.NA, message=exc.reason, unit=unit)
     except AnalysisError as exc:
-        return _finding(rule, variant, Status.ERROR, f"could not compute: {exc}", unit=unit)
+        return Outcome(status=Status.ERROR, message=f"could not compute: {exc}", unit=unit)
     except Exception as exc:  # noqa: BLE001 - one broken check must not stop the review
-        return _finding(rule, variant, Status.ERROR,
-                        f"check '{rule.check}' crashed ({type(exc).__name__}: {exc}); the "
-                        "other rules were evaluated", unit=unit)
+        return Outcome(status=Status.ERROR, unit=unit,
+                       message=f"check '{rule.check}' crashed ({type(exc).__name__}: "
+                               f"{exc}); the other rules were evaluated")
     unit = m.unit if m.unit is not None else unit
     if check.needs_stable and not analysis.stability.closed_loop_stable:
         # Margins and peaks describe how far a *stable* loop is from instability; on an
         # unstable loop the numbers exist but mean nothing (the stability rule fails).
         why = ("closed-loop stability could not be decided"
                if "closed_loop_stability" in analysis.undecided else "the closed loop is unstable")
-        return _finding(rule, variant, Status.NA,
-                        f"{m.text}; {why}, so this is no stability "
-                        "margin (see closed_loop_stability)", unit=unit, measured=m.value)
+        return Outcome(status=Status.NA, unit=unit, measured=m.value,
+                       message=f"{m.text}; {why}, so this is no stability "
+                               "margin (see closed_loop_stability)")
     details: dict[str, float | str | None] = dict(m.details)
-    details["severity"] = rule.severity
+    details["severity"] = str(rule.severity)
     for key, limit in lim.items():
         details[f"limit.{key}"] = limit.value
         details[f"limit_source.{key}"] = limit.source
 
     if check.predicate:
         status = Status.PASS if m.ok else _BREACH[rule.severity]
-        return _finding(rule, variant, status, m.text, unit=unit, measured=m.value,
-                        limit="stable", limit_source=f"rule set {rule.origin}",
-                        details=details)
+        return Outcome(status=status, message=m.text, unit=unit, measured=m.value,
+                       limit="stable", limit_source=f"rule set {rule.origin}",
+                       details=MappingProxyType(details))
     status, key, phrase = _judge(m, lim, rule.severity,
                                  lambda k: check.limit_unit(k, rule.options))
     if key is None:
         reason = _requirement_hint(rule) if not lim else (
             "none of this rule's limits applies to this loop ("
             + ", ".join(lim) + ")")
-        return _finding(rule, variant, Status.NA, f"{m.text}; {reason}", unit=unit,
-                        measured=m.value, details=details)
+        return Outcome(status=Status.NA, message=f"{m.text}; {reason}", unit=unit,
+                       measured=m.value, details=MappingProxyType(details))
     details["limit_key"] = key
     for part, compare in m.parts.items():
         # Each part (a regression figure) against the same limits, so a report can say
@@ -358,75 +366,34 @@ def evaluate_rule(rule: Rule, lim: Mapping[str, Limit], analysis: LoopAnalysis,
                                             lambda k: check.limit_unit(k, rule.options))
         details[f"{part}.status"] = part_status.value
     limit = lim[key]
-    measured = m.compare[key]
-    if key.endswith(("_ratio", "_recovery")):
+    if limit.key.quantity in ("ratio", "recovery"):
         unit = check.limit_unit(key, rule.options)
-    message = f"{m.text}: {phrase}"
-    return _finding(rule, variant, status, message, unit=unit, measured=measured,
-                    limit=limit.value, limit_source=limit.source, details=details)
+    return Outcome(status=status, message=f"{m.text}: {phrase}", unit=unit,
+                   measured=m.compare[key], limit=limit.value, limit_source=limit.source,
+                   limit_key=limit.key, details=MappingProxyType(details))
 
 
-# --------------------------------------------------------------------------- waivers
+# --------------------------------------------------------------------------- findings
 _UNCHECKED_RATIONALE = "A requirement the design states but no rule checks gives false comfort."
-_WAIVER_RATIONALE = "A waiver that matches nothing is probably stale or misspelt."
 
 
-def _waiver_text(w: Waiver) -> str:
-    return f"{w.reason} (approved by {w.approved_by}, expires {w.expires.isoformat()})"
+def build_finding(rule: Rule, variant: str, outcome: Outcome, waivers: Sequence[Waiver] = (),
+                  *, today: dt.date | None = None) -> Finding:
+    """The finding of one rule on one variant, complete: its waiver decided first."""
+    w = decide_waiver(rule.check, outcome.status, outcome.message, outcome.details, waivers,
+                      today=today)
+    return Finding(rule=rule.id, check=rule.check, status=w.status, variant=variant,
+                   measured=outcome.measured, limit=outcome.limit, unit=outcome.unit,
+                   message=w.message, limit_source=outcome.limit_source,
+                   rationale=rule.rationale, source=rule.source, waiver=w.waiver,
+                   limit_key=outcome.limit_key, details=MappingProxyType(dict(w.details)))
 
 
-def _waive_parts(f: Finding) -> Mapping[str, float | str | None]:
-    """The finding's details with every failing part's status turned into ``waived``."""
-    return MappingProxyType({k: Status.WAIVED.value if k.endswith(".status")
-                             and v == Status.FAIL.value else v for k, v in f.details.items()})
-
-
-def apply_waivers(findings: Sequence[Finding], waivers: Iterable[Waiver], *,
-                  today: dt.date, rule_ids: Sequence[str]) -> list[Finding]:
-    """Apply the design's waivers; unmatched waivers become ``warn`` findings."""
-    out = list(findings)
-    extra: list[Finding] = []
-    for w in waivers:
-        hits = [i for i, f in enumerate(out)
-                if f.rule == w.rule and f.variant is not None
-                and (w.variant is None or f.variant == w.variant)]
-        if not hits:
-            scope = f" on variant '{w.variant}'" if w.variant else ""
-            hint = did_you_mean(w.rule, rule_ids)
-            extra.append(Finding(
-                rule=w.rule, check="waiver", status=Status.WARN, variant=w.variant,
-                measured=None, limit=None, unit="", limit_source="design [[waivers]]",
-                message=f"waiver for rule '{w.rule}'{scope} matches no finding"
-                        + (f" ({hint})" if hint else "") + "; it has no effect",
-                waiver=_waiver_text(w), rationale=_WAIVER_RATIONALE,
-                source="design [[waivers]]"))
-            continue
-        for i in hits:
-            f = out[i]
-            if f.waiver is not None and f.status is Status.WAIVED:
-                continue                    # an earlier waiver already applies
-            if f.check in CHECKS and not CHECKS[f.check].waivable:
-                if f.status is Status.FAIL:
-                    out[i] = dataclasses.replace(
-                        f, waiver=f"refused: {_waiver_text(w)}",
-                        message=f"{f.message}. Waiver by {w.approved_by} refused: "
-                                f"{f.check} cannot be waived")
-            elif w.expires < today:
-                if f.status is Status.FAIL:
-                    out[i] = dataclasses.replace(
-                        f, waiver=f"expired: {_waiver_text(w)}",
-                        message=f"{f.message}. Waiver by {w.approved_by} expired on "
-                                f"{w.expires.isoformat()}; it does not count")
-            elif f.status is Status.FAIL:
-                out[i] = dataclasses.replace(
-                    f, status=Status.WAIVED, waiver=_waiver_text(w), details=_waive_parts(f),
-                    message=f"{f.message}. Waived by {w.approved_by} until "
-                            f"{w.expires.isoformat()}: {w.reason}")
-            else:
-                out[i] = dataclasses.replace(
-                    f, message=f"{f.message}. (Waiver by {w.approved_by} not needed: the "
-                               f"rule does not fail)")
-    return out + extra
+def evaluate_rule(rule: Rule, lim: Mapping[str, Limit], analysis: LoopAnalysis,
+                  design: Design, *, baseline: LoopAnalysis | None = None) -> Finding:
+    """One rule on one variant, without waivers; never raises for a check's own failure."""
+    return build_finding(rule, analysis.variant,
+                         judge_rule(rule, lim, analysis, design, baseline=baseline))
 
 
 def _unused_requirements(design: Design, ruleset: RuleSet) -> list[Finding]:
@@ -455,10 +422,13 @@ def evaluate(design: Design, ruleset: RuleSet, analyses: Sequence[LoopAnalysis],
              limits: Mapping[str, Mapping[str, Limit]] | None = None) -> tuple[Finding, ...]:
     """Evaluate every rule on every variant: findings in variant order, then rule order.
 
-    Design-wide findings (unchecked requirements, unmatched waivers) come last.
+    Design-wide findings (unchecked requirements, then waivers that match no finding) come
+    last.  Each finding is built once, its waiver decided before.
     """
     lim = limits if limits is not None else resolve_limits(design, ruleset)
     base = {a.variant: a for a in baseline} if baseline is not None else None
+    waivers = tuple(design.waivers)
+    matched = [False] * len(waivers)
     findings: list[Finding] = []
     for analysis in analyses:
         for rule in ruleset.rules:
@@ -466,12 +436,19 @@ def evaluate(design: Design, ruleset: RuleSet, analyses: Sequence[LoopAnalysis],
                 continue
             b = None if base is None else base.get(analysis.variant)
             if base is not None and b is None and rule.check == "regression":
-                findings.append(_finding(
-                    rule, analysis.variant, Status.NA,
-                    f"the baseline has no plant variant named '{analysis.variant}'",
-                    unit=CHECKS[rule.check].unit))
-                continue
-            findings.append(evaluate_rule(rule, lim[rule.id], analysis, design, baseline=b))
+                outcome = Outcome(
+                    status=Status.NA, unit=CHECKS[rule.check].unit,
+                    message=f"the baseline has no plant variant named '{analysis.variant}'")
+            else:
+                outcome = judge_rule(rule, lim[rule.id], analysis, design, baseline=b)
+            mine = [i for i, w in enumerate(waivers)
+                    if waiver_matches(w, rule.id, analysis.variant)]
+            for i in mine:
+                matched[i] = True
+            findings.append(build_finding(rule, analysis.variant, outcome,
+                                          [waivers[i] for i in mine], today=today))
     findings.extend(_unused_requirements(design, ruleset))
-    return tuple(apply_waivers(findings, design.waivers, today=today,
-                               rule_ids=[r.id for r in ruleset.rules]))
+    rule_ids = [r.id for r in ruleset.rules]
+    findings.extend(unmatched_waiver(w, rule_ids)
+                    for w, hit in zip(waivers, matched, strict=True) if not hit)
+    return tuple(findings)

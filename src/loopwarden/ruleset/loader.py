@@ -29,13 +29,13 @@ from typing import Any
 
 from ..errors import RuleSetError, did_you_mean
 from ..input_files import check_path, read_input, require_regular_file, toml_loads
-from .checks import CHECKS, Check, is_lower_bound, is_warn_key
-from .model import Rule, RuleSet, RuleSetFile
+from .checks import CHECKS, Check
+from .model import Bound, Level, LimitKey, Rule, RuleSet, RuleSetFile, Severity
 
 __all__ = ["DEFAULT_RULESET", "load_ruleset", "parse_ruleset", "shipped_rulesets"]
 
 DEFAULT_RULESET = "general"
-SEVERITIES = ("fail", "warn", "info")
+SEVERITIES = tuple(s.value for s in Severity)
 RULESET_KEYS = ("id", "version", "title", "extends", "description")
 RULE_KEYS = ("id", "check", "severity", "rationale", "source", "variants")
 VARIANT_CHOICES = ("all", "nominal")
@@ -132,25 +132,32 @@ def _number(value: object, *, file: str, where: str) -> float:
     return x
 
 
-def _check_limit_order(limits: Mapping[str, float], *, file: str, where: str) -> None:
+def _check_limit_order(limits: Mapping[str, float], specs: Mapping[str, LimitKey], *,
+                       file: str, where: str) -> None:
     """A warning level must lie on the safe side of its fail level; min ≤ max."""
     for key, value in limits.items():
-        if not is_warn_key(key):
+        spec = specs[key]
+        if spec.level is not Level.WARN:
             continue
-        hard = key.removeprefix("warn_")
+        hard = spec.fail_key
         if hard not in limits:
             continue
-        if is_lower_bound(key) and value < limits[hard]:
+        if spec.bound is Bound.MIN and value < limits[hard]:
             raise RuleSetError(f"{key} = {value:g} is below {hard} = {limits[hard]:g}; the "
                                "warning level must be the stricter one",
                                file=file, where=f"{where}.{key}")
-        if not is_lower_bound(key) and value > limits[hard]:
+        if spec.bound is Bound.MAX and value > limits[hard]:
             raise RuleSetError(f"{key} = {value:g} is above {hard} = {limits[hard]:g}; the "
                                "warning level must be the stricter one",
                                file=file, where=f"{where}.{key}")
-    if "min" in limits and "max" in limits and limits["min"] > limits["max"]:
-        raise RuleSetError(f"min = {limits['min']:g} is above max = {limits['max']:g}",
-                           file=file, where=where)
+    for key, value in limits.items():
+        spec = specs[key]
+        if spec.level is not Level.FAIL or spec.bound is not Bound.MIN:
+            continue
+        upper = spec.sibling(Bound.MAX, Level.FAIL)
+        if upper in limits and value > limits[upper]:
+            raise RuleSetError(f"{key} = {value:g} is above {upper} = {limits[upper]:g}",
+                               file=file, where=where)
 
 
 def _option(check: Check, key: str, value: object, *, file: str, where: str
@@ -216,9 +223,10 @@ def _parse_rule(raw: object, index: int, *, file: str, origin: str) -> Rule:
         if spec.required and key not in options:
             raise RuleSetError(f"check '{check_name}' needs the option '{key}'", file=file,
                                where=where, hint="allowed: " + ", ".join(spec.choices))
-    _check_limit_order(limits, file=file, where=where)
+    _check_limit_order(limits, check.limit_specs, file=file, where=where)
     if check_name == "error_constant":
-        _check_error_constant_direction(str(options["which"]), limits, file=file, where=where)
+        _check_error_constant_direction(str(options["which"]), limits, check.limit_specs,
+                                        file=file, where=where)
 
     severity = raw.get("severity", "fail")
     if severity not in SEVERITIES:
@@ -243,17 +251,19 @@ def _parse_rule(raw: object, index: int, *, file: str, origin: str) -> Rule:
     source = _text(raw, "source", file=file, where=where)
     assert rationale is not None and source is not None
     return Rule(id=rule_id, check=check_name, limits=MappingProxyType(limits),
-                options=MappingProxyType(options), severity=str(severity),
-                rationale=rationale, source=source, origin=origin)
+                options=MappingProxyType(options), severity=Severity(severity),
+                rationale=rationale, source=source, origin=origin,
+                limit_specs=check.limit_specs)
 
 
-def _check_error_constant_direction(which: str, limits: Mapping[str, float], *, file: str,
+def _check_error_constant_direction(which: str, limits: Mapping[str, float],
+                                    specs: Mapping[str, LimitKey], *, file: str,
                                     where: str) -> None:
     # A constant (Kv) must be large, an error (ramp_error) small: the other bound is a
     # sign of a mix-up, not a requirement.
     wants_lower = which in ("kp", "kv", "ka")
     for key in limits:
-        if is_lower_bound(key) != wants_lower:
+        if (specs[key].bound is Bound.MIN) != wants_lower:
             raise RuleSetError(
                 f"'{key}' does not fit which = '{which}'", file=file, where=f"{where}.{key}",
                 hint=("use min/warn_min for an error constant" if wants_lower
