@@ -268,3 +268,41 @@ def test_the_snippet_with_a_name_loads_back() -> None:
     again = parse_design(base + body + "\n", "t.toml")
     assert again.controller[0].title == "drum \\ boost"
     assert math.isfinite(float(again.controller[0].params["kp"]))
+
+
+@pytest.mark.parametrize(("b", "c"), [(0.4, 0.0), (1.0, 0.0), (0.0, 1.0)])
+def test_steady_errors_use_the_reference_path(b: float, c: float) -> None:
+    # Ramp error lim (1 − T_r(s))/s with T_r = C_r·P/(1 + C·P) [derived], from a
+    # python-control transfer function built independently; type-1 loop (PI on type 0).
+    from loopwarden.analysis.tracking import compute_tracking
+
+    text = _design(f'form = "parallel"\nkp = 2.0\nki = 0.8\nkd = 1.5\ntf = 0.1\n'
+                   f"b = {b}\nc = {c}", PLANT)
+    d = parse_design(text, "t.toml")
+    loop = d.continuous_loop(d.variants[0])
+    C = 2.0 + 0.8 / S + 1.5 * S / (0.1 * S + 1)
+    Cr = 2.0 * b + 0.8 / S + c * 1.5 * S / (0.1 * S + 1)
+    # minreal's default tolerance leaves a near-cancelled pair at the origin (3.750044
+    # against the closed form's 3.75 below): cancel at 1e-12.
+    e_r = ct.minreal((1 + C * P - Cr * P) / (S * (1 + C * P)), tol=1e-12, verbose=False)
+    tr = compute_tracking(loop)
+    assert tr.step_error == 0.0 and tr.kv == pytest.approx(0.8, rel=1e-14)
+    assert tr.ramp_error == pytest.approx(float(np.real(ct.dcgain(e_r))), rel=1e-9)
+    # (1 + kp(1 − b)·P(0))/ki in closed form [derived]
+    assert tr.ramp_error == pytest.approx((1 + 2.0 * (1 - b)) / 0.8, rel=1e-12)
+    res = step_response(loop, BAND)
+    assert res.ramp_error.value[-1] == pytest.approx(tr.ramp_error, rel=1e-3)
+
+
+def test_weight_b_on_a_double_integrator_leaves_a_ramp_error() -> None:
+    # Double integrator 1/s² under a PID: type 2 (zero ramp error) for b = 1; with b ≠ 1
+    # E/R → kp(1 − b)·s/ki near 0, a ramp error (1 − b)·ti [derived].
+    from loopwarden.analysis.tracking import compute_tracking
+
+    text = _design("kp = 1.0\nti = 10.0\ntd = 2.0\nb = 0.5",
+                   "zpk = { zeros = [], poles = [0.0, 0.0], gain = 1.0 }")
+    d = parse_design(text, "t.toml")
+    tr = compute_tracking(d.continuous_loop(d.variants[0]))
+    assert tr.system_type == 3 and tr.step_error == 0.0
+    assert tr.ramp_error == pytest.approx(0.5 * 10.0, rel=1e-12)
+    assert tr.parabola_error == math.inf

@@ -329,6 +329,7 @@ class Loop:
     delay_s: float = 0.0
     stages: tuple[Zpk, ...] = ()
     reference_first: Zpk | None = None
+    reference_gap: Zpk | None = None     # stages[0] − reference_first, exact (tracking)
 
     @cached_property
     def reference_controller(self) -> Zpk:
@@ -383,17 +384,21 @@ class Loop:
         keep = bool(stages) and bool(self.stages) and stages[0] is self.stages[0]
         return Loop(plant=self.plant, controller=ctrl, sensor=self.sensor,
                     delay_s=self.delay_s, stages=tuple(stages),
-                    reference_first=self.reference_first if keep else None)
+                    reference_first=self.reference_first if keep else None,
+                    reference_gap=self.reference_gap if keep else None)
 
     def scaled(self, k: float) -> Loop:
         """The loop with the controller gain multiplied by ``k``."""
         stages = (self.stages[0].scaled(k), *self.stages[1:]) if self.stages else ()
         ref = self.reference_first.scaled(k) if self.reference_first is not None else None
+        gap = self.reference_gap.scaled(k) if self.reference_gap is not None else None
         return Loop(plant=self.plant, controller=self.controller.scaled(k), sensor=self.sensor,
-                    delay_s=self.delay_s, stages=stages, reference_first=ref)
+                    delay_s=self.delay_s, stages=stages, reference_first=ref,
+                    reference_gap=gap)
 
     def with_plant(self, plant: Zpk) -> Loop:
         """The same controller (reference path included) and sensor around another plant
         model, without the delay (e.g. a Padé copy of plant and delay)."""
         return Loop(plant=plant, controller=self.controller, sensor=self.sensor,
-                    stages=self.stages, reference_first=self.reference_first)
+                    stages=self.stages, reference_first=self.reference_first,
+                    reference_gap=self.reference_gap)

@@ -49,6 +49,7 @@ class Stage:
     domain: str = "s"                  # "z": the model is in z (a sampled design's stage)
     title: str | None = None
     reference_model: Zpk | None = None
+    reference_gap: Zpk | None = None   # model − reference_model, exact (see stages.py)
 
     @property
     def name(self) -> str:
@@ -152,10 +153,12 @@ class Design:
         for st in self.controller:
             ctrl = ctrl * st.model
         sensor = self.sensor if self.sensor is not None else Zpk.constant(1.0)
-        first = self.controller[0].reference_model if self.controller else None
+        first = self.controller[0] if self.controller else None
         return Loop(plant=variant.model, controller=ctrl, sensor=sensor,
                     delay_s=variant.delay_s + self.sensor_delay_s,
-                    stages=tuple(st.model for st in self.controller), reference_first=first)
+                    stages=tuple(st.model for st in self.controller),
+                    reference_first=None if first is None else first.reference_model,
+                    reference_gap=None if first is None else first.reference_gap)
 
     def sampled_loop(self, variant: PlantVariant) -> DiscreteLoop:
         """The sampled-data loop in z (requires ``sampling``)."""

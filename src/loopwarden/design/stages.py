@@ -294,6 +294,26 @@ def _pid(t: Table, label: str) -> tuple[Params, Zpk]:
     return params, _pid_zpk(kp, ti, td, tf, label)
 
 
+def pid_reference_gap(stage: Stage) -> Zpk | None:
+    """``C − C_r = kp ((1 − b) + (1 − c)·td s/(tf s + 1))`` of a 2-DOF pid stage, built
+    from its parameters (exact zeros at the origin: b = 1 gives one), None as for
+    :func:`pid_reference_model`.  The steady-state errors of r → y depend on it."""
+    if pid_reference_model(stage) is None:
+        return None
+    p = stage.params
+    kp, td, n, b, c = (float(p[k]) for k in ("kp", "td", "n", "b", "c"))
+    label = f"{stage.model.label} reference gap"
+    if td == 0.0:
+        return Zpk.constant(kp * (1.0 - b), label)
+    tf = td / n
+    lead = (1.0 - b) * tf + (1.0 - c) * td      # kp (lead·s + (1 − b))/(tf s + 1)
+    if b == 1.0:
+        return _zpk([0.0], [-1.0 / tf], kp * lead / tf, label)
+    if lead == 0.0:
+        return _zpk([], [-1.0 / tf], kp * (1.0 - b) / tf, label)
+    return _zpk([-(1.0 - b) / lead], [-1.0 / tf], kp * lead / tf, label)
+
+
 def pid_reference_model(stage: Stage) -> Zpk | None:
     """The reference path kp (b + 1/(ti s) + c·td s/((td/n) s + 1)) of a 2-DOF pid stage
     (None when b = c = 1, or for any other stage: the reference then sees the feedback
@@ -425,7 +445,7 @@ def read_stage(t: Table, index: int) -> Stage:
         check_roots(reference.zeros, file=t.file, where=where,
                     what="the reference path's zero (from b, c)")
     return Stage(index=index, type=kind, params=MappingProxyType(params), model=model,
-                 reference_model=reference)
+                 reference_model=reference, reference_gap=pid_reference_gap(stage))
 
 
 #: The longest stage name (characters).
