@@ -306,3 +306,27 @@ def test_weight_b_on_a_double_integrator_leaves_a_ramp_error() -> None:
     assert tr.system_type == 3 and tr.step_error == 0.0
     assert tr.ramp_error == pytest.approx(0.5 * 10.0, rel=1e-12)
     assert tr.parabola_error == math.inf
+
+
+def test_pdf_shows_the_stage_name_and_the_load_comparison(tmp_path: Path) -> None:
+    import io
+    import re
+
+    from pypdf import PdfReader
+
+    import loopwarden
+    from loopwarden.report.pdf import render_pdf
+
+    text = HOIST.read_text(encoding="utf-8").replace(
+        'type = "lag" ', 'name = "drum <b>boost</b>"\ntype = "lag" ')
+    text += "\n[disturbance]\nat = \"plant_input\"\nsize = 1.0\n"
+    path = tmp_path / "d.toml"
+    path.write_text(text, encoding="utf-8")
+    review = loopwarden.review(loopwarden.load_design(str(path)), today="2026-01-15")
+    pdf = render_pdf(review, embedded={})
+    pages = " ".join(re.sub(r"\s+", " ", p.extract_text() or "")
+                     for p in PdfReader(io.BytesIO(pdf)).pages)
+    assert "drum <b>boost</b>" in pages           # escaped, not taken as markup
+    alt = review.analyses[0].integral_alternatives[0]
+    assert "Load step IE" in pages and "Load step IAE" in pages
+    assert f"{alt.disturbance_ie:.4g}"[:4] in pages

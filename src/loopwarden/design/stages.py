@@ -12,13 +12,33 @@ gain       k (≠ 0)                                 k
 lead       zero < pole, normalize = "dc" | "hf"    dc: (p/z)(s+z)/(s+p), hf: (s+z)/(s+p)
 lag        pole < zero, normalize = "hf" | "dc"    hf: (s+z)/(s+p), dc: (p/z)(s+z)/(s+p)
 pi         kp (≠ 0), ti > 0                        kp (1 + 1/(ti s))
-pid        kp, ti > 0, td ≥ 0, n > 0 (10)          kp (1 + 1/(ti s) + td s/((td/n) s + 1))
+pid        form = "ideal" (default):               kp (1 + 1/(ti s) + td s/(tf s + 1)), tf = td/n
+           kp ≠ 0, ti > 0, td ≥ 0
+           form = "parallel": kp ≠ 0, ki, kd       kp + ki/s + kd s/(tf s + 1), tf = (kd/kp)/n
+           form = "series": kp ≠ 0, ti, td         kp (1 + 1/(ti s))(1 + td s)/(tf s + 1),
+                                                   tf = td/n, tf ≤ ti and tf ≤ td
+           all: n > 0 (10) | tf > 0, b, c in
+           0..10 (1), derivative_on = "error" |
+           "measurement", time_unit = "s" | "min"
 integrator k (≠ 0)                                 k/s
 notch      freq, depth_db > 0, zeta > 0 (0.5)      (s²+2ζ_z ω s+ω²)/(s²+2ζ ω s+ω²)
 lowpass    freq, order = 1 | 2, zeta (0.7071)      ω/(s+ω) or ω²/(s²+2ζ ω s+ω²)
 tf         num, den  (or tf = {num, den})          as given (descending powers of s)
 zpk        zeros, poles, gain  (or zpk = {...})    as given (roots converted from Hz)
 ========== ======================================= ==============================================
+
+Every stage may also carry ``name`` (one line of text, :func:`read_stage_name`).
+
+PID stages: every form is converted exactly to the ideal form, and ``Stage.params`` holds
+the ideal ``kp``, ``ti``, ``td``, ``n`` (seconds), the setpoint weights ``b``, ``c``, the
+``form`` as written and, for a non-default form, unit or filter key, ``as_written``.
+Parallel: ti = kp/ki, td = kd/kp (ki ≠ 0 with the sign of kp: no PD stage; kd 0 or the
+sign of kp).  Series (interacting, Åström & Hägglund 2006, ch. 3) with the filter on the
+whole output: ti = ti' + td' − tf, kp = kp'·ti/ti', td = ti'·td'/ti − tf, n = td/tf.
+``time_unit = "min"``: ti, td, tf are minutes, ki per minute, kd minutes.  ``b``, ``c``
+(``derivative_on = "measurement"`` ≡ c = 0) weight the reference:
+u = kp (b + 1/(ti s) + c·td s/(tf s + 1))·r − C·ym; ``Stage.reference_model`` is that
+reference path (same poles) and ``Stage.reference_gap`` = C − C_r, None without weights.
 
 For the notch ζ_z = ζ·10^(−depth_db/20), so |N(jω)| = 10^(−depth_db/20) at ω.
 ``Stage.params`` holds the numbers as floats (frequencies in rad/s, defaults filled in);
