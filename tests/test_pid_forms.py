@@ -174,6 +174,36 @@ def test_load_integral_is_one_over_ki_for_any_weights(b: float, c: float) -> Non
     d = parse_design(text, "t.toml")
     resp = load_response(d.continuous_loop(d.variants[0]), "plant_input", 1.0, BAND, None)
     assert resp.ie == pytest.approx(0.25 / 0.3, rel=1e-6)
+    # Every load figure is that of the unweighted loop: the load never passes C_r.
+    d1 = parse_design(text.replace(f"b = {b}\nc = {c}", ""), "t.toml")
+    same = load_response(d1.continuous_loop(d1.variants[0]), "plant_input", 1.0, BAND, None)
+    assert (resp.peak, resp.iae, resp.recovery_time_s, resp.u_peak) == (
+        same.peak, same.iae, same.recovery_time_s, same.u_peak)
+
+
+def test_weighted_step_with_a_delay_against_an_exact_inverse_laplace() -> None:
+    # FOPDT 2e^(−s)/(10 s + 1), PID with b = 0.5, c = 0: y(t) from the exact delay
+    # simulation against mpmath's de Hoog inversion of T_r(s)/s with the exact e^(−s)
+    # [derived]; the simulation's stated hold error is DELAY_HOLD_TOL·band = 2e-5.
+    import mpmath as mp
+
+    text = _design("kp = 1.2\nti = 6.0\ntd = 0.4\nn = 10.0\nb = 0.5\nc = 0.0",
+                   "tf = { num = [2.0], den = [10.0, 1.0] }\ndelay = 1.0")
+    d = parse_design(text, "t.toml")
+    res = step_response(d.continuous_loop(d.variants[0]), BAND)
+    t, y = res.step.time_s, res.step.value
+
+    def transform(s):  # type: ignore[no-untyped-def]
+        p, dl = 2 / (10 * s + 1), mp.exp(-s)
+        c = 1.2 * (1 + 1 / (6 * s) + 0.4 * s / (0.04 * s + 1))
+        cr = 1.2 * (0.5 + 1 / (6 * s))
+        return cr * p * dl / (1 + c * p * dl) / s
+
+    with mp.workdps(30):
+        for when in (1.5, 2.5, 4.0, 7.3, 12.0, 25.0):
+            i = int(np.argmin(np.abs(t - when)))
+            ref = float(mp.invertlaplace(transform, float(t[i]), method="dehoog"))
+            assert abs(y[i] - ref) < 1e-3 * BAND
 
 
 def test_derivative_on_measurement_is_c_zero() -> None:
