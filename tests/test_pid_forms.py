@@ -84,7 +84,7 @@ def test_series_unfiltered_limit_is_the_published_conversion() -> None:
 @pytest.mark.parametrize(("k", "ti_s", "td_s", "filt"), [
     (1.2, 8.0, 2.0, "n = 10.0"),
     (-0.5, 3.0, 3.0, "tf = 0.2"),
-    (4.0, 0.5, 2.0, "tf = 0.5"),          # tf = ti': the ideal form's filter still exact
+    (4.0, 0.5, 2.0, "tf = 0.5"),          # tf = ti': the filter cancels a zero: a PI
 ])
 def test_series_with_output_filter_matches_python_control(k: float, ti_s: float, td_s: float,
                                                           filt: str) -> None:
@@ -266,8 +266,11 @@ def test_stage_name_in_json_snippet_findings_and_disturbance_comparison(tmp_path
     path = tmp_path / "d.toml"
     path.write_text(text, encoding="utf-8")
     out = tmp_path / "r.json"
-    assert main(["review", str(path), "--json", str(out)]) in (0, 1)
+    md = tmp_path / "r.md"
+    assert main(["review", str(path), "--json", str(out), "--markdown", str(md)]) in (0, 1)
     data = json.loads(out.read_text(encoding="utf-8"))
+    summary = md.read_text(encoding="utf-8")
+    assert "Alternative IE" in summary and "<lag>" not in summary.split("```toml")[0]
     names = [s["name"] for s in data["design"]["controller"]]
     assert names == [None, 'drum "boost" <lag>']
     v = data["variants"][0]

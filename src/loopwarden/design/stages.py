@@ -51,6 +51,7 @@ loop gain is set by ``gain`` / ``pi`` / ``pid`` stages.
 from __future__ import annotations
 
 import math
+import sys
 import unicodedata
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
@@ -233,7 +234,10 @@ def _pid_series(t: Table, scale: float, unit: str) -> tuple[float, float, float,
     ti = ti_s + td_s - tf
     kp = k * ti / ti_s
     td = ti_s * td_s / ti - tf
-    return kp, ti, max(td, 0.0), tf
+    # (ti' − tf)(td' − tf) = 0 gives td = 0 exactly; rounding must not leave a 1e-17 td.
+    if td <= 8.0 * sys.float_info.epsilon * tf:
+        return kp, ti, 0.0, None
+    return kp, ti, td, tf
 
 
 def _pid_weights(t: Table) -> tuple[float, float]:
