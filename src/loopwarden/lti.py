@@ -316,6 +316,11 @@ class Loop:
     Reference r enters at the summing junction; the error is ``e = r − H·y``; the loop
     transfer function is ``L(s) = C(s)·P(s)·H(s)·e^{−s·delay_s}``.  ``stages`` keeps the
     controller's factors in signal order so that analyses can remove or alter one of them.
+
+    ``reference_first`` (a 2-DOF pid with setpoint weights as first stage) is that stage's
+    path from the reference, with the poles of ``stages[0]``: the controller output is
+    ``u = C₂···Cₖ·(C_r·r − C₁·H·y)``.  None: the reference enters the error like the
+    measurement.  The feedback loop L, and everything computed from it, does not depend on it.
     """
 
     plant: Zpk
@@ -323,6 +328,25 @@ class Loop:
     sensor: Zpk
     delay_s: float = 0.0
     stages: tuple[Zpk, ...] = ()
+    reference_first: Zpk | None = None
+    reference_gap: Zpk | None = None     # stages[0] − reference_first, exact (tracking)
+
+    @cached_property
+    def reference_controller(self) -> Zpk:
+        """``C_r`` of ``u = C_r·r − C·ym`` (``C`` itself without setpoint weights)."""
+        if self.reference_first is None:
+            return self.controller
+        ctrl = self.reference_first
+        for st in self.stages[1:]:
+            ctrl = ctrl * st
+        return ctrl
+
+    @cached_property
+    def reference_forward(self) -> Zpk:
+        """``C_r·P`` (reference to output without delay and feedback)."""
+        if self.reference_first is None:
+            return self.forward
+        return self.reference_controller * self.plant
 
     @cached_property
     def rational(self) -> Zpk:
@@ -356,11 +380,25 @@ class Loop:
         ctrl = Zpk.constant(1.0)
         for st in stages:
             ctrl = ctrl * st
+        # A 2-DOF first stage keeps its reference path while that stage is kept.
+        keep = bool(stages) and bool(self.stages) and stages[0] is self.stages[0]
         return Loop(plant=self.plant, controller=ctrl, sensor=self.sensor,
-                    delay_s=self.delay_s, stages=tuple(stages))
+                    delay_s=self.delay_s, stages=tuple(stages),
+                    reference_first=self.reference_first if keep else None,
+                    reference_gap=self.reference_gap if keep else None)
 
     def scaled(self, k: float) -> Loop:
         """The loop with the controller gain multiplied by ``k``."""
         stages = (self.stages[0].scaled(k), *self.stages[1:]) if self.stages else ()
+        ref = self.reference_first.scaled(k) if self.reference_first is not None else None
+        gap = self.reference_gap.scaled(k) if self.reference_gap is not None else None
         return Loop(plant=self.plant, controller=self.controller.scaled(k), sensor=self.sensor,
-                    delay_s=self.delay_s, stages=stages)
+                    delay_s=self.delay_s, stages=stages, reference_first=ref,
+                    reference_gap=gap)
+
+    def with_plant(self, plant: Zpk) -> Loop:
+        """The same controller (reference path included) and sensor around another plant
+        model, without the delay (e.g. a Padé copy of plant and delay)."""
+        return Loop(plant=plant, controller=self.controller, sensor=self.sensor,
+                    stages=self.stages, reference_first=self.reference_first,
+                    reference_gap=self.reference_gap)

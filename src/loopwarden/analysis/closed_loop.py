@@ -6,7 +6,10 @@ in the loop transfer function.  Its eigenvalues are therefore the poles of the w
 interconnection, which is what internal stability is about.
 
 Signals: reference r, error e = r − ym, controller output u, plant output y, measured
-ym = H·y.  The transport delay sits at the plant input.
+ym = H·y.  The transport delay sits at the plant input.  A 2-DOF pid as first stage
+(setpoint weights b, c) gives ``u = C₂···Cₖ·(C_r·r − C₁·ym)``: the reference enters through
+its own input matrices on the same states (:func:`_reference_input`), so every pole and
+the feedback loop stay those of C·P·H, and every r → y and r → u response uses C_r.
 """
 
 from __future__ import annotations
@@ -105,6 +108,49 @@ def _controller_blocks(loop: Loop) -> tuple[Zpk, ...]:
     return loop.stages if loop.stages else (loop.controller,)
 
 
+def _reference_input(loop: Loop, ctrl: StateSpace) -> tuple[Matrix, Matrix]:
+    """Input matrices ``(B_r, D_r)`` of the controller chain for the reference.
+
+    Without setpoint weights the reference enters like the error: ``(B, D)`` of ``ctrl``.
+    A 2-DOF first stage ``C_r`` has the poles of the first block, so it shares that block's
+    realisation ``(A₁, C₁)``; its ``(B₁ᵣ, D₁ᵣ)`` solve ``C₁(sⱼI − A₁)⁻¹B₁ᵣ = C_r(sⱼ) − D₁ᵣ``
+    at n₁ real points (observable (A₁, C₁): the pid's realisation is minimal), and the chain
+    carries them like the first block's own input (a series connection's A and C do not
+    depend on its first block's B and D).  The closed-loop matrix is therefore unchanged.
+    """
+    ref = loop.reference_first
+    if ref is None:
+        return ctrl.b, ctrl.d
+    a1, _, c1, _ = _realise_block(loop.stages[0])
+    n1 = a1.shape[0]
+    if ref.poles.size != n1 or ref.zeros.size > n1:
+        raise AnalysisError("the reference path does not share the first stage's poles")
+    d1 = np.array([[ref.gain if ref.zeros.size == n1 else 0.0]])
+    scale = max(1.0, float(np.max(np.abs(np.concatenate([ref.poles, ref.zeros, [1.0]])))))
+    pts = scale * (1.0 + np.arange(n1))
+    rows = np.array([(c1 @ np.linalg.solve(sj * np.eye(n1) - a1, np.eye(n1)))[0]
+                     for sj in pts])
+    rhs = np.array([float(ref(np.array([sj]))[0].real) - d1[0, 0] for sj in pts])
+    b1 = np.linalg.solve(rows, rhs).reshape(n1, 1) if n1 else np.zeros((0, 1))
+    # Check at a complex point off every root: the realisation must be C_r itself.
+    s0 = complex(0.37 * scale, 1.3 * scale)
+    got = (c1 @ np.linalg.solve(s0 * np.eye(n1) - a1, b1))[0, 0] + d1[0, 0] if n1 else d1[0, 0]
+    want = complex(ref(np.array([s0]))[0])
+    if not abs(got - want) <= 1e-9 * max(abs(want), abs(d1[0, 0]), 1e-300):
+        raise AnalysisError("the reference path could not be realised on the first stage's "
+                            "states")
+    B, D = b1, d1
+    n = n1
+    for blk in loop.stages[1:]:
+        a, b, _, d = _realise_block(blk)
+        B = np.vstack([B, b @ D])
+        D = d @ D
+        n += a.shape[0]
+    if n != ctrl.order:
+        raise AnalysisError("the reference path's chain does not match the controller")
+    return B, D
+
+
 def _cached(fn: Callable[[Loop], T]) -> Callable[[Loop], T]:
     """Memoise a function of a loop per loop object (loops are immutable): stability,
     time responses, slow pairs and the integral alternative all ask for the same
@@ -155,16 +201,19 @@ def delay_split(loop: Loop) -> StateSpace:
     ym_x = sensor.d @ y_x
     ym_x[:, ih] += sensor.c
     ym_w = sensor.d @ y_w
-    e_x, e_r, e_w = -ym_x, np.ones((1, 1)), -ym_w
+    # The controller sees −ym through (B, D) and r through (B_r, D_r): the same unless a
+    # 2-DOF pid weights the reference (u = C_r·r − C·ym).
+    e_x, e_w = -ym_x, -ym_w
+    b_r, d_r = _reference_input(loop, ctrl)
     u_x = ctrl.d @ e_x
     u_x[:, ic] += ctrl.c
-    u_r, u_w = ctrl.d @ e_r, ctrl.d @ e_w
+    u_r, u_w = d_r, ctrl.d @ e_w
 
     A = np.zeros((n, n))
     Bm = np.zeros((n, 2))
     A[ic, :] += ctrl.b @ e_x
     A[ic, ic] += ctrl.a
-    Bm[ic, 0:1] += ctrl.b @ e_r
+    Bm[ic, 0:1] += b_r
     Bm[ic, 1:2] += ctrl.b @ e_w
     A[ip, ip] += plant.a
     Bm[ip, 1:2] += plant.b
@@ -219,14 +268,15 @@ def closed_loop_poles(loop: Loop) -> NDArray[np.complex128]:
 
 @_cached
 def reference_to_output(loop: Loop) -> Zpk:
-    """``T_ref(s) = C·P / (1 + C·P·H)`` without the delay, in zpk form.
+    """``T_ref(s) = C_r·P / (1 + C·P·H)`` without the delay, in zpk form (``C_r`` the
+    reference path, :attr:`.Loop.reference_controller`; ``C`` without setpoint weights).
 
-    Poles are the closed-loop poles of the interconnection; zeros are those of C·P plus the
+    Poles are the closed-loop poles of the interconnection; zeros are those of C_r·P plus the
     poles of H (which become zeros of the reference response).  Uncancelled: a mode that the
     loop cancels appears as a pole–zero pair here.
     """
     poles = closed_loop_poles(loop)
-    fwd = loop.forward
+    fwd = loop.reference_forward
     zeros = np.concatenate([fwd.zeros, loop.sensor.poles])
     # The gain follows from the high-frequency behaviour: match at a point off every root.
     probe_mag = 1.0 + 2.0 * float(np.max(np.abs(np.concatenate([poles, zeros, [1.0]]))))

@@ -366,6 +366,11 @@ def _num_z(x: float) -> str:
     return f"{x:.17g}"
 
 
+def _toml_string(text: str) -> str:
+    """A TOML basic string (the loader allows no control characters in a stage name)."""
+    return '"' + text.replace("\\", "\\\\").replace('"', '\\"') + '"'
+
+
 def _snippet(stage: Stage, new_model: Zpk, k: float, target_deg: float, met: bool,
              variants: int = 1) -> str:
     where = "s = 0" if stage.domain == "s" else "z = 1"
@@ -379,11 +384,15 @@ def _snippet(stage: Stage, new_model: Zpk, k: float, target_deg: float, met: boo
         zero = float(-new_model.zeros[0].real)
         kp = k * new_model.gain
         body = ["[[controller]]", 'type = "pi"', f"kp = {_num(kp)}", f"ti = {_num(1.0 / zero)}"]
+        if stage.title is not None:
+            body.insert(1, f"name = {_toml_string(stage.title)}")
     else:
         # tf coefficients are in s (rad/s) whatever the design's frequency unit, or in z.
         num = np.real(np.poly(new_model.zeros)) * new_model.gain * k
         den = np.real(np.poly(new_model.poles))
         body = ["[[controller]]", 'type = "tf"']
+        if stage.title is not None:
+            body.insert(1, f"name = {_toml_string(stage.title)}")
         # A digital filter's coefficients near 1 carry its poles: all 17 digits in z.
         put = _num
         if stage.domain == "z":
@@ -581,6 +590,38 @@ def integral_alternatives(loop: Loop | DiscreteLoop, stages: Sequence[Stage],
     return tuple(out)
 
 
+def _with_disturbance(design: Design, loop: Loop | DiscreteLoop, stage_index: int,
+                      alt: IntegralAlternative, current: LoopAnalysis, band: float,
+                      ) -> IntegralAlternative:
+    """``alt`` with the load-disturbance IE and IAE of the alternative and of the current
+    controller (the design's ``[disturbance]``; :mod:`.disturbance` as for the review)."""
+    from .disturbance import load_response, sampled_load_response
+    from .undecided import NUMERIC_ERRORS
+
+    dist = design.disturbance
+    if dist is None:
+        return alt
+    now = current.disturbance
+    out = dataclasses.replace(alt, current_disturbance_ie=None if now is None else now.ie,
+                              current_disturbance_iae=None if now is None else now.iae)
+    if not alt.closed_loop_stable:
+        return dataclasses.replace(out, disturbance_error="the alternative's closed loop "
+                                   "is not stable")
+    tuned = scaled(integral_loop(loop, design.controller, stage_index, design.sampling),
+                   alt.gain_factor)
+    try:
+        with np.errstate(all="ignore"):
+            if isinstance(tuned, DiscreteLoop):
+                variant = next(v for v in design.variants if v.name == current.variant)
+                resp = sampled_load_response(tuned, variant.model, dist.at, dist.size, band,
+                                             dist.band_rad_s, design.sensor)
+            else:
+                resp = load_response(tuned, dist.at, dist.size, band, dist.band_rad_s)
+    except NUMERIC_ERRORS as exc:
+        return dataclasses.replace(out, disturbance_error=f"{type(exc).__name__}: {exc}")
+    return dataclasses.replace(out, disturbance_ie=resp.ie, disturbance_iae=resp.iae)
+
+
 def design_alternatives(design: Design, analyses: Sequence[LoopAnalysis], *,
                         min_phase_margin_deg: float | None, settling_band: float,
                         requirements: Sequence[RequirementLimit] = (),
@@ -612,7 +653,8 @@ def design_alternatives(design: Design, analyses: Sequence[LoopAnalysis], *,
         except (AnalysisError, ArithmeticError, ValueError, RuntimeError) as exc:
             error = f"{type(exc).__name__}: {exc}"
             continue
-        for i, alt in zip(modelled, alts, strict=True):
+        for i, lp, alt in zip(modelled, loops, alts, strict=True):
+            alt = _with_disturbance(design, lp, index, alt, analyses[i], settling_band)
             per_variant[i].append(judge(alt, requirements, nominal=i == 0))
     out = list(analyses)
     for i in modelled:

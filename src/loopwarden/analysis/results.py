@@ -325,6 +325,14 @@ class IntegralAlternative:
     fails: tuple[str, ...] = ()                    # rule ids of the limits it breaches
     slow_pairs_error: str | None = None            # why slow pairs were not computed
     sizing_variant: str | None = None              # the variant that limits the gain
+    # With a [disturbance] table: the load step's ∫y dt and ∫|y| dt (output·s) of this
+    # alternative and of the current controller on the same variant (None: no table, an
+    # unstable loop, or not computed; ``disturbance_error`` then says why).
+    disturbance_ie: float | None = None
+    disturbance_iae: float | None = None
+    current_disturbance_ie: float | None = None
+    current_disturbance_iae: float | None = None
+    disturbance_error: str | None = None
 
 
 # --------------------------------------------------------------------------- curves

@@ -240,7 +240,7 @@ def slow_tail(loop: Loop | DiscreteLoop, step: StepResult, band: float, *,
         roots = _continuous_roots(loop)
     fn = char_function(loop)
     sensor = loop.sensor
-    zeros = np.concatenate([loop.forward.zeros, sensor.poles])
+    zeros = np.concatenate([loop.reference_forward.zeros, sensor.poles])
     pairs = match_pairs(np.asarray(roots, dtype=complex), zeros)
     hidden = fn.hidden_modes()
     residues = [_residue(fn, loop, p, hidden) for p, _ in pairs]
@@ -272,7 +272,7 @@ def _residue(fn: CharFunction, loop: Loop, pole: complex, hidden: ComplexArray) 
     """Step residue of a closed-loop root; 0 for a mode cancelled inside C·P·H that the
     reference cannot excite (C·P has no pole left there)."""
     if hidden.size and np.min(np.abs(hidden - pole)) <= 1e-9 * max(abs(pole), 1e-300):
-        fwd = loop.forward
+        fwd = loop.reference_forward
         tol = 1e-9 * max(abs(pole), 1e-300)
         net = int(np.sum(np.abs(fwd.poles - pole) <= tol)
                   - np.sum(np.abs(fwd.zeros - pole) <= tol))
@@ -281,7 +281,12 @@ def _residue(fn: CharFunction, loop: Loop, pole: complex, hidden: ComplexArray) 
         raise AnalysisError(f"closed-loop root {pole:.6g} is a mode the sensor hides from "
                             "the loop: its residue is not computed")
     sensor = loop.sensor
-    return exact_residue(fn, lambda s: complex(sensor(np.array([s]))[0]), pole)
+    res = exact_residue(fn, lambda s: complex(sensor(np.array([s]))[0]), pole)
+    if loop.reference_first is not None:
+        # T_r = (C_r/C)·T: the 2-DOF first stage's reference path over its feedback path.
+        at = np.array([pole])
+        res *= complex(loop.reference_first(at)[0] / loop.stages[0](at)[0])
+    return res
 
 
 def _pair(p: complex, z: complex, r: complex, sigma: float, tol: float, ramp_tol: float,

@@ -146,8 +146,8 @@ def _pole_stability(loop: Loop) -> Stability:
 
 
 def _reference_zeros(loop: Loop) -> ComplexArray:
-    """Zeros of the reference-to-output response: those of C·P and the sensor's poles."""
-    return np.concatenate([loop.forward.zeros, loop.sensor.poles])
+    """Zeros of the reference-to-output response: those of C_r·P and the sensor's poles."""
+    return np.concatenate([loop.reference_forward.zeros, loop.sensor.poles])
 
 
 # --------------------------------------------------------------------------- Nyquist

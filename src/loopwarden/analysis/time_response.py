@@ -719,9 +719,8 @@ def step_response(loop: Loop, band: float) -> StepResult:
                             "(or no finite one): step metrics are undefined")
 
     if loop.has_delay:
-        padded = Loop(plant=loop.plant * _pade(loop.delay_s, PADE_ORDER),
-                      controller=loop.controller, sensor=loop.sensor, stages=loop.stages)
-        t_ref = reference_to_output(padded)
+        t_ref = reference_to_output(loop.with_plant(loop.plant * _pade(loop.delay_s,
+                                                                       PADE_ORDER)))
     else:
         t_ref = reference_to_output(loop)
     poles, amp = _mode_amplitudes(t_ref)

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import math
 
-from ..lti import Loop
+from ..lti import Loop, Zpk
 from .results import Tracking
 
 __all__ = ["compute_tracking", "error_constant"]
@@ -69,7 +69,10 @@ def compute_tracking(loop: Loop) -> Tracking:
     Notes
     -----
     The constants describe the error ``r − H·y`` seen by the controller; with a sensor of
-    DC gain H(0) ≠ 1 the output error ``r − y`` differs.
+    DC gain H(0) ≠ 1 the output error ``r − y`` differs.  ``kp``, ``kv``, ``ka`` and the
+    type are those of L; with a 2-DOF pid (setpoint weights b, c ≠ 1) the three errors
+    are those of the reference path (e.g. b ≠ 1 on a type-2 loop leaves the ramp error
+    (1 − b)·ti instead of 0).
     """
     lo = loop.rational
     system_type = lo.origin_poles
@@ -81,12 +84,51 @@ def compute_tracking(loop: Loop) -> Tracking:
     kp = error_constant(system_type, coefficient, 0)
     kv = error_constant(system_type, coefficient, 1)
     ka = error_constant(system_type, coefficient, 2)
+    errors = (_inverse(1.0 + kp), _inverse(kv), _inverse(ka))
+    gap = loop.reference_gap
+    if gap is not None and gap.gain != 0.0:
+        errors = _weighted_errors(loop, gap, system_type, coefficient)
     return Tracking(
         system_type=system_type,
         kp=kp,
         kv=kv,
         ka=ka,
-        step_error=_inverse(1.0 + kp),
-        ramp_error=_inverse(kv),
-        parabola_error=_inverse(ka),
+        step_error=errors[0],
+        ramp_error=errors[1],
+        parabola_error=errors[2],
     )
+
+
+def _leading(n: int, coefficient: float) -> tuple[int, float]:
+    """``1 + G`` near s = 0 as ``a·s^(−p)``, for G of type n with coefficient c."""
+    if n > 0:
+        return n, coefficient
+    if n == 0:
+        return 0, 1.0 + coefficient
+    return 0, 1.0
+
+
+def _weighted_errors(loop: Loop, gap: Zpk, system_type: int, coefficient: float
+                     ) -> tuple[float, float, float]:
+    """Steady-state errors of ``r − H·y`` with a 2-DOF first stage [derived].
+
+    With ``C₁ − C_r = Δ`` (:attr:`.Loop.reference_gap`) and ``G = C₂···Cₖ·P·H``,
+    ``E/R = (1 + Δ·G)/(1 + C₁·G)``; near s = 0 numerator and denominator are ``a·s^(−p)``
+    and the error to ``r = t^k/k!`` is ``lim (E/R)/s^k``: 0, ``a_N/a_D`` or ∞.
+    """
+    g = loop.plant * loop.sensor
+    for st in loop.stages[1:]:
+        g = g * st
+    dg = gap * g
+    p_n, a_n = _leading(dg.origin_poles, dg.low_frequency_coefficient())
+    p_d, a_d = _leading(system_type, coefficient)
+    out = []
+    for k in range(3):
+        power = p_d - p_n - k
+        if power > 0:
+            out.append(0.0)
+        elif power < 0 or a_d == 0.0:
+            out.append(math.inf)
+        else:
+            out.append(a_n / a_d)
+    return out[0], out[1], out[2]

@@ -348,8 +348,24 @@ def _controller(top: Table, *, sampled: bool = False) -> tuple[Stage, ...]:
     if not tables:
         raise top.error("controller", "the controller has no stages",
                         'add at least one [[controller]] table, e.g. type = "gain"')
-    return tuple(read_controller_stage(st, i + 1, sampled=sampled)
-                 for i, st in enumerate(tables))
+    stages = tuple(read_controller_stage(st, i + 1, sampled=sampled)
+                   for i, st in enumerate(tables))
+    for st in stages:
+        if st.reference_model is None:
+            continue
+        # u = C_2···C_k · (C_r,pid·r − C_pid·ym): the reference path is defined for a 2-DOF
+        # pid that sees the reference and the measurement directly, i.e. the first stage.
+        at = tables[st.index - 1]
+        key = next(k for k in ("b", "c", "derivative_on") if at.has(k))
+        if sampled:
+            raise at.error(key, "setpoint weights (b, c ≠ 1) are not supported in a sampled "
+                           "design", "leave b = c = 1, or review the loop in continuous time")
+        if st.index != 1:
+            raise at.error(key, f"a pid with setpoint weights (b, c ≠ 1) must be the first "
+                           f"controller stage, it is stage {st.index}",
+                           "stages before it would filter the error, not the reference and "
+                           "the measurement separately; move the pid first")
+    return stages
 
 
 # ---------------------------------------------------------------------- requirements

@@ -34,9 +34,12 @@ class PlantVariant:
 class Stage:
     """One controller stage in signal order.
 
-    ``params`` holds the keys as written (frequencies converted to rad/s); ``model`` is the
-    stage's transfer function.  ``index`` is 1-based, matching ``controller[index]`` in
-    messages.
+    ``params`` holds the keys as written (frequencies converted to rad/s; a pid's in the
+    ideal form, seconds, see :mod:`.stages`); ``model`` is the stage's transfer function
+    from the error (for a pid with setpoint weights, from the measurement with its sign
+    reversed); ``reference_model`` is a 2-DOF pid's path from the reference (same poles),
+    None when the reference sees ``model``.  ``index`` is 1-based, matching
+    ``controller[index]`` in messages; ``title`` is the stage's optional ``name`` key.
     """
 
     index: int
@@ -44,10 +47,15 @@ class Stage:
     params: Mapping[str, float | str]
     model: Zpk
     domain: str = "s"                  # "z": the model is in z (a sampled design's stage)
+    title: str | None = None
+    reference_model: Zpk | None = None
+    reference_gap: Zpk | None = None   # model − reference_model, exact (see stages.py)
 
     @property
     def name(self) -> str:
-        return f"controller[{self.index}] {self.type}"
+        """``controller[2] lag``, with the stage's own name in quotes when it has one."""
+        base = f"controller[{self.index}] {self.type}"
+        return base if self.title is None else f'{base} "{self.title}"'
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -145,9 +153,12 @@ class Design:
         for st in self.controller:
             ctrl = ctrl * st.model
         sensor = self.sensor if self.sensor is not None else Zpk.constant(1.0)
+        first = self.controller[0] if self.controller else None
         return Loop(plant=variant.model, controller=ctrl, sensor=sensor,
                     delay_s=variant.delay_s + self.sensor_delay_s,
-                    stages=tuple(st.model for st in self.controller))
+                    stages=tuple(st.model for st in self.controller),
+                    reference_first=None if first is None else first.reference_model,
+                    reference_gap=None if first is None else first.reference_gap)
 
     def sampled_loop(self, variant: PlantVariant) -> DiscreteLoop:
         """The sampled-data loop in z (requires ``sampling``)."""

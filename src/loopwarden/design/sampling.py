@@ -25,6 +25,7 @@ transport delay are sampled exactly as the computer sees them, from the hold to 
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Sequence
 from types import MappingProxyType
 
@@ -41,7 +42,7 @@ from .bounds import (
 )
 from .forms import Table, read_poly
 from .model import Sampling, Stage
-from .stages import read_stage
+from .stages import read_stage, read_stage_name
 
 __all__ = ["DOMAINS", "controller_blocks", "discrete_loop", "read_controller_stage",
            "read_sampling"]
@@ -87,6 +88,11 @@ def read_sampling(t: Table) -> Sampling:
 
 def read_controller_stage(t: Table, index: int, *, sampled: bool) -> Stage:
     """One ``[[controller]]`` table, in s (the stage catalog) or in z (``domain = "z"``)."""
+    title = read_stage_name(t)
+    if title is not None:
+        t = Table({k: v for k, v in t.data.items() if k != "name"}, t.where, t.file, t.hz)
+        return dataclasses.replace(read_controller_stage(t, index, sampled=sampled),
+                                   title=title)
     if "domain" not in t.data:
         return read_stage(t, index)
     domain = t.choice("domain", DOMAINS)

@@ -12,13 +12,33 @@ gain       k (≠ 0)                                 k
 lead       zero < pole, normalize = "dc" | "hf"    dc: (p/z)(s+z)/(s+p), hf: (s+z)/(s+p)
 lag        pole < zero, normalize = "hf" | "dc"    hf: (s+z)/(s+p), dc: (p/z)(s+z)/(s+p)
 pi         kp (≠ 0), ti > 0                        kp (1 + 1/(ti s))
-pid        kp, ti > 0, td ≥ 0, n > 0 (10)          kp (1 + 1/(ti s) + td s/((td/n) s + 1))
+pid        form = "ideal" (default):               kp (1 + 1/(ti s) + td s/(tf s + 1)), tf = td/n
+           kp ≠ 0, ti > 0, td ≥ 0
+           form = "parallel": kp ≠ 0, ki, kd       kp + ki/s + kd s/(tf s + 1), tf = (kd/kp)/n
+           form = "series": kp ≠ 0, ti, td         kp (1 + 1/(ti s))(1 + td s)/(tf s + 1),
+                                                   tf = td/n, tf ≤ ti and tf ≤ td
+           all: n > 0 (10) | tf > 0, b, c in
+           0..10 (1), derivative_on = "error" |
+           "measurement", time_unit = "s" | "min"
 integrator k (≠ 0)                                 k/s
 notch      freq, depth_db > 0, zeta > 0 (0.5)      (s²+2ζ_z ω s+ω²)/(s²+2ζ ω s+ω²)
 lowpass    freq, order = 1 | 2, zeta (0.7071)      ω/(s+ω) or ω²/(s²+2ζ ω s+ω²)
 tf         num, den  (or tf = {num, den})          as given (descending powers of s)
 zpk        zeros, poles, gain  (or zpk = {...})    as given (roots converted from Hz)
 ========== ======================================= ==============================================
+
+Every stage may also carry ``name`` (one line of text, :func:`read_stage_name`).
+
+PID stages: every form is converted exactly to the ideal form, and ``Stage.params`` holds
+the ideal ``kp``, ``ti``, ``td``, ``n`` (seconds), the setpoint weights ``b``, ``c``, the
+``form`` as written and, for a non-default form, unit or filter key, ``as_written``.
+Parallel: ti = kp/ki, td = kd/kp (ki ≠ 0 with the sign of kp: no PD stage; kd 0 or the
+sign of kp).  Series (interacting, Åström & Hägglund 2006, ch. 3) with the filter on the
+whole output: ti = ti' + td' − tf, kp = kp'·ti/ti', td = ti'·td'/ti − tf, n = td/tf.
+``time_unit = "min"``: ti, td, tf are minutes, ki per minute, kd minutes.  ``b``, ``c``
+(``derivative_on = "measurement"`` ≡ c = 0) weight the reference:
+u = kp (b + 1/(ti s) + c·td s/(tf s + 1))·r − C·ym; ``Stage.reference_model`` is that
+reference path (same poles) and ``Stage.reference_gap`` = C − C_r, None without weights.
 
 For the notch ζ_z = ζ·10^(−depth_db/20), so |N(jω)| = 10^(−depth_db/20) at ω.
 ``Stage.params`` holds the numbers as floats (frequencies in rad/s, defaults filled in);
@@ -31,6 +51,8 @@ loop gain is set by ``gain`` / ``pi`` / ``pid`` stages.
 from __future__ import annotations
 
 import math
+import sys
+import unicodedata
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from types import MappingProxyType
@@ -127,28 +149,207 @@ def _pi(t: Table, label: str) -> tuple[Params, Zpk]:
     return {"kp": kp, "ti": ti}, _zpk([-1.0 / ti], [0.0], kp, label)
 
 
-def _pid(t: Table, label: str) -> tuple[Params, Zpk]:
+#: PID forms (``form``), the units of its times (``time_unit``, in seconds) and its keys.
+PID_FORMS = ("ideal", "parallel", "series")
+TIME_UNITS: Mapping[str, float] = MappingProxyType({"s": 1.0, "min": 60.0})
+_PID_FORM_KEYS: Mapping[str, tuple[str, ...]] = MappingProxyType({
+    "ideal": ("kp", "ti", "td"), "parallel": ("kp", "ki", "kd"), "series": ("kp", "ti", "td")})
+_PID_COMMON = ("form", "n", "tf", "b", "c", "derivative_on", "time_unit")
+#: Setpoint weights b and c lie within 0 .. MAX_SETPOINT_WEIGHT.
+MAX_SETPOINT_WEIGHT = 10.0
+DEFAULT_N = 10.0
+
+
+def _pid_time(t: Table, key: str, scale: float, unit: str, value: float | None = None,
+              shown: str | None = None) -> float:
+    """A PID time in seconds (``scale`` seconds per ``unit``), within the root range."""
+    if value is None:
+        value = t.number(key, above=0.0, unit=unit) * scale
+    if not 1.0 / MAX_ROOT_RAD_S <= value <= 1.0 / MIN_ROOT_RAD_S:
+        raise t.error(key, f"{shown or 'expected a time'} within {1.0 / MAX_ROOT_RAD_S:g} .. "
+                      f"{1.0 / MIN_ROOT_RAD_S:g} s, got {value:g} s",
+                      "README.md lists the ranges the analysis can carry")
+    return value
+
+
+def _pid_filter(t: Table, td_s: float, scale: float, unit: str) -> float | None:
+    """The derivative filter time constant in seconds from ``n`` (tf = td/n, td the form's
+    own derivative time in seconds) or ``tf``; None when there is no derivative term."""
+    if t.has("n") and t.has("tf"):
+        raise t.error("tf", "both n and tf given for the derivative filter",
+                      "give the filter either as n (tf = td/n) or as the time constant tf")
+    if t.has("tf"):
+        tf = _pid_time(t, "tf", scale, unit)
+        return tf if td_s > 0.0 else None
+    n = t.number("n", above=0.0, default=DEFAULT_N)
+    return td_s / n if td_s > 0.0 else None
+
+
+def _pid_parallel(t: Table, scale: float, unit: str) -> tuple[float, float, float, float | None]:
+    """kp + ki/s + kd s/(tf s + 1) → ideal kp, ti, td (s) and the filter tf (s)."""
     kp = t.number("kp", nonzero=True)
-    ti = _time(t, "ti")
-    td = t.number("td", minimum=0.0, unit="s")
-    if td != 0.0:
-        td = _time(t, "td")
-    n = t.number("n", above=0.0, default=10.0)
-    params: Params = {"kp": kp, "ti": ti, "td": td, "n": n}
-    if td == 0.0:
-        return params, _zpk([-1.0 / ti], [0.0], kp, label)
-    tf = td / n
-    # Over the common denominator ti·s·(tf·s + 1) the numerator is
-    # ti(tf + td) s² + (ti + tf) s + 1; the leading ratio gives the gain kp(tf + td)/tf.
-    a, b, c = ti * (tf + td), ti + tf, 1.0
-    disc = b * b - 4.0 * a * c
-    if disc >= 0:
-        big = -(b + math.sqrt(disc)) / (2.0 * a)
-        zeros = [complex(big), complex(c / (a * big))]
+    ki = t.number("ki", unit=f"1/{unit}")
+    if ki == 0.0:
+        raise t.error("ki", "a pid stage needs integral action, got ki = 0",
+                      "for a PD controller use a gain stage and a lead stage")
+    if (ki > 0) != (kp > 0):
+        raise t.error("ki", f"ki must have the sign of kp (ti = kp/ki > 0), got kp = {kp:g}, "
+                      f"ki = {ki:g}", "a negative ti makes the integral act against the "
+                      "proportional term")
+    kd = t.number("kd", unit=unit)
+    if kd != 0.0 and (kd > 0) != (kp > 0):
+        raise t.error("kd", f"kd must be 0 or have the sign of kp (td = kd/kp ≥ 0), got "
+                      f"kp = {kp:g}, kd = {kd:g}")
+    ti = _pid_time(t, "ki", 1.0, unit, kp / (ki / scale), "ti = kp/ki must be")
+    td = 0.0 if kd == 0.0 else _pid_time(t, "kd", 1.0, unit, kd * scale / kp,
+                                         "td = kd/kp must be")
+    return kp, ti, td, _pid_filter(t, td, scale, unit)
+
+
+def _pid_series(t: Table, scale: float, unit: str) -> tuple[float, float, float, float | None]:
+    """k'(1 + 1/(ti' s))(1 + td' s)/(tf s + 1) → ideal kp, ti, td (s) and tf (s).
+
+    With the filter on the whole output the conversion is exact for any tf: equating the
+    numerators over ti s (tf s + 1) gives ti = ti' + td' − tf, kp = k'·ti/ti',
+    td = ti'·td'/ti − tf (with tf = 0 the published k' (1 + td'/ti'), ti' + td',
+    ti'·td'/(ti' + td')).  It needs tf ≤ ti' and tf ≤ td' (then ti > 0 and td ≥ 0).
+    """
+    k = t.number("kp", nonzero=True)
+    ti_s = _pid_time(t, "ti", scale, unit)
+    td_s = t.number("td", minimum=0.0, unit=unit) * scale
+    if td_s != 0.0:
+        td_s = _pid_time(t, "td", scale, unit)
+    if td_s == 0.0 and t.has("tf"):
+        raise t.error("tf", "a series pid with td = 0 has no derivative to filter",
+                      "remove tf, or add a lowpass stage for a filter on the output")
+    tf = _pid_filter(t, td_s, scale, unit)
+    if tf is None:
+        return k, ti_s, 0.0, None
+    key = "tf" if t.has("tf") else "n"
+    if tf > ti_s or tf > td_s:
+        raise t.error(key, f"the series filter time constant {tf / scale:g} {unit} exceeds "
+                      f"ti' = {ti_s / scale:g} {unit} or td' = {td_s / scale:g} {unit}",
+                      "the filter must be faster than both (n ≥ 1 and tf ≤ ti); the ideal "
+                      "form then has ti > 0 and td ≥ 0")
+    ti = ti_s + td_s - tf
+    kp = k * ti / ti_s
+    td = ti_s * td_s / ti - tf
+    # (ti' − tf)(td' − tf) = 0 gives td = 0 exactly; rounding must not leave a 1e-17 td.
+    if td <= 8.0 * sys.float_info.epsilon * tf:
+        return kp, ti, 0.0, None
+    return kp, ti, td, tf
+
+
+def _pid_weights(t: Table) -> tuple[float, float]:
+    """Setpoint weights b (proportional) and c (derivative)."""
+    b = t.number("b", minimum=0.0, maximum=MAX_SETPOINT_WEIGHT, default=1.0)
+    on = t.choice("derivative_on", ("error", "measurement"), default="error")
+    if on == "measurement":
+        c = t.number("c", minimum=0.0, maximum=MAX_SETPOINT_WEIGHT, default=0.0)
+        if c != 0.0:
+            raise t.error("c", f"derivative_on = \"measurement\" means c = 0, got c = {c:g}",
+                          "remove c, or set derivative_on = \"error\" with the weight c")
     else:
-        im = math.sqrt(-disc) / (2.0 * a)
-        zeros = [complex(-b / (2.0 * a), im), complex(-b / (2.0 * a), -im)]
-    return params, _zpk(zeros, [0.0, -1.0 / tf], kp * (tf + td) / tf, label)
+        c = t.number("c", minimum=0.0, maximum=MAX_SETPOINT_WEIGHT, default=1.0)
+    return b, c
+
+
+def _pid_zpk(kp: float, ti: float, td: float, tf: float, label: str, b: float = 1.0,
+             c: float = 1.0) -> Zpk:
+    """kp (b + 1/(ti s) + c·td s/(tf s + 1)) in zpk form (b = c = 1: the feedback path).
+
+    Over the common denominator ti·s·(tf·s + 1) the numerator is
+    ti(b·tf + c·td) s² + (b·ti + tf) s + 1; the leading ratio gives the gain
+    kp(b·tf + c·td)/tf.
+    """
+    a2, a1, a0 = ti * (b * tf + c * td), b * ti + tf, 1.0
+    if a2 == 0.0:          # b = c = 0: kp (tf s + 1)/(ti s (tf s + 1)), the pair kept
+        return _zpk([-1.0 / a1], [0.0, -1.0 / tf], kp * a1 / (ti * tf), label)
+    disc = a1 * a1 - 4.0 * a2 * a0
+    if disc >= 0:
+        big = -(a1 + math.sqrt(disc)) / (2.0 * a2)
+        zeros = [complex(big), complex(a0 / (a2 * big))]
+    else:
+        im = math.sqrt(-disc) / (2.0 * a2)
+        zeros = [complex(-a1 / (2.0 * a2), im), complex(-a1 / (2.0 * a2), -im)]
+    return _zpk(zeros, [0.0, -1.0 / tf], kp * (b * tf + c * td) / tf, label)
+
+
+def _pi_zpk(kp: float, ti: float, label: str, b: float = 1.0) -> Zpk:
+    """kp (b + 1/(ti s)) = kp·b (s + 1/(b ti))/s, or kp/(ti s) when b = 0."""
+    if b == 0.0:
+        return _zpk([], [0.0], kp / ti, label)
+    return _zpk([-1.0 / (b * ti)], [0.0], kp * b, label)
+
+
+def _pid(t: Table, label: str) -> tuple[Params, Zpk]:
+    form = t.choice("form", PID_FORMS, default="ideal")
+    own = _PID_FORM_KEYS[form]
+    for key in t.data:
+        if key not in own and key not in _PID_COMMON:
+            other = next(f for f, keys in _PID_FORM_KEYS.items() if key in keys)
+            raise t.error(key, f"'{key}' belongs to form = \"{other}\", this pid has form = "
+                          f"\"{form}\"", f"the {form} form takes {', '.join(own)}")
+    for key in own:
+        if not t.has(key):
+            raise t.error(key, f"missing required key '{key}'")
+    unit = t.choice("time_unit", tuple(TIME_UNITS), default="s")
+    scale = TIME_UNITS[unit]
+    if form == "parallel":
+        kp, ti, td, tf = _pid_parallel(t, scale, unit)
+    elif form == "series":
+        kp, ti, td, tf = _pid_series(t, scale, unit)
+    else:
+        kp = t.number("kp", nonzero=True)
+        ti = _pid_time(t, "ti", scale, unit)
+        td = t.number("td", minimum=0.0, unit=unit) * scale
+        if td != 0.0:
+            td = _pid_time(t, "td", scale, unit)
+        tf = _pid_filter(t, td, scale, unit)
+    b, c = _pid_weights(t)
+    n = td / tf if td > 0.0 and tf is not None else t.number("n", above=0.0, default=DEFAULT_N)
+    params: Params = {"kp": kp, "ti": ti, "td": td, "n": n, "b": b, "c": c, "form": form}
+    if form != "ideal" or unit != "s" or t.has("tf"):
+        params["as_written"] = ", ".join(
+            f"{k} = {t.data[k]:g}" if isinstance(t.data[k], int | float) else
+            f"{k} = \"{t.data[k]}\"" for k in t.data)
+    if td == 0.0 or tf is None:
+        return params, _pi_zpk(kp, ti, label)
+    return params, _pid_zpk(kp, ti, td, tf, label)
+
+
+def pid_reference_gap(stage: Stage) -> Zpk | None:
+    """``C − C_r = kp ((1 − b) + (1 − c)·td s/(tf s + 1))`` of a 2-DOF pid stage, built
+    from its parameters (exact zeros at the origin: b = 1 gives one), None as for
+    :func:`pid_reference_model`.  The steady-state errors of r → y depend on it."""
+    if pid_reference_model(stage) is None:
+        return None
+    p = stage.params
+    kp, td, n, b, c = (float(p[k]) for k in ("kp", "td", "n", "b", "c"))
+    label = f"{stage.model.label} reference gap"
+    if td == 0.0:
+        return Zpk.constant(kp * (1.0 - b), label)
+    tf = td / n
+    lead = (1.0 - b) * tf + (1.0 - c) * td      # kp (lead·s + (1 − b))/(tf s + 1)
+    if b == 1.0:
+        return _zpk([0.0], [-1.0 / tf], kp * lead / tf, label)
+    if lead == 0.0:
+        return _zpk([], [-1.0 / tf], kp * (1.0 - b) / tf, label)
+    return _zpk([-(1.0 - b) / lead], [-1.0 / tf], kp * lead / tf, label)
+
+
+def pid_reference_model(stage: Stage) -> Zpk | None:
+    """The reference path kp (b + 1/(ti s) + c·td s/((td/n) s + 1)) of a 2-DOF pid stage
+    (None when b = c = 1, or for any other stage: the reference then sees the feedback
+    controller).  Its poles are those of the stage's feedback path."""
+    p = stage.params
+    if stage.type != "pid" or (p["b"], p["c"]) == (1.0, 1.0):
+        return None
+    kp, ti, td, n = (float(p[k]) for k in ("kp", "ti", "td", "n"))
+    label = f"{stage.model.label} reference path"
+    if td == 0.0:
+        return _pi_zpk(kp, ti, label, float(p["b"]))
+    return _pid_zpk(kp, ti, td, td / n, label, float(p["b"]), float(p["c"]))
 
 
 def _integrator(t: Table, label: str) -> tuple[Params, Zpk]:
@@ -222,7 +423,7 @@ STAGE_TYPES: Mapping[str, StageType] = MappingProxyType({
     "lag": StageType(("zero", "pole", "normalize"), ("zero", "pole"), _lead_lag("lag", "hf"),
                      "hf: (s+z)/(s+p); dc: (p/z)(s+z)/(s+p)"),
     "pi": StageType(("kp", "ti"), ("kp", "ti"), _pi, "kp (1 + 1/(ti s))"),
-    "pid": StageType(("kp", "ti", "td", "n"), ("kp", "ti", "td"), _pid,
+    "pid": StageType(("kp", "ti", "td", "ki", "kd", *_PID_COMMON), (), _pid,
                      "kp (1 + 1/(ti s) + td s/((td/n) s + 1))"),
     "integrator": StageType(("k",), ("k",), _integrator, "k/s"),
     "notch": StageType(("freq", "depth_db", "zeta"), ("freq", "depth_db"), _notch,
@@ -260,4 +461,31 @@ def read_stage(t: Table, index: int) -> Stage:
     check_roots(model.zeros, file=t.file, where=t.where, what=what.format("zero"),
                 unit_scale=scale, unit=t.unit if scale != 1.0 else "rad/s")
     check_gain(model.gain, file=t.file, where=t.where)
-    return Stage(index=index, type=kind, params=MappingProxyType(params), model=model)
+    stage = Stage(index=index, type=kind, params=MappingProxyType(params), model=model)
+    reference = pid_reference_model(stage)
+    if reference is not None:
+        where = t.at(next((k for k in ("b", "c", "derivative_on") if t.has(k)), "b"))
+        check_gain(reference.gain, file=t.file, where=where)
+        check_roots(reference.zeros, file=t.file, where=where,
+                    what="the reference path's zero (from b, c)")
+    return Stage(index=index, type=kind, params=MappingProxyType(params), model=model,
+                 reference_model=reference, reference_gap=pid_reference_gap(stage))
+
+
+#: The longest stage name (characters).
+MAX_STAGE_NAME = 80
+
+
+def read_stage_name(t: Table) -> str | None:
+    """A stage's optional ``name``: one line of at most :data:`MAX_STAGE_NAME` characters,
+    no control characters (it appears in findings, snippets and reports)."""
+    if not t.has("name"):
+        return None
+    name = t.string("name")
+    if len(name) > MAX_STAGE_NAME:
+        raise t.error("name", f"a stage name of {len(name)} characters; at most "
+                      f"{MAX_STAGE_NAME}", "shorten the name")
+    if any(unicodedata.category(ch) in ("Cc", "Cf", "Zl", "Zp") for ch in name):
+        raise t.error("name", "a stage name may not hold control characters or line breaks",
+                      "write the name on one line")
+    return name

@@ -240,7 +240,8 @@ def _design(d: Design) -> dict[str, Any]:
         "measured_plants": [{"variant": v.name, "file": v.measured.file,
                              "sha256": v.measured.sha256} for v in d.variants
                             if v.measured is not None],
-        "controller": [{"index": s.index, "type": s.type, "params": plain(s.params)}
+        "controller": [{"index": s.index, "type": s.type, "params": plain(s.params),
+                        "name": s.title}
                        for s in d.controller],
         "requirements": plain(d.requirements.values),
         "limits": plain(d.rule_limits),

@@ -107,6 +107,16 @@ def _alternatives(review: Review) -> list[str]:
                 fmt(alt.margins.gain_margin_db, "dB"), str(alt.tracking.system_type),
                 fmt(alt.step.settling_time_s, "s"), ", ".join(alt.meets) or "—",
                 ", ".join(alt.fails) or "—")) + " |")
+        if any(alt.current_disturbance_ie is not None or alt.disturbance_error is not None
+               for _, alt in rows):
+            lines += ["", "Load step (`[disturbance]`), ∫y dt and ∫|y| dt:", "",
+                      "| Variant | Current IE | Current IAE | Alternative IE | "
+                      "Alternative IAE |", "|---|---|---|---|---|"]
+            for variant, alt in rows:
+                lines.append("| " + " | ".join(_cell(c) for c in (
+                    variant, fmt(alt.current_disturbance_ie), fmt(alt.current_disturbance_iae),
+                    fmt(alt.disturbance_ie) if alt.disturbance_error is None
+                    else alt.disturbance_error, fmt(alt.disturbance_iae))) + " |")
         lines += ["", "```toml", first.snippet_toml.rstrip("\n"), "```"]
     return lines
 

@@ -90,7 +90,8 @@ def appendix(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[An
     rows = [["Stage", "Type", "Parameters", "Transfer function"]]
     for s in d.controller:
         var = "z" if s.domain == "z" else "s"
-        rows.append([f"controller[{s.index}]", text(s.type), text(_params(s.params, unit)),
+        label = f"controller[{s.index}]" + ("" if s.title is None else f"<br/>{text(s.title)}")
+        rows.append([label, text(s.type), text(_params(s.params, unit)),
                      f"C{s.index}({var}) = " + _tf(s.model, var)])
     out.append(grid_table(rows, st, (14, 10, 34, 42)))
     if sampling is not None:

@@ -576,6 +576,17 @@ def _compare_rows(a: LoopAnalysis, alt: IntegralAlternative) -> list[list[str]]:
     def step(m: Any, attr: str, unit: str) -> str:
         return "—" if m is None else f"{num(getattr(m, attr))}{unit}"
 
+    def opt(x: float | None) -> str:
+        return "—" if x is None else f"{num(x)}"
+
+    load: list[list[str]] = []
+    if (alt.current_disturbance_ie, alt.disturbance_ie, alt.disturbance_error) != (
+            None, None, None):
+        why = "" if alt.disturbance_error is None else f" ({text(alt.disturbance_error)})"
+        load = [["Load step IE (∫y dt)", opt(alt.current_disturbance_ie),
+                 opt(alt.disturbance_ie) + why],
+                ["Load step IAE (∫|y| dt)", opt(alt.current_disturbance_iae),
+                 opt(alt.disturbance_iae)]]
     return [
         ["Figure", "Current design", "Integral alternative"],
         ["Closed loop", "stable" if a.stability.closed_loop_stable else "UNSTABLE",
@@ -595,6 +606,7 @@ def _compare_rows(a: LoopAnalysis, alt: IntegralAlternative) -> list[list[str]]:
          step(alt.step, "settling_time_s", " s")],
         ["Slow pairs", tail(cur_tail) if a.slow_tail is not None else "not computed",
          tail(alt.slow_pairs) if alt.slow_pairs_error is None else "not computed"],
+        *load,
         ["Overall gain factor", "1", num(alt.gain_factor)
          + (f" (set by {text(alt.sizing_variant)})" if alt.sizing_variant else "")],
         ["Review limits met", "—", text(", ".join(alt.meets)) or "none"],
