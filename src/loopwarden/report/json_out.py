@@ -103,7 +103,9 @@ OBJECT_KEYS: dict[type, KeyMap] = {
     IntegralAlternative: _same(
         "stage", "gain_factor", "closed_loop_stable", "margins", "sensitivity", "tracking",
         "step", "slow_pairs", "snippet_toml", "target_phase_margin_deg", "meets_target",
-        "requirements", "meets", "fails", "slow_pairs_error", "sizing_variant"),
+        "requirements", "meets", "fails", "slow_pairs_error", "sizing_variant",
+        "disturbance_ie", "disturbance_iae", "current_disturbance_ie",
+        "current_disturbance_iae", "disturbance_error"),
     RequirementCheck: _same("rule", "figure", "bound", "limit", "value", "unit", "met"),
     SampledInfo: _same(
         "period_s", "method", "prewarp_rad_s", "compute_delay_samples",
