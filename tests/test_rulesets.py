@@ -26,6 +26,7 @@ CONTRACT_CHECKS = {
     "slow_pair_tail", "boost_band", "lag_phase_budget", "integral_alternative", "regression",
     "sample_rate",                   # sampled designs (issue: sampled-data controllers)
     "disturbance_rejection", "noise_sensitivity", "control_effort",   # issue 13
+    "saturated_response",            # actuator saturation and anti-windup
 }
 
 
