@@ -379,6 +379,8 @@ def digital_controller(stages: tuple[Stage, ...], loop: DiscreteLoop, sampling_b
 def _tf_ss(num: Matrix, den: Matrix) -> tuple[Matrix, Matrix, Matrix, float]:
     num = np.atleast_1d(np.trim_zeros(np.asarray(num, dtype=float), "f")) if np.any(num) \
         else np.zeros(1)
+    if len(den) == 1:
+        return np.zeros((0, 0)), np.zeros(0), np.zeros(0), float(num[-1] / den[0])
     a, b, c, d = signal.tf2ss(num, den)
     return (np.atleast_2d(a).reshape(len(den) - 1, len(den) - 1), np.ravel(b),
             np.ravel(c), float(np.ravel(d)[0]) if np.size(d) else 0.0)
@@ -449,10 +451,18 @@ def simulate_sampled(loop: DiscreteLoop, ctrl: Controller, plant: Zpk, sensor: Z
 
 
 # --------------------------------------------------------------------------- figures
-def step_metrics(sim: Simulation, final: float, band: float) -> tuple[float, float]:
-    """(settling time in the band, overshoot in % of |final|) of a run."""
+def step_metrics(sim: Simulation, final: float, band: float, sampled: bool = False
+                 ) -> tuple[float, float]:
+    """(settling time in the band, overshoot in % of |final|) of a run.
+
+    Continuous runs interpolate the last exit from the band; sampled runs read the first
+    sampling instant after it, as the linear sampled step does.
+    """
     yn = sim.y / final
     ts = settling_time(sim.time_s, yn, 1.0, band)
+    if sampled and 0.0 < ts < math.inf:
+        outside = np.flatnonzero(np.abs(yn - 1.0) > band)
+        ts = float(sim.time_s[outside[-1] + 1])
     quiet = np.abs(yn[sim.time_s >= 0.8 * sim.time_s[-1]] - 1.0).max() <= band
     if not (ts <= 0.75 * sim.time_s[-1] and quiet):
         ts = math.inf
@@ -506,7 +516,7 @@ def saturation_response(design, variant, step_metrics_linear, disturbance, band:
     horizon = max(lin.horizon_s, 3.0 * lin.settling_time_s)
     for _ in range(4):
         sim = run(act, horizon, r=act.step)
-        ts, os = step_metrics(sim, final, band)
+        ts, os = step_metrics(sim, final, band, sampled=method == "sampled")
         if math.isfinite(ts):
             break
         horizon *= 2.0
@@ -523,7 +533,8 @@ def saturation_response(design, variant, step_metrics_linear, disturbance, band:
                   step_u_actuator=plot_series(sim.time_s, sim.u_actuator))
     load = None
     if disturbance is not None:
-        load, more = _load(run, act, design.disturbance, disturbance, horizon)
+        load, more = _load(run, act, design.disturbance, disturbance, horizon,
+                           method == "sampled")
         curves.update(more)
     dt = float(sim.time_s[1] - sim.time_s[0])
     tt = (tracking_time(design.controller, act.tracking_time_s)
@@ -534,7 +545,7 @@ def saturation_response(design, variant, step_metrics_linear, disturbance, band:
                       load=load, curves=SaturationCurves(**curves))
 
 
-def _load(run, act, dist, lin, horizon):  # type: ignore[no-untyped-def]
+def _load(run, act, dist, lin, horizon, sampled):  # type: ignore[no-untyped-def]
     from .results import SaturatedLoad
     from .time_response import plot_series
 
@@ -543,7 +554,7 @@ def _load(run, act, dist, lin, horizon):  # type: ignore[no-untyped-def]
                   else horizon, lin.horizon_s)
     for _ in range(4):
         sim = run(act, horizon, **kw)
-        rec = _recovery(sim, lin.static_deviation, lin.recovery_level)
+        rec = _recovery(sim, lin.static_deviation, lin.recovery_level, sampled)
         if math.isfinite(rec):
             break
         horizon *= 2.0
@@ -557,8 +568,9 @@ def _load(run, act, dist, lin, horizon):  # type: ignore[no-untyped-def]
                      load_u_actuator=plot_series(sim.time_s, sim.u_actuator))
 
 
-def _recovery(sim: Simulation, y_inf: float, level: float) -> float:
-    """Last exit of |y − y∞| > level (inf: outside at the end or in the last fifth)."""
+def _recovery(sim: Simulation, y_inf: float, level: float, sampled: bool) -> float:
+    """Last exit of |y − y∞| > level (inf: outside at the end or in the last fifth);
+    sampled runs: the first sampling instant after it."""
     dev = np.abs(sim.y - y_inf)
     out = np.flatnonzero(dev > level)
     if out.size == 0:
@@ -566,6 +578,8 @@ def _recovery(sim: Simulation, y_inf: float, level: float) -> float:
     k = int(out[-1])
     if k == dev.size - 1 or sim.time_s[k] > 0.8 * sim.time_s[-1]:
         return math.inf
+    if sampled:
+        return float(sim.time_s[k + 1])
     t0, t1, d0, d1 = sim.time_s[k], sim.time_s[k + 1], dev[k], dev[k + 1]
     return float(t0 + (t1 - t0) * (d0 - level) / (d0 - d1)) if d0 != d1 else float(t0)
 
