@@ -11,7 +11,6 @@ must agree within 2 % and overshoots within 0.5 percentage points.
 from __future__ import annotations
 
 import json
-import math
 from pathlib import Path
 
 import numpy as np
