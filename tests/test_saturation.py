@@ -221,11 +221,31 @@ def test_json_keys(tmp_path: Path) -> None:
     path.write_text(design("limit = 1.5\n", extra="[requirements]\nwindup_cost_max = 5.0\n"),
                     encoding="utf-8")
     out = tmp_path / "r.json"
-    main(["review", str(path), "--json", str(out)])
-    v = json.loads(out.read_text(encoding="utf-8"))["variants"][0]
+    main(["review", str(path), "--rules", "process-control", "--json", str(out)])
+    data = json.loads(out.read_text(encoding="utf-8"))
+    v = data["variants"][0]
     for key in ("settling_time_s", "overshoot_pct", "linear_settling_time_s",
                 "windup_cost_s", "u_peak", "saturated_time_s"):
         assert key in v["saturation"], key
+    assert data["design"]["actuator"]["max_value"] == 1.5
+    rule = next(f for f in data["findings"] if f["rule"] == "actuator.windup")
+    # No anti-windup on this loop costs about 1.54 s (test_pi_first_order...): within 5 s.
+    assert rule["status"] == "pass"
+    cost = v["saturation"]["windup_cost_s"]
+    assert v["saturation"]["settling_time_s"] == pytest.approx(
+        v["saturation"]["linear_settling_time_s"] + cost)
+
+
+def test_rule_not_applicable_without_actuator(tmp_path: Path) -> None:
+    path = tmp_path / "d.toml"
+    path.write_text(design("limit = 1.5\n").split("[actuator]")[0]
+                    + "[requirements]\nwindup_cost_max = 5.0\n", encoding="utf-8")
+    out = tmp_path / "r.json"
+    main(["review", str(path), "--rules", "process-control", "--json", str(out)])
+    data = json.loads(out.read_text(encoding="utf-8"))
+    rule = next(f for f in data["findings"] if f["rule"] == "actuator.windup")
+    assert rule["status"] == "n/a"
+    assert data["variants"][0]["saturation"] is None
 
 
 # --------------------------------------------------------------------------- bad input
