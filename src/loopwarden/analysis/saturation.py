@@ -55,8 +55,8 @@ __all__ = ["Simulation", "simulate_continuous", "simulate_sampled", "step_metric
            "tracking_time"]
 
 #: Steps of the continuous simulation per horizon (before the stiffness bound).
-STEPS = 20000
-MAX_STEPS = 400000
+STEPS = 5000
+MAX_STEPS = 100000
 #: The limits count as active when |u − u_a| exceeds this fraction of the range.
 ACTIVE_TOL = 1e-9
 
@@ -300,45 +300,54 @@ def simulate_continuous(loop: Loop, stages: tuple[Stage, ...], act: Actuator | N
                             "limit sits inside an algebraic loop")
     h, steps, nd = _step_size(loop, ctrl, sys, horizon, lim)
     scale = max(abs(lim.low), abs(lim.high), 1.0) if math.isfinite(lim.high) else 1.0
-    x = np.zeros(sys.a.shape[0])
+    n = sys.a.shape[0]
+    # The constant inputs folded into the state: X = [x, 1].
+    a = np.zeros((n + 1, n + 1))
+    a[:n, :n], a[:n, n] = sys.a, sys.b0
+    bw = np.append(sys.bw, 0.0)
+    cu, cy = np.append(sys.cu, sys.u0), np.append(sys.cy, sys.y0)
+    lo, hi, rate, duw = lim.low, lim.high, lim.rate, sys.duw
+    limited, aw = math.isfinite(rate), ctrl.aw if lim.scheme != "none" else ()
     hist = np.zeros(steps + 1)          # u_a at the step boundaries
     ys, us = np.zeros(steps + 1), np.zeros(steps + 1)
+    x = np.zeros(n + 1)
+    x[n] = 1.0
     ua_prev = 0.0
 
-    def f(x: Matrix, tau: float, w_delayed: float | None) -> tuple[Matrix, float, float]:
-        w = w_delayed if w_delayed is not None else 0.0
-        u = float(sys.cu @ x) + sys.duw * w + sys.u0
-        ua = lim.actuator(u, ua_prev, tau)
-        if w_delayed is None:
-            w = ua
-        dx = sys.a @ x + sys.bw * w + sys.b0
-        _anti_windup(dx, ctrl.aw, lim, u, ua, scale)
+    def f(x: Matrix, tau: float, w: float | None) -> tuple[Matrix, float, float]:
+        u = float(cu.dot(x)) + (duw * w if w is not None else 0.0)
+        ua = lo if u < lo else (hi if u > hi else u)
+        if limited:
+            move = rate * tau
+            ua = ua_prev + max(-move, min(ua - ua_prev, move))
+        dx = a.dot(x) + bw * (ua if w is None else w)
+        if aw and ua != u:
+            _anti_windup(dx, aw, lim, u, ua, scale)
         return dx, u, ua
 
     def delayed(k: int, frac: float) -> float | None:
         if nd == 0:
             return None
         j = k - nd
-        lo = hist[j] if j >= 0 else 0.0
-        hi = hist[j + 1] if j + 1 >= 0 else 0.0
-        return lo + frac * (hi - lo)
+        before = hist[j] if j >= 0 else 0.0
+        after = hist[j + 1] if j + 1 >= 0 else 0.0
+        return before + frac * (after - before)
 
-    _, u, ua = f(x, 0.0, delayed(0, 0.0))
     w_first = delayed(0, 0.0)
+    k1, u, ua = f(x, 0.0, w_first)
     hist[0], us[0] = ua, u
-    ys[0] = sys.y0 + sys.dyw * (w_first if w_first is not None else ua)
+    ys[0] = float(cy.dot(x)) + sys.dyw * (w_first if w_first is not None else ua)
+    half = 0.5 * h
     for k in range(steps):
-        w0, wm, w1 = delayed(k, 0.0), delayed(k, 0.5), delayed(k, 1.0)
-        k1, _, _ = f(x, 0.0, w0)
-        k2, _, _ = f(x + 0.5 * h * k1, 0.5 * h, wm)
-        k3, _, _ = f(x + 0.5 * h * k2, 0.5 * h, wm)
-        k4, _, _ = f(x + h * k3, h, w1)
-        x = x + (h / 6.0) * (k1 + 2.0 * k2 + 2.0 * k3 + k4)
-        _, u, ua = f(x, h, w1)
+        wm, w1 = delayed(k, 0.5), delayed(k, 1.0)
+        k2 = f(x + half * k1, half, wm)[0]
+        k3 = f(x + half * k2, half, wm)[0]
+        k4 = f(x + h * k3, h, w1)[0]
+        x = x + (h / 6.0) * (k1 + 2.0 * (k2 + k3) + k4)
+        k1, u, ua = f(x, h, w1)         # u_a at the step's end; the next step's slope
         ua_prev = ua
         hist[k + 1], us[k + 1] = ua, u
-        w = w1 if w1 is not None else ua
-        ys[k + 1] = float(sys.cy @ x) + sys.dyw * w + sys.y0
+        ys[k + 1] = float(cy.dot(x)) + sys.dyw * (w1 if w1 is not None else ua)
     return Simulation(np.arange(steps + 1) * h, ys, us, hist)
 
 
@@ -503,10 +512,13 @@ def _runner(design, variant):  # type: ignore[no-untyped-def]
     return run_z, "sampled"
 
 
-def saturation_response(design, variant, step_metrics_linear, disturbance, band: float
-                        ):  # type: ignore[no-untyped-def]
-    """The :class:`~.results.Saturation` of one variant (design with ``[actuator]``)."""
-    from .results import SaturatedStep, Saturation, SaturationCurves
+def saturation_response(design, variant, step_metrics_linear, step_curve, disturbance,
+                        band: float):  # type: ignore[no-untyped-def]
+    """The :class:`~.results.Saturation` of one variant (design with ``[actuator]``).
+
+    ``step_curve`` is the linear unit step's series (plotted beside, scaled by ``step``).
+    """
+    from .results import SaturatedStep, Saturation, SaturationCurves, TimeSeries
     from .time_response import plot_series
 
     act = design.actuator
@@ -520,7 +532,6 @@ def saturation_response(design, variant, step_metrics_linear, disturbance, band:
         if math.isfinite(ts):
             break
         horizon *= 2.0
-    linear = run(None, horizon, r=act.step)
     ref = SaturatedStep(step=act.step, settling_time_s=ts, overshoot_pct=os,
                         linear_settling_time_s=lin.settling_time_s,
                         linear_overshoot_pct=lin.overshoot_pct,
@@ -528,7 +539,8 @@ def saturation_response(design, variant, step_metrics_linear, disturbance, band:
                         u_peak=float(np.max(np.abs(sim.u))),
                         saturated_time_s=_saturated_time(sim), horizon_s=horizon)
     curves = dict(step=plot_series(sim.time_s, sim.y),
-                  step_linear=plot_series(linear.time_s, linear.y),
+                  step_linear=TimeSeries(time_s=step_curve.time_s,
+                                         value=step_curve.value * act.step),
                   step_u=plot_series(sim.time_s, sim.u),
                   step_u_actuator=plot_series(sim.time_s, sim.u_actuator))
     load = None
@@ -601,13 +613,14 @@ def with_saturation(design, variant, a, band: float):  # type: ignore[no-untyped
     elif variant.measured is not None:
         na["saturated_response"] = ("a measured plant has no model to simulate the "
                                     "saturated loop with")
-    elif a.step is None:
+    elif a.step is None or a.curves is None:
         why = ("no linear step response to compare with: "
                + a.errors.get("step", "the closed loop is not stable"))
     else:
         try:
             with np.errstate(all="ignore"):
-                sat = saturation_response(design, variant, a.step, a.disturbance, band)
+                sat = saturation_response(design, variant, a.step, a.curves.step,
+                                          a.disturbance, band)
             if has_nan(sat.reference) or (sat.load is not None and has_nan(sat.load)):
                 raise AnalysisError("the saturated simulation gave NaN (not a number)")
             return dataclasses.replace(a, saturation=sat)

@@ -14,12 +14,12 @@ from matplotlib.axes import Axes
 
 from ..analysis.results import LoopAnalysis, Saturation, TimeSeries
 from .plots import (
+    _RC,
     C_FAIL,
     C_MAIN,
     C_MARK,
     C_SECOND,
     FULL_WIDTH_IN,
-    _RC,
     Plot,
     _figure,
     _fmt,
