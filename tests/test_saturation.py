@@ -291,3 +291,56 @@ def test_bad_actuator_table_is_exit_2(tmp_path: Path) -> None:
     path.write_text(design("limit = 0.0\n"), encoding="utf-8")
     assert main(["review", str(path), "--json", str(tmp_path / "r.json")]) == 2
     assert not (tmp_path / "r.json").exists()
+
+
+# --------------------------------------------------------------------------- realisations
+def _transfer(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float, s: complex) -> complex:
+    n = a.shape[0]
+    if n == 0:
+        return complex(d)
+    return complex(c @ np.linalg.solve(s * np.eye(n) - a, b) + d)
+
+
+def test_controller_realisation_is_the_stage_product() -> None:
+    """The controller state space from e (inputs [r, ym] = [e, 0]) equals the product of
+    the stage models [derived: series connection]."""
+    from loopwarden.analysis.saturation import controller_ss
+
+    text = ('[design]\nname = "t"\n[plant]\ntf = { num = [1.0], den = [1.0, 1.0] }\n'
+            '[[controller]]\ntype = "pid"\nkp = 2.0\nti = 0.7\ntd = 0.1\nn = 8.0\n'
+            '[[controller]]\ntype = "lag"\nzero = 0.5\npole = 0.05\n'
+            '[[controller]]\ntype = "lowpass"\nfreq = 30.0\n'
+            '[[controller]]\ntype = "integrator"\nk = 0.5\n'
+            '[[controller]]\ntype = "lead"\nzero = 2.0\npole = 20.0\n')
+    d = parse_design(text, "t.toml")
+    ctrl = controller_ss(d.controller)
+    for s in (0.3j, 1.0 + 2.0j, 15.0j):
+        want = np.prod([st.model(np.array([s]))[0] for st in d.controller])
+        got = _transfer(ctrl.a, ctrl.b[:, 0], ctrl.c, ctrl.d[0], s)
+        assert got == pytest.approx(want, rel=1e-9)
+        # ym enters with the opposite sign of r (e = r − ym).
+        got_y = _transfer(ctrl.a, ctrl.b[:, 1], ctrl.c, ctrl.d[1], s)
+        assert got_y == pytest.approx(-want, rel=1e-9)
+    # pid, lag and integrator have an integrating state each; lowpass and lead none.
+    assert len(ctrl.aw) == 3
+
+
+def test_pid_setpoint_weights() -> None:
+    """u = kp(b·r − ym) + (kp/ti)∫(r − ym) + kp·td·s/((td/n)s + 1)(c·r − ym) [derived]:
+    the reference path is kp(b + 1/(ti s) + c·td s/((td/n)s + 1))."""
+    import dataclasses
+    from types import MappingProxyType
+
+    from loopwarden.analysis.saturation import controller_ss
+
+    text = ('[design]\nname = "t"\n[plant]\ntf = { num = [1.0], den = [1.0, 1.0] }\n'
+            '[[controller]]\ntype = "pid"\nkp = 2.0\nti = 0.7\ntd = 0.1\nn = 8.0\n')
+    st = parse_design(text, "t.toml").controller[0]
+    kp, ti, td, n, b, c = 2.0, 0.7, 0.1, 8.0, 0.4, 0.0
+    weighted = dataclasses.replace(st, params=MappingProxyType({**st.params, "b": b, "c": c}))
+    ctrl = controller_ss((weighted,))
+    for s in (0.3j, 1.0 + 2.0j, 15.0j):
+        want_r = kp * (b + 1.0 / (ti * s) + c * td * s / (td / n * s + 1.0))
+        want_y = -kp * (1.0 + 1.0 / (ti * s) + td * s / (td / n * s + 1.0))
+        assert _transfer(ctrl.a, ctrl.b[:, 0], ctrl.c, ctrl.d[0], s) == pytest.approx(want_r)
+        assert _transfer(ctrl.a, ctrl.b[:, 1], ctrl.c, ctrl.d[1], s) == pytest.approx(want_y)

@@ -171,10 +171,17 @@ def controller_ss(stages: tuple[Stage, ...]) -> Controller:
     for index, coef, k in pending:
         g = coef * _dc_gain([st.model for st in stages[k + 1:]])
         if not (math.isfinite(g) and g != 0.0):
-            raise AnalysisError(f"{stages[k].name}: the stages after it have no finite, "
-                                "nonzero DC gain for the anti-windup")
+            g = math.nan                  # no anti-windup possible: see check_anti_windup
         aw.append((index, g))
     return Controller(a, b, c, d, tuple(aw))
+
+
+def check_anti_windup(ctrl: Controller, stages: tuple[Stage, ...], scheme: str) -> None:
+    """An anti-windup scheme needs a finite, nonzero gain from each integrating state to u."""
+    if scheme != "none" and any(math.isnan(g) for _, g in ctrl.aw):
+        raise AnalysisError("an integrating stage is followed by stages without a finite, "
+                            "nonzero DC gain (e.g. another integrator): its anti-windup "
+                            "gain is undefined")
 
 
 # --------------------------------------------------------------------------- limits
@@ -274,7 +281,7 @@ def _step_size(loop: Loop, ctrl: Controller, sys: _Plant, horizon: float, lim: _
     """(h, steps, delay steps N) of the fixed-step run."""
     modes = np.abs(linalg.eigvals(sys.a)) if sys.a.size else np.zeros(0)
     rho = max([1.0 / horizon, *modes, *np.abs(closed_loop_poles(loop)),
-               *(abs(g) / lim.tt for _, g in ctrl.aw)])
+               1.0 / lim.tt if lim.scheme == "back_calculation" else 0.0])
     h = min(horizon / STEPS, 1.0 / rho)
     n_delay = 0
     if loop.delay_s > 0:
@@ -293,6 +300,7 @@ def simulate_continuous(loop: Loop, stages: tuple[Stage, ...], act: Actuator | N
     """One run from rest: reference step r and load steps at t = 0 (``act`` None: linear)."""
     ctrl = controller_ss(stages)
     lim = _limits(act, stages)
+    check_anti_windup(ctrl, stages, lim.scheme)
     sys = _assemble(ctrl, loop, r, d_in, d_out)
     if loop.delay_s == 0 and sys.duw != 0.0:
         raise AnalysisError("the saturated simulation needs a strictly proper plant or "
@@ -526,7 +534,7 @@ def saturation_response(design, variant, step_metrics_linear, step_curve, distur
     lin = step_metrics_linear
     final = lin.final_value * act.step
     horizon = max(lin.horizon_s, 3.0 * lin.settling_time_s)
-    for _ in range(4):
+    for _ in range(3):
         sim = run(act, horizon, r=act.step)
         ts, os = step_metrics(sim, final, band, sampled=method == "sampled")
         if math.isfinite(ts):
@@ -564,7 +572,7 @@ def _load(run, act, dist, lin, horizon, sampled):  # type: ignore[no-untyped-def
     kw = {"d_in": dist.size} if dist.at == "plant_input" else {"d_out": dist.size}
     horizon = max(horizon, 2.0 * lin.recovery_time_s if math.isfinite(lin.recovery_time_s)
                   else horizon, lin.horizon_s)
-    for _ in range(4):
+    for _ in range(3):
         sim = run(act, horizon, **kw)
         rec = _recovery(sim, lin.static_deviation, lin.recovery_level, sampled)
         if math.isfinite(rec):
