@@ -344,3 +344,23 @@ def test_pid_setpoint_weights() -> None:
         want_y = -kp * (1.0 + 1.0 / (ti * s) + td * s / (td / n * s + 1.0))
         assert _transfer(ctrl.a, ctrl.b[:, 0], ctrl.c, ctrl.d[0], s) == pytest.approx(want_r)
         assert _transfer(ctrl.a, ctrl.b[:, 1], ctrl.c, ctrl.d[1], s) == pytest.approx(want_y)
+
+
+@pytest.mark.parametrize("extra", ["", "[sampling]\nperiod = 0.05\n"])
+@pytest.mark.parametrize("at", ["plant_input", "plant_output"])
+def test_unreached_limits_give_the_linear_load_response(at: str, extra: str) -> None:
+    """Limits never reached: the load figures are the linear ones, and for continuous
+    loops (and a sampled output load, exact for a step) they equal the exact linear load
+    response of analysis/disturbance.py [derived]."""
+    text = design("limit = 1e6\n", plant="tf = { num = [1.0], den = [1.0, 1.0] }\n"
+                  "delay = 0.12", extra=extra + f'[disturbance]\nat = "{at}"\nsize = 0.7\n'
+                  "[sensor]\ntf = { num = [1.0], den = [0.05, 1.0] }\n")
+    a = saturation(text)
+    ld = a.saturation.load
+    assert ld.saturated_time_s == 0.0
+    assert ld.peak == pytest.approx(ld.linear_peak, rel=1e-12)
+    assert ld.recovery_time_s == pytest.approx(ld.linear_recovery_time_s, rel=1e-12)
+    if extra and at == "plant_input":
+        return          # the linear sampled analysis feeds this load through the hold
+    assert ld.linear_peak == pytest.approx(a.disturbance.peak, rel=1e-5)
+    assert ld.linear_recovery_time_s == pytest.approx(a.disturbance.recovery_time_s, rel=1e-4)

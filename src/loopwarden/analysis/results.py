@@ -254,7 +254,8 @@ class SaturatedLoad:
 
     ``peak`` = max |y| (output units); ``recovery_time_s`` = last time |y − y∞| exceeds the
     linear response's ``recovery_level`` (y∞ the linear static deviation; ``inf``: not
-    recovered within the horizon).  ``linear_*`` are the linear load response's figures.
+    recovered within the horizon).  ``linear_*`` are the same figures of the same
+    simulation without limits (continuous loops: the linear load response's).
     """
 
     peak: float
