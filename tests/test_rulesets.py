@@ -26,6 +26,7 @@ CONTRACT_CHECKS = {
     "slow_pair_tail", "boost_band", "lag_phase_budget", "integral_alternative", "regression",
     "sample_rate",                   # sampled designs (issue: sampled-data controllers)
     "disturbance_rejection", "noise_sensitivity", "control_effort",   # issue 13
+    "saturated_response",            # actuator saturation and anti-windup
 }
 
 
@@ -114,7 +115,7 @@ def test_children_replace_parent_rules_in_place() -> None:
     servo = load_ruleset("motion-servo")
     # Replaced rules keep their place; rules new in the child (noise, effort) follow.
     assert [r.id for r in servo.rules] == [r.id for r in general.rules] + [
-        "noise.actuator", "effort.actuator_peak"]
+        "noise.actuator", "effort.actuator_peak", "actuator.saturated_step"]
     by_id = {r.id: r for r in servo.rules}
     assert by_id["margin.phase"].limits["min"] == 50.0
     assert by_id["margin.phase"].origin == "motion-servo 1.0"

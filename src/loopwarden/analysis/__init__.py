@@ -70,6 +70,11 @@ def analyze_variant(design: Design, variant: PlantVariant, *,
     result = with_disturbance_and_effort(
         design, variant, result,
         settling_band or design.requirements.settling_band or DEFAULT_SETTLING_BAND)
+    from .saturation import with_saturation
+
+    result = with_saturation(
+        design, variant, result,
+        settling_band or design.requirements.settling_band or DEFAULT_SETTLING_BAND)
     try:
         return scrub_nan(result)
     except NUMERIC_ERRORS as exc:

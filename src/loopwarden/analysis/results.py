@@ -224,6 +224,77 @@ class Effort:
     u_peak_disturbance: float | None
 
 
+# --------------------------------------------------------------------------- saturation
+@dataclass(frozen=True, slots=True, kw_only=True)
+class SaturatedStep:
+    """The reference step of height ``step`` with the actuator's limits.
+
+    Settling in the design's band (fraction of the final value) as the linear step;
+    ``windup_cost_s`` = settling − ``linear_settling_time_s`` (the linear step's);
+    ``u_peak`` = max |u| of the controller's demand before the limits;
+    ``saturated_time_s`` = the time the actuator output differs from the demand.
+    ``settling_time_s`` is ``inf`` when the response does not settle within the horizon
+    (e.g. the limits cannot hold the final value).
+    """
+
+    step: float
+    settling_time_s: float
+    overshoot_pct: float
+    linear_settling_time_s: float
+    linear_overshoot_pct: float
+    windup_cost_s: float
+    u_peak: float
+    saturated_time_s: float
+    horizon_s: float
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class SaturatedLoad:
+    """The ``[disturbance]`` load step with the actuator's limits.
+
+    ``peak`` = max |y| (output units); ``recovery_time_s`` = last time |y − y∞| exceeds the
+    linear response's ``recovery_level`` (y∞ the linear static deviation; ``inf``: not
+    recovered within the horizon).  ``linear_*`` are the same figures of the same
+    simulation without limits (continuous loops: the linear load response's).
+    """
+
+    peak: float
+    linear_peak: float
+    recovery_time_s: float
+    linear_recovery_time_s: float
+    u_peak: float
+    saturated_time_s: float
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class SaturationCurves:
+    """Series for the plots: saturated and linear y, demand u and actuator output u_a."""
+
+    step: TimeSeries
+    step_linear: TimeSeries
+    step_u: TimeSeries
+    step_u_actuator: TimeSeries
+    load: TimeSeries | None = None
+    load_linear: TimeSeries | None = None
+    load_u_actuator: TimeSeries | None = None
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Saturation:
+    """Actuator limits, the controller's anti-windup and the saturated responses."""
+
+    min_value: float
+    max_value: float
+    rate_limit_per_s: float | None
+    anti_windup: str
+    tracking_time_s: float | None                  # back-calculation only
+    method: str                                    # "rk4" (continuous) or "sampled"
+    step_s: float                                  # the fixed step (sampled: the period)
+    reference: SaturatedStep
+    load: SaturatedLoad | None                     # None: no [disturbance] table
+    curves: SaturationCurves | None = None
+
+
 # --------------------------------------------------------------------------- boost
 @dataclass(frozen=True, slots=True, kw_only=True)
 class SlowPair:
@@ -424,3 +495,4 @@ class LoopAnalysis:
     undecided: Mapping[str, str] = field(default_factory=lambda: MappingProxyType({}))
     disturbance: DisturbanceResponse | None = None  # None: no [disturbance] or not computed
     effort: Effort | None = None                    # None: not computed (see errors)
+    saturation: Saturation | None = None            # None: no [actuator] or not computed

@@ -42,13 +42,23 @@ from ..lti import Zpk
 from .bounds import MAX_STAGES, MAX_VARIANTS, Block, check_loop
 from .forms import FORMS, Table, read_form
 from .frd import read_frd
-from .model import Design, Disturbance, PlantVariant, Requirements, Sampling, Stage, Waiver
+from .model import (
+    Actuator,
+    Design,
+    Disturbance,
+    PlantVariant,
+    Requirements,
+    Sampling,
+    Stage,
+    Waiver,
+    default_tracking_time,
+)
 from .sampling import read_controller_stage, read_sampling
 
 __all__ = ["load_design", "parse_design"]
 
 _TOP = ("design", "plant", "controller", "sensor", "requirements", "limits", "waivers",
-        "sampling", "disturbance")
+        "sampling", "disturbance", "actuator")
 _FRD_HINT = ("a measured frequency response (frd) is accepted for the plant and its "
              "variants only; give the sensor as a tf, zpk or ss model")
 #: Keys that describe what a measured response cannot show: declared poles.
@@ -79,6 +89,9 @@ _REQUIREMENTS: dict[str, tuple[str, float, bool, float | None, bool]] = {
     "disturbance_recovery_time": ("s", 0.0, True, None, False),
     "noise_gain_max": ("", 0.0, True, None, False),
     "actuator_limit": ("", 0.0, True, None, False),
+    # Actuator saturation ([actuator] table): the saturated reference step.
+    "saturated_settling_time": ("s", 0.0, True, None, False),
+    "windup_cost_max": ("s", 0.0, False, None, False),
 }
 _LIMIT_KEYS = ("min", "max", "warn_min", "warn_max")
 
@@ -164,6 +177,8 @@ def _parse(text: str, path: str, sha256: str) -> Design:
     limits = _limits(_table(top, "limits")) if "limits" in data else MappingProxyType({})
     waivers = _waivers(top, tuple(v.name for v in variants)) if "waivers" in data else ()
     disturbance = _disturbance(_table(top, "disturbance")) if "disturbance" in data else None
+    actuator = (_actuator(_table(top, "actuator"), controller)
+                if "actuator" in data else None)
 
     _check_sizes(top, variants, controller)
     for variant in variants:
@@ -186,6 +201,7 @@ def _parse(text: str, path: str, sha256: str) -> Design:
         waivers=waivers,
         sampling=sampling,
         disturbance=disturbance,
+        actuator=actuator,
     )
 
 
@@ -401,6 +417,53 @@ def _disturbance(t: Table) -> Disturbance:
     size = t.number("size", nonzero=True, default=1.0)
     band = t.frequency("band") if t.has("band") else None
     return Disturbance(at=at, size=size, band_rad_s=band)
+
+
+# ---------------------------------------------------------------------- actuator
+_ANTI_WINDUP = ("none", "clamping", "back_calculation")
+
+
+def _actuator(t: Table, controller: tuple[Stage, ...]) -> Actuator:
+    """``[actuator]``: min/max or a symmetric limit, rate limit, anti-windup."""
+    t.check_keys(("min", "max", "limit", "rate_limit", "anti_windup", "tracking_time",
+                  "step"))
+    if t.has("limit"):
+        both = next((k for k in ("min", "max") if t.has(k)), None)
+        if both is not None:
+            raise t.error(both, f"both 'limit' and '{both}' are given",
+                          "give either limit (symmetric, ±limit) or min and max")
+        high = t.number("limit", above=0.0)
+        low = -high
+    else:
+        missing = next((k for k in ("min", "max") if not t.has(k)), None)
+        if missing is not None:
+            raise t.error(missing, f"missing required key '{missing}'",
+                          "give min and max, or a symmetric limit = ... (±limit)")
+        low, high = t.number("min"), t.number("max")
+        for key, value, bad in (("min", low, low > 0), ("max", high, high < 0)):
+            if bad:
+                raise t.error(key, f"expected {key} {'≤' if key == 'min' else '≥'} 0, got "
+                              f"{value:g}", "the limits are deviations of u from the "
+                              "operating point of the linear model (u = 0 at rest)")
+        if not low < high:
+            raise t.error("max", f"expected max above min, got min = {low:g} and "
+                          f"max = {high:g}")
+    rate = t.number("rate_limit", above=0.0, unit="1/s") if t.has("rate_limit") else None
+    scheme = t.choice("anti_windup", _ANTI_WINDUP, default="none")
+    tt = None
+    if t.has("tracking_time"):
+        if scheme != "back_calculation":
+            raise t.error("tracking_time", "tracking_time applies only to "
+                          'anti_windup = "back_calculation"',
+                          "remove tracking_time or choose back-calculation")
+        tt = t.number("tracking_time", above=0.0, unit="s")
+    elif scheme == "back_calculation" and default_tracking_time(controller) is None:
+        raise t.error("tracking_time", "missing required key 'tracking_time'",
+                      "the default (√(ti·td), or ti) needs a pi or pid stage; give the "
+                      "back-calculation time constant in seconds")
+    step = t.number("step", nonzero=True, default=1.0)
+    return Actuator(min_value=low, max_value=high, rate_limit_per_s=rate,
+                    anti_windup=scheme, tracking_time_s=tt, step=step)
 
 
 # ---------------------------------------------------------------------- limits and waivers

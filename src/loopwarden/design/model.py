@@ -104,6 +104,43 @@ class Disturbance:
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
+class Actuator:
+    """``[actuator]``: the actuator's range and slew rate and the controller's anti-windup.
+
+    ``min_value``/``max_value`` bound the controller output u in the units of the model's
+    input (deviations from the operating point, so ``min_value ≤ 0 ≤ max_value``);
+    ``rate_limit_per_s`` bounds |du/dt| (None: no rate limit).  ``anti_windup`` is
+    ``"none"``, ``"clamping"`` or ``"back_calculation"``; ``tracking_time_s`` the
+    back-calculation time constant (None: the documented default, see
+    :func:`loopwarden.analysis.saturation.tracking_time`).  ``step`` is the height of the
+    reference step simulated with these limits.
+    """
+
+    min_value: float
+    max_value: float
+    rate_limit_per_s: float | None = None
+    anti_windup: str = "none"
+    tracking_time_s: float | None = None
+    step: float = 1.0
+
+
+def default_tracking_time(stages: tuple[Stage, ...]) -> float | None:
+    """The back-calculation time constant when ``[actuator]`` gives none.
+
+    Tt = √(ti·td) of the first pid stage with td > 0, else ti of the first pi or pid
+    stage [practice: Åström & Hägglund, *PID Controllers: Theory, Design and Tuning*,
+    2nd ed., 1995, §3.5 Integrator windup]; None when
+    the controller has neither.
+    """
+    for st in stages:
+        if st.type in ("pi", "pid") and st.domain == "s":
+            ti = float(st.params["ti"])
+            td = float(st.params.get("td", 0.0))
+            return math.sqrt(ti * td) if td > 0 else ti
+    return None
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
 class Waiver:
     rule: str
     reason: str
@@ -133,6 +170,7 @@ class Design:
     waivers: tuple[Waiver, ...] = ()
     sampling: Sampling | None = None            # None: a continuous-time controller
     disturbance: Disturbance | None = None      # None: no [disturbance] table
+    actuator: Actuator | None = None            # None: no [actuator] table
 
     def loop(self, variant: PlantVariant) -> Loop | DiscreteLoop:
         """The feedback loop of this design around one plant variant.

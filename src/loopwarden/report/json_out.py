@@ -229,7 +229,21 @@ def _variant(a: LoopAnalysis, design: Design) -> dict[str, Any]:
         "undecided": dict(sorted(a.undecided.items())),
         "disturbance": plain(a.disturbance),
         "effort": plain(a.effort),
+        "saturation": _saturation(a),
     }
+
+
+def _saturation(a: LoopAnalysis) -> dict[str, Any] | None:
+    """The saturated responses, the reference step's figures at the top level."""
+    s = a.saturation
+    if s is None:
+        return None
+    out = plain(s.reference)
+    out.update({"min": plain(s.min_value), "max": plain(s.max_value),
+                "rate_limit_per_s": plain(s.rate_limit_per_s), "anti_windup": s.anti_windup,
+                "tracking_time_s": plain(s.tracking_time_s), "method": s.method,
+                "step_s": plain(s.step_s), "load": plain(s.load)})
+    return out
 
 
 def _design(d: Design) -> dict[str, Any]:
@@ -248,6 +262,7 @@ def _design(d: Design) -> dict[str, Any]:
         "requirements": plain(d.requirements.values),
         "limits": plain(d.rule_limits),
         "waivers": plain(d.waivers),
+        "actuator": plain(d.actuator),
     }
 
 

@@ -532,6 +532,10 @@ def evidence_section(review: Review, a: LoopAnalysis, st: dict[str, Any],
     out.append(_figure(plots["bode"], st))
     if "time" in plots:
         out.append(_figure(plots["time"], st))
+    if a.saturation is not None and a.saturation.curves is not None:
+        from .plots_response import saturation_figure
+
+        out.append(_figure(saturation_figure(a), st))
     out.append(_figure(plots["sensitivity"], st))
     # Notes last: the figures fit under the tables more often without them in between.
     return out + notes

@@ -597,6 +597,43 @@ def control_effort(a: LoopAnalysis, rule: Rule, design: Design, *,
                                 "worst": worst_name})
 
 
+@_check("saturated_response", unit="s", limits=(*UPPER, "max_windup", "warn_max_windup"),
+        summary="reference step with the [actuator] limits and the controller's anti-windup: "
+                "settling time (max, s) and windup cost = saturated − linear settling time "
+                "(max_windup, s); overshoot, peak demand and time saturated are reported")
+def saturated_response(a: LoopAnalysis, rule: Rule, design: Design, *,
+                       baseline: LoopAnalysis | None = None) -> Measurement:
+    if design.actuator is None:
+        raise NotApplicable("the design has no [actuator] table (the actuator's limits)")
+    _stable_for(a, "saturated step response")
+    s = a.saturation
+    if s is None:
+        raise AnalysisError(a.errors.get("saturation",
+                                         "the saturated response was not computed"))
+    r = s.reference
+    rng = f"[{fmt(s.min_value)}, {fmt(s.max_value)}]"
+    rate = f", rate ≤ {fmt(s.rate_limit_per_s)}/s" if s.rate_limit_per_s is not None else ""
+    aw = s.anti_windup.replace("_", "-") if s.anti_windup != "none" else "no anti-windup"
+    text = (f"step {fmt(r.step)} with u in {rng}{rate}, {aw}: settles in "
+            f"{fmt(r.settling_time_s, 's')} (linear {fmt(r.linear_settling_time_s, 's')}, "
+            f"windup cost {fmt(r.windup_cost_s, 's')}), overshoot {fmt(r.overshoot_pct, '%')} "
+            f"(linear {fmt(r.linear_overshoot_pct, '%')}); demand peaks at {fmt(r.u_peak)}, "
+            f"saturated for {fmt(r.saturated_time_s, 's')}")
+    if s.load is not None:
+        ld = s.load
+        text += (f"; load step: peak {fmt(ld.peak)} (linear {fmt(ld.linear_peak)}), "
+                 f"recovers after {fmt(ld.recovery_time_s, 's')} "
+                 f"(linear {fmt(ld.linear_recovery_time_s, 's')})")
+    return Measurement(
+        value=r.settling_time_s, text=text,
+        compare={"max": r.settling_time_s, "warn_max": r.settling_time_s,
+                 "max_windup": r.windup_cost_s, "warn_max_windup": r.windup_cost_s},
+        details={"overshoot_pct": r.overshoot_pct, "windup_cost_s": r.windup_cost_s,
+                 "linear_settling_time_s": r.linear_settling_time_s,
+                 "u_peak": r.u_peak, "saturated_time_s": r.saturated_time_s,
+                 "anti_windup": s.anti_windup})
+
+
 # --------------------------------------------------------------------------- boost stages
 def _boosts(a: LoopAnalysis) -> tuple[Boost, ...]:
     if not a.boosts:

@@ -92,6 +92,8 @@ REQUIREMENT_TARGETS: dict[str, tuple[Target, ...]] = {
     "disturbance_recovery_time": (Target("disturbance_rejection", ("max_recovery",)),),
     "noise_gain_max": (Target("noise_sensitivity", ("max",)),),
     "actuator_limit": (Target("control_effort", ("max",)),),
+    "saturated_settling_time": (Target("saturated_response", ("max",)),),
+    "windup_cost_max": (Target("saturated_response", ("max_windup",)),),
     "step_error": (Target("error_constant", ("max",), when=_which("step_error")),
                    Target("error_constant", ("min",), when=_which("kp"),
                           convert=lambda e: math.inf if e == 0.0 else 1.0 / e - 1.0)),
