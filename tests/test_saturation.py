@@ -227,7 +227,7 @@ def test_json_keys(tmp_path: Path) -> None:
     for key in ("settling_time_s", "overshoot_pct", "linear_settling_time_s",
                 "windup_cost_s", "u_peak", "saturated_time_s"):
         assert key in v["saturation"], key
-    assert data["design"]["actuator"]["max_value"] == 1.5
+    assert data["design"]["actuator"]["max"] == 1.5
     rule = next(f for f in data["findings"] if f["rule"] == "actuator.windup")
     # No anti-windup on this loop costs about 1.54 s (test_pi_first_order...): within 5 s.
     assert rule["status"] == "pass"

@@ -186,9 +186,14 @@ def test_keys_being_added_elsewhere_are_accepted(validator, good: dict) -> None:
     doc = _tampered(good, lambda d: (
         d.update(uncertainty={"samples": 200, "seed": 1, "pass_fraction": 0.97}),
         d["variants"][0].update(saturation=None),
-        d["variants"][1].update(saturation={"settling_time_s": 4.2, "windup_cost_s": 1.1}),
         d["design"]["controller"][0].update(name="level PI")))
     assert _errors(validator, doc) == []
+
+
+def test_an_incomplete_saturation_object_is_refused(validator, good: dict) -> None:
+    doc = _tampered(good, lambda d: d["variants"][1].update(
+        saturation={"settling_time_s": 4.2, "windup_cost_s": 1.1}))
+    assert _errors(validator, doc)
 
 
 # --------------------------------------------------------------------------- key table
@@ -202,10 +207,14 @@ DEFINITIONS = {
     "RequirementCheck": "requirementCheck", "SampledInfo": "sampling",
     "FrequencyCoverage": "coverage", "DisturbanceResponse": "disturbance",
     "Effort": "effort", "Sampling": "designSampling", "Waiver": "waiver",
+    "Actuator": "actuator", "SaturatedStep": "saturation", "SaturatedLoad": "saturatedLoad",
 }
 #: keys the JSON adds to an object beyond its fields (DESIGN.md §5 flat keys).
 ADDED = {"integralAlternative": {"phase_margin_deg", "gain_margin_db", "system_type",
-                                 "settling_time_s"}}
+                                 "settling_time_s"},
+         # the variant's saturation object: the reference step's figures, then the limits
+         "saturation": {"min", "max", "rate_limit_per_s", "anti_windup", "tracking_time_s",
+                        "method", "step_s", "load"}}
 
 
 @pytest.mark.parametrize("cls", json_out.OBJECT_KEYS, ids=lambda c: c.__name__)

@@ -40,6 +40,8 @@ from ..analysis.results import (
     PhaseCrossing,
     RequirementCheck,
     SampledInfo,
+    SaturatedLoad,
+    SaturatedStep,
     Sensitivity,
     SlowPair,
     SlowTail,
@@ -48,7 +50,7 @@ from ..analysis.results import (
     StepMetrics,
     Tracking,
 )
-from ..design.model import Design, Sampling, Waiver
+from ..design.model import Actuator, Design, Sampling, Waiver
 from ..ruleset.model import Finding, RuleSet, Status
 from . import CAUTIONS
 from .review import Review
@@ -122,6 +124,14 @@ OBJECT_KEYS: dict[type, KeyMap] = {
     Effort: _same("ks_peak", "ks_peak_rad_s", "controller_hf_gain", "u_peak_step",
                   "u_peak_disturbance"),
     Sampling: _same("period_s", "method", "prewarp_rad_s", "compute_delay_samples"),
+    Actuator: (("min", "min_value"), ("max", "max_value"),
+               ("rate_limit_per_s", "rate_limit_per_s"), ("anti_windup", "anti_windup"),
+               ("tracking_time_s", "tracking_time_s"), ("step", "step")),
+    SaturatedStep: _same(
+        "step", "settling_time_s", "overshoot_pct", "linear_settling_time_s",
+        "linear_overshoot_pct", "windup_cost_s", "u_peak", "saturated_time_s", "horizon_s"),
+    SaturatedLoad: _same("peak", "linear_peak", "recovery_time_s", "linear_recovery_time_s",
+                         "u_peak", "saturated_time_s"),
     Waiver: _same("rule", "reason", "approved_by", "expires", "variant"),
 }
 
