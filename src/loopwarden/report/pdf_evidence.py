@@ -507,8 +507,10 @@ def _figure_beside(plot: Plot, notes: list[Any], st: dict[str, Any]) -> Table:
 
 
 def evidence_section(review: Review, a: LoopAnalysis, st: dict[str, Any],
-                     unit: FrequencyUnit, *, number: str) -> list[Any]:
-    """Section 2.n: the figures and plots of one plant variant."""
+                     unit: FrequencyUnit, *, number: str,
+                     plots: dict[str, Plot] | None = None) -> list[Any]:
+    """Section 2.n: the figures and plots of one plant variant (``plots``: its figures
+    when already drawn, else drawn here)."""
     variant = next(v for v in review.design.variants if v.name == a.variant)
     out: list[Any] = [Paragraph(f"{number}  Evidence: {text(a.variant)}", st["h1"]),
                       Paragraph(_plant_text(variant, unit), st["body"])]
@@ -518,7 +520,8 @@ def evidence_section(review: Review, a: LoopAnalysis, st: dict[str, Any],
     out += _slow_pairs(a, st)
     out += _boosts(a, st, unit)
     out.append(Spacer(1, 3 * mm))
-    plots = variant_plots(review.design, a)
+    if plots is None:
+        plots = variant_plots(review.design, a)
     notes = _notes(a, st)
     # The square pair first: it fits under the tables more often than the tall Bode plot.
     if "poles" in plots:
