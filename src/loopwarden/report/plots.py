@@ -14,8 +14,9 @@ from __future__ import annotations
 
 import io
 import math
+import zlib
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -79,11 +80,21 @@ class Plot:
 
 @dataclass(frozen=True, slots=True)
 class Raster:
-    """An 8-bit RGB raster: ``rgb`` holds width·height·3 bytes, row by row."""
+    """An 8-bit RGB raster: ``rgb`` holds width·height·3 bytes, row by row.
+
+    ``flate`` is ``rgb`` zlib-compressed, as a PDF image stream holds it (FlateDecode),
+    made where the figure is drawn: in a worker process when the figures are drawn in
+    parallel (see :func:`all_variant_plots`), not in the process laying out the PDF.
+    """
 
     width_px: int
     height_px: int
     rgb: bytes
+    flate: bytes = field(default=b"", repr=False, compare=False)
+
+    def flate_stream(self) -> bytes:
+        """``rgb`` compressed for a PDF FlateDecode image stream."""
+        return self.flate or zlib.compress(self.rgb)
 
     def image(self) -> Any:
         """The raster as a PIL image."""
@@ -137,7 +148,8 @@ def _pixels(fig: Figure) -> Raster:
     fig.canvas.draw()
     rgba = np.asarray(fig.canvas.buffer_rgba())  # type: ignore[attr-defined]
     h, w = rgba.shape[:2]
-    return Raster(width_px=w, height_px=h, rgb=np.ascontiguousarray(rgba[..., :3]).tobytes())
+    rgb = np.ascontiguousarray(rgba[..., :3]).tobytes()
+    return Raster(width_px=w, height_px=h, rgb=rgb, flate=zlib.compress(rgb))
 
 
 _SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
