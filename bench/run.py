@@ -57,6 +57,9 @@ for _name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
 import numpy as np  # noqa: E402 - after the thread settings
 
 ROOT = Path(__file__).resolve().parents[1]
+# Child processes (reviews, the suite) run this checkout's source, wherever they start.
+os.environ["PYTHONPATH"] = os.pathsep.join(
+    p for p in (str(ROOT / "src"), os.environ.get("PYTHONPATH", "")) if p)
 
 
 def _median_time(fn, repeat: int) -> float:  # type: ignore[no-untyped-def]
