@@ -1142,8 +1142,11 @@ def _figure_jobs(count: int) -> int:
     if count < _MIN_PARALLEL_FIGURES or not sys.platform.startswith("linux"):
         return 1
     import multiprocessing
+    import threading
 
     if multiprocessing.current_process().daemon:   # a daemon may not have children
+        return 1
+    if threading.active_count() > 1:    # forking a threaded process can deadlock the child
         return 1
     return max(1, min(jobs, 4, count))
 
