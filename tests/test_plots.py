@@ -258,3 +258,22 @@ def test_crossing_beyond_a_short_sweep_is_flagged(tmp_path: Path) -> None:
     assert "a crossing may lie above it" in bode and "PM not decided by the sweep" in bode
     assert "Ms = not decided by the sweep" in figs["sensitivity"].caption
     assert "No Ms disc" in figs["nyquist"].caption
+
+
+def test_figures_drawn_in_worker_processes_equal_those_drawn_here(
+        monkeypatch: pytest.MonkeyPatch) -> None:
+    # The forked drawing is only a speed-up: every figure, in every variant and in page
+    # order, must be the same raster and caption as variant_plots draws in this process.
+    # spindle_sweep: a measured variant (3 figures) beside a model one (5), 8 in all.
+    review = sample_review("spindle_sweep")
+    import threading
+
+    monkeypatch.setenv(plots.FIGURE_JOBS_ENV, "2")
+    # (a process with other threads is never forked: then both sides are drawn here)
+    assert plots._figure_jobs(8) == (2 if threading.active_count() == 1 else 1)
+    forked = plots.all_variant_plots(review.design, review.analyses)
+    here = [plots.variant_plots(review.design, a) for a in review.analyses]
+    assert [list(f) for f in forked] == [list(h) for h in here]
+    assert forked == here
+    monkeypatch.setenv(plots.FIGURE_JOBS_ENV, "1")
+    assert plots._figure_jobs(8) == 1

@@ -47,7 +47,7 @@ from .pdf_style import (
     value_text,
     widths,
 )
-from .plots import FrequencyUnit
+from .plots import FrequencyUnit, all_variant_plots
 from .review import Review
 
 __all__ = ["render_pdf", "CAUTION"]
@@ -111,9 +111,11 @@ def _layout(review: Review, embedded: Mapping[str, bytes]) -> bytes:
     story += _cover(review, st, unit)
     story.append(PageBreak())
     story += _findings(review, st, unit)
+    figures = all_variant_plots(review.design, review.analyses)
     for i, analysis in enumerate(review.analyses):
         story.append(PageBreak())
-        story += evidence_section(review, analysis, st, unit, number=f"2.{i + 1}")
+        story += evidence_section(review, analysis, st, unit, number=f"2.{i + 1}",
+                                  plots=figures[i])
     if any(a.integral_alternatives for a in review.analyses):
         story.append(PageBreak())
         story += alternative_section(review, st, unit)

@@ -104,10 +104,52 @@ class Picture(Flowable):
         return self.width, self.height
 
     def draw(self) -> None:
-        from reportlab.lib.utils import ImageReader
+        try:
+            name = _image_xobject(self.canv, self.plot.pixels)
+        except AttributeError:                  # a reportlab without these internals
+            from reportlab.lib.utils import ImageReader
 
-        self.canv.drawImage(ImageReader(self.plot.pixels.image()), 0, 0,
-                            width=self.width, height=self.height)
+            self.canv.drawImage(ImageReader(self.plot.pixels.image()), 0, 0,
+                                width=self.width, height=self.height)
+            return
+        # As canvas.drawImage places an image XObject: unit square scaled to the size.
+        self.canv.saveState()
+        self.canv.scale(self.width, self.height)
+        self.canv._code.append(f"/{name} Do")  # noqa: SLF001 - see _image_xobject
+        self.canv.restoreState()
+
+
+def _image_xobject(canv: Any, raster: Any) -> str:
+    """Register ``raster`` as an RGB image XObject of the document once; its PDF name.
+
+    What ``canvas.drawImage`` does for an ImageReader, with the FlateDecode stream the
+    figure's drawing already made (reportlab would compress the raster again here, in the
+    one process that lays out the pages, and hash it with MD5 to name it).  Uses
+    reportlab's document internals (``_doc``, ``_setXObjects``, ``_formsinuse``); an
+    AttributeError makes the caller fall back to ``drawImage``.
+    """
+    import hashlib
+
+    from reportlab.pdfbase import pdfdoc
+
+    stream = raster.flate_stream()
+    key = "lwimg" + hashlib.sha256(stream).hexdigest()[:32]
+    doc = canv._doc  # noqa: SLF001
+    reg = doc.getXObjectName(key)
+    if doc.idToObject.get(reg) is None:
+        img = pdfdoc.PDFImageXObject(key)
+        img.width, img.height = raster.width_px, raster.height_px
+        img.bitsPerComponent = 8
+        img.colorSpace = "DeviceRGB"
+        img._filters = ("FlateDecode",)  # noqa: SLF001
+        img.streamContent = stream
+        img.mask = None
+        canv._setXObjects(img)  # noqa: SLF001
+        doc.Reference(img, reg)
+        doc.addForm(key, img)
+    canv._currentPageHasImages = 1  # noqa: SLF001
+    canv._formsinuse.append(key)  # noqa: SLF001
+    return reg
 
 
 def _figure(plot: Plot, st: dict[str, Any]) -> KeepTogether:
@@ -507,8 +549,10 @@ def _figure_beside(plot: Plot, notes: list[Any], st: dict[str, Any]) -> Table:
 
 
 def evidence_section(review: Review, a: LoopAnalysis, st: dict[str, Any],
-                     unit: FrequencyUnit, *, number: str) -> list[Any]:
-    """Section 2.n: the figures and plots of one plant variant."""
+                     unit: FrequencyUnit, *, number: str,
+                     plots: dict[str, Plot] | None = None) -> list[Any]:
+    """Section 2.n: the figures and plots of one plant variant (``plots``: its figures
+    when already drawn, else drawn here)."""
     variant = next(v for v in review.design.variants if v.name == a.variant)
     out: list[Any] = [Paragraph(f"{number}  Evidence: {text(a.variant)}", st["h1"]),
                       Paragraph(_plant_text(variant, unit), st["body"])]
@@ -518,7 +562,8 @@ def evidence_section(review: Review, a: LoopAnalysis, st: dict[str, Any],
     out += _slow_pairs(a, st)
     out += _boosts(a, st, unit)
     out.append(Spacer(1, 3 * mm))
-    plots = variant_plots(review.design, a)
+    if plots is None:
+        plots = variant_plots(review.design, a)
     notes = _notes(a, st)
     # The square pair first: it fits under the tables more often than the tall Bode plot.
     if "poles" in plots:
