@@ -34,15 +34,7 @@ from ..design.frd import MeasuredPlant
 from ..design.model import Design, PlantVariant
 from ..errors import AnalysisError
 from ..lti import ComplexArray, FloatArray, Zpk
-from .discrete_margins import refined_peak
 from .internal import internal_stability
-from .margins import (
-    bracketed_roots,
-    gain_crossing_list,
-    margins_from_crossings,
-    phase_crossing,
-    phase_crossings_on,
-)
 from .results import (
     Curves,
     FrequencyCoverage,
@@ -53,7 +45,7 @@ from .results import (
     TimeSeries,
     Tracking,
 )
-from .sensitivity import PEAK_FUNCTIONS, sensitivity_from_peaks
+from .sensitivity import sensitivity_from_peaks
 from .stability import open_loop_pole_counts
 
 __all__ = ["ASSUMPTIONS", "MODEL_ONLY", "MeasuredLoop", "analyze_measured",
@@ -159,24 +151,12 @@ def analysis_grid(loop: MeasuredLoop) -> FloatArray:
 
 
 # --------------------------------------------------------------------------- margins
-def _gain_crossings(loop: MeasuredLoop, w: FloatArray) -> FloatArray:
-    f = loop.log_magnitude(w)
-    idx = np.flatnonzero((f[:-1] > 0) != (f[1:] > 0))
-
-    def fn(u: FloatArray, _: FloatArray) -> FloatArray:
-        return loop.log_magnitude(np.exp(u))
-
-    return np.exp(bracketed_roots(fn, np.log(w[idx]), np.log(w[idx + 1])))
-
-
 def measured_margins(loop: MeasuredLoop, w: FloatArray) -> Margins:
     """Margins from the crossings inside the measured range (see the module notes)."""
-    w_gc = _gain_crossings(loop, w)
-    gains = gain_crossing_list(w_gc, loop.phase_rad(w_gc))
-    w_pc = phase_crossings_on(loop.phase_rad, w)
-    mags = np.exp(loop.log_magnitude(w_pc))
-    phases = [phase_crossing(float(x), float(m)) for x, m in zip(w_pc, mags, strict=True)]
-    return margins_from_crossings(gains, phases)
+    from .loop_figures import loop_margins
+    from .loop_response import MeasuredResponse
+
+    return loop_margins(MeasuredResponse(loop), w)
 
 
 # --------------------------------------------------------------------------- peaks
@@ -196,10 +176,10 @@ def measured_sensitivity(loop: MeasuredLoop, w: FloatArray, low_side_below_one: 
     peak is the larger of the in-range peak and those bounds, so it is never optimistic.
     Returns the figures and the names of those set by a bound, not by the data.
     """
-    def l_of_w(x: FloatArray) -> ComplexArray:
-        return loop.value(np.clip(x, w[0], w[-1]))
+    from .loop_figures import loop_peaks
+    from .loop_response import MeasuredResponse
 
-    lv = l_of_w(w[[0, -1]])
+    lv = loop.value(w[[0, -1]])
     a = float(np.abs(lv[-1]))
     b = float(np.abs(lv[0]))
     high = _edge_bounds(a, True)
@@ -207,8 +187,8 @@ def measured_sensitivity(loop: MeasuredLoop, w: FloatArray, low_side_below_one: 
     out: list[tuple[float, float]] = []
     bounded: list[str] = []
     names = ("peak_sensitivity", "peak_complementary", "disk_margin")
-    for i, (fn, name) in enumerate(zip(PEAK_FUNCTIONS, names, strict=True)):
-        peak, at = refined_peak(fn, w, l_of_w)
+    peaks = loop_peaks(MeasuredResponse(loop), w)
+    for i, (name, (peak, at)) in enumerate(zip(names, peaks, strict=True)):
         edge = max(low[i], high[i])
         if edge > peak:
             peak, at = edge, (float(w[0]) if low[i] >= high[i] else float(w[-1]))
