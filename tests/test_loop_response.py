@@ -151,3 +151,25 @@ def test_both_scalar_maximisers_reach_the_same_peaks():
         assert g == pytest.approx(b, rel=1e-12)
         assert wg == pytest.approx(wb, rel=1e-6)
         assert g >= float(np.max(fn(lv))) * (1 - 1e-12)
+
+
+def test_not_applicable_follows_from_the_table_of_parts():
+    # What a loop cannot run follows from what each part needs: a measured plant (no model)
+    # loses every model-based check with the reason the part states; a sampled loop (model,
+    # roots, simulation, but not continuous time) and a continuous loop lose none.
+    from loopwarden.analysis.loop_response import ContinuousResponse as C
+    from loopwarden.analysis.loop_response import MeasuredResponse as M
+    from loopwarden.analysis.loop_response import SampledResponse as S
+    from loopwarden.analysis.pipeline import PARTS, applies, not_applicable
+
+    measured = not_applicable(M.capabilities, "measured plant")
+    assert list(measured) == ["internal_stability", "system_type", "error_constant",
+                              "step_overshoot", "step_settling", "step_rise",
+                              "slow_pair_tail", "boost_band", "lag_phase_budget",
+                              "integral_alternative"]
+    assert measured["step_rise"] == "measured plant: the step response needs a model"
+    assert not_applicable(S.capabilities, "sampled loop") == {}
+    assert not_applicable(C.capabilities, "") == {}
+    for part in PARTS:
+        assert applies(part.name, C.capabilities)
+        assert applies(part.name, M.capabilities) == (not part.needs)

@@ -35,20 +35,19 @@ from ..design.model import Design, PlantVariant
 from ..errors import AnalysisError
 from ..lti import ComplexArray, FloatArray, Zpk
 from .internal import internal_stability
+from .pipeline import not_applicable
 from .results import (
-    Curves,
     FrequencyCoverage,
-    LoopAnalysis,
+    InternalStability,
     Margins,
     Sensitivity,
     Stability,
-    TimeSeries,
     Tracking,
 )
 from .sensitivity import sensitivity_from_peaks
 from .stability import open_loop_pole_counts
 
-__all__ = ["ASSUMPTIONS", "MODEL_ONLY", "MeasuredLoop", "analyze_measured",
+__all__ = ["ASSUMPTIONS", "MODEL_ONLY", "MeasuredFigures", "MeasuredLoop", "measured_figures",
            "measured_loop"]
 
 ASSUMPTIONS = (
@@ -60,23 +59,9 @@ ASSUMPTIONS = (
     "side of 1 it has at the lowest measured frequency. The declared unstable poles are "
     "taken as the plant's open-loop right-half-plane poles.")
 
-#: Checks that need a model of the plant, with the reason they do not apply.
-MODEL_ONLY = {
-    "internal_stability": "measured plant: cancellations between the controller and the "
-                          "plant's poles and zeros cannot be checked without a model",
-    "system_type": "measured plant: the tracking constants need a model of the plant's "
-                   "low-frequency behaviour",
-    "error_constant": "measured plant: the tracking constants need a model of the plant's "
-                      "low-frequency behaviour",
-    "step_overshoot": "measured plant: the step response needs a model",
-    "step_settling": "measured plant: the step response needs a model",
-    "step_rise": "measured plant: the step response needs a model",
-    "slow_pair_tail": "measured plant: closed-loop poles and residues need a model",
-    "boost_band": "measured plant: the boost-band analysis is done on models only",
-    "lag_phase_budget": "measured plant: the lag phase budget is priced on models only",
-    "integral_alternative": "measured plant: the integral-action alternative is re-tuned "
-                            "on models only",
-}
+#: Checks that need a model of the plant, with the reason they do not apply (derived from
+#: the pipeline's table of parts: what each needs, the measured loop offering no model).
+MODEL_ONLY = not_applicable(frozenset(), "measured plant")
 #: Checks decided by the Nyquist count or the crossings (see :func:`_coverage`).
 _MARGIN_CHECKS = ("gain_margin", "phase_margin", "delay_margin", "crossover_band",
                   "peak_sensitivity", "peak_complementary", "disk_margin")
@@ -360,16 +345,26 @@ def _tracking(m: int) -> Tracking:
                     parabola_error=errs.get("parabola_error", 0.0), unknown=unknown)
 
 
-def analyze_measured(design: Design, variant: PlantVariant) -> LoopAnalysis:
-    """Analyse the loop around a measured plant variant on its data."""
-    loop = measured_loop(design, variant)
+@dataclass(frozen=True)
+class MeasuredFigures:
+    """What the data decide about a loop around a measured plant (see the module notes)."""
+
+    stability: Stability
+    internal: InternalStability
+    margins: Margins
+    sensitivity: Sensitivity
+    tracking: Tracking
+    coverage: FrequencyCoverage
+
+
+def measured_figures(design: Design, loop: MeasuredLoop) -> MeasuredFigures:
+    """Margins, peaks, the Nyquist count and the coverage of ``loop`` on its data."""
     mp = loop.plant
     kp = loop.known.poles
     if np.any((np.abs(kp.real) <= 1e-9 * np.abs(kp)) & (kp != 0)):
         raise AnalysisError("controller or sensor poles on the imaginary axis away from "
                             "s = 0 are not supported with a measured plant")
     w = analysis_grid(loop)
-    errors: dict[str, str] = {}
     l_min = float(np.exp(loop.log_magnitude(w[:1]))[0])
     l_max = float(np.exp(loop.log_magnitude(w[-1:]))[0])
     slope = _low_slope(loop)
@@ -416,19 +411,9 @@ def analyze_measured(design: Design, variant: PlantVariant) -> LoopAnalysis:
     if design.sensor is not None:
         blocks.append(("sensor", design.sensor))
     partial = internal_stability(blocks)
-    intern = type(partial)(internally_stable=partial.internally_stable,
-                           cancellations=partial.cancellations,
-                           note="plant not checked (measured); between controller and "
-                                "sensor: " + partial.note)
-    errors["step"] = "measured plant: no model to simulate"
-    plot_w = w if w.size <= 2000 else w[np.unique(
-        np.linspace(0, w.size - 1, 2000).round().astype(int))]
-    empty = TimeSeries(time_s=np.zeros(0), value=np.zeros(0))
-    curves = Curves(frequency_rad_s=plot_w, open_loop=loop.value(plot_w), step=empty,
-                    ramp_error=empty, improvement={})
-    return LoopAnalysis(
-        variant=variant.name, stability=stab, internal=intern, margins=marg,
-        sensitivity=sens, tracking=_tracking(m), step=None, slow_tail=None, boosts=(),
-        integral_alternatives=(), curves=curves, errors=errors, coverage=coverage,
-        not_applicable=MappingProxyType(dict(MODEL_ONLY)),
-    )
+    intern = InternalStability(internally_stable=partial.internally_stable,
+                               cancellations=partial.cancellations,
+                               note="plant not checked (measured); between controller and "
+                                    "sensor: " + partial.note)
+    return MeasuredFigures(stability=stab, internal=intern, margins=marg, sensitivity=sens,
+                           tracking=_tracking(m), coverage=coverage)
