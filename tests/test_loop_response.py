@@ -173,3 +173,18 @@ def test_not_applicable_follows_from_the_table_of_parts():
     for part in PARTS:
         assert applies(part.name, C.capabilities)
         assert applies(part.name, M.capabilities) == (not part.needs)
+
+
+def test_closed_loop_roots_against_the_characteristic_polynomial():
+    # [derived] 1 + k/(s(s + 1)(s + 2)) = 0 ⇔ s³ + 3s² + 2s + k = 0; in z, 1 + L(z) = 0 ⇔
+    # den + num = 0 for L = num/den.  A delay loop has infinitely many: None.
+    k = 3.0
+    cont = ContinuousResponse(loop(zpk([], [0.0, -1.0, -2.0], k)))
+    assert np.allclose(np.sort_complex(cont.closed_loop_roots()),
+                       np.sort_complex(np.roots([1.0, 3.0, 2.0, k])), rtol=1e-10)
+    assert ContinuousResponse(loop(zpk([], [0.0], 1.0), delay=0.1)).closed_loop_roots() is None
+    samp = SampledResponse(sampled_loop("zpk = { poles = [0.0, -2.0], gain = 6.0 }"))
+    rat = samp.rational
+    char = np.polyadd(np.real(np.poly(rat.poles)), rat.gain * np.real(np.poly(rat.zeros)))
+    assert np.allclose(np.sort_complex(samp.closed_loop_roots()),
+                       np.sort_complex(np.roots(char)), rtol=1e-9, atol=1e-12)

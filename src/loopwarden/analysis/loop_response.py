@@ -14,10 +14,11 @@ sensitivity peaks, bandwidth; :mod:`.loop_figures`) and the analysis pipeline
   frequency π/T for a sampled loop; none for a measured loop, known on its range only);
 * ``nyquist_rad_s`` and ``period_s`` where sampled;
 * ``rational``, the rational model when there is one (``L`` without its delay; the
-  sampled loop's ``L(z)``; None for a measured plant), and ``capabilities``: what the loop
-  offers to the parts that need more than its frequency response ("model": a rational
-  model of every block, "roots": closed-loop roots, "time_response": a simulated step,
-  "continuous": continuous time).
+  sampled loop's ``L(z)``; None for a measured plant), :meth:`closed_loop_roots` where
+  they are finitely many (None with a delay or a measured plant), and ``capabilities``:
+  what the loop offers to the parts that need more than its frequency response
+  ("model": a rational model of every block, "roots": closed-loop roots,
+  "time_response": a simulated step, "continuous": continuous time).
 
 The adapters wrap the existing loop objects and carry the few places where the kinds
 differ: the grid (:func:`~.frequency_grid.loop_grid`, the unit-circle grid, the measured
@@ -77,6 +78,7 @@ class LoopResponse(Protocol):
     def exact_gain_crossings(self) -> FloatArray: ...
     def phase_crossover_frequencies(self, w: FloatArray) -> FloatArray: ...
     def end_phase_crossings(self) -> list[PhaseCrossing]: ...
+    def closed_loop_roots(self) -> ComplexArray | None: ...
 
 
 def thin(w: FloatArray, max_points: int = 2000) -> FloatArray:
@@ -153,6 +155,15 @@ class ContinuousResponse:
         from .margins import endpoint_crossings
 
         return endpoint_crossings(self.loop)
+
+    def closed_loop_roots(self) -> ComplexArray | None:
+        """Closed-loop poles in s (every mode kept); None with a delay (infinitely many:
+        the stability part certifies those in its search region)."""
+        if self.loop.has_delay:
+            return None
+        from .closed_loop import closed_loop_poles
+
+        return closed_loop_poles(self.loop)
 
 
 @dataclass(frozen=True, eq=False)
@@ -257,6 +268,13 @@ class SampledResponse:
                 out.append(phase_crossing(at, abs(v)))
         return out
 
+    def closed_loop_roots(self) -> ComplexArray:
+        """Closed-loop poles in z (eigenvalues of the closed-loop state matrix)."""
+        from .discrete_response import discrete_closed_loop
+
+        a = discrete_closed_loop(self.loop).a
+        return np.sort_complex(np.linalg.eigvals(a)) if a.size else np.zeros(0, complex)
+
 
 @dataclass(frozen=True, eq=False)
 class MeasuredResponse:
@@ -315,6 +333,9 @@ class MeasuredResponse:
 
     def end_phase_crossings(self) -> list[PhaseCrossing]:
         return []
+
+    def closed_loop_roots(self) -> ComplexArray | None:
+        return None                                 # no model: the Nyquist count only
 
 
 def response_of(loop: object) -> LoopResponse:

@@ -11,9 +11,12 @@ an interior value must beat them by more than rounding (1e−12, relative) to re
 The scalar maximiser between neighbours is golden section, run on all brackets of all
 functions at once (one evaluation of L per step: ``method="golden"``), or scipy's bounded
 Brent minimiser per bracket (``method="brent"``).  Both stop at the tolerance of
-``scipy.optimize.minimize_scalar(method="bounded", xatol=1e−12)``; the peak values agree
-to rounding, the frequencies of flat peaks only to about 1e−8 (relative), which is why the
-callers keep the method they had (see DEVELOPERS.md, analysis layout).
+``scipy.optimize.minimize_scalar(method="bounded", xatol=1e−12)``.  The peak values agree
+to rounding, but where a flat peak lies is decided only to about 1e−8 (relative) by
+function values (the value changes by rounding over that width), so the two place it a
+few 1e−8 apart.  Each caller keeps the maximiser it had, so that the reported peak
+frequencies stay as they were: golden for the continuous |S|, |T|, |S − 1/2|; Brent for
+the sampled and measured loops and for the effort and disturbance peaks.
 """
 
 from __future__ import annotations
