@@ -16,7 +16,7 @@ from ..design.model import Design, PlantVariant
 from ..lti import Zpk
 from ..lti_discrete import DiscreteLoop
 from .discrete_margins import closed_loop_bandwidth
-from .loop_response import MODEL, ROOTS, TIME_RESPONSE
+from .parts import MODEL, ROOTS, TIME_RESPONSE
 from .pipeline import not_applicable
 from .results import Margins, SampledInfo
 

@@ -37,6 +37,7 @@ import numpy as np
 from ..lti import ComplexArray, FloatArray, Loop, Zpk
 from ..lti_discrete import DiscreteLoop, unit_circle_log_magnitude, unit_circle_phase_rad
 from . import frequency_grid
+from .parts import CONTINUOUS, MODEL, ROOTS, TIME_RESPONSE
 from .results import PhaseCrossing
 
 __all__ = ["ContinuousResponse", "EndValues", "LoopResponse", "MeasuredResponse",
@@ -45,10 +46,6 @@ __all__ = ["ContinuousResponse", "EndValues", "LoopResponse", "MeasuredResponse"
 #: ``(|S|, |T|, |S − 1/2|)`` at one end of the frequency range, with its frequency.
 EndValues = tuple[float, tuple[float, float, float]]
 
-MODEL = "model"
-ROOTS = "roots"
-TIME_RESPONSE = "time_response"
-CONTINUOUS = "continuous"
 
 
 @runtime_checkable

@@ -1,12 +1,13 @@
 """One analysis pipeline for every kind of loop: a table of parts and one runner.
 
-Each part of the analysis of one plant variant is a row of :data:`PARTS`: its name (the
-key of ``LoopAnalysis.errors`` when it fails), what it needs from the loop beyond its
-frequency response (:class:`~.loop_response.LoopResponse` ``capabilities``: "model",
-"roots", "time_response", "continuous"), and, for each check it decides, what it needs
-said in words.  A loop that lacks a need gets those checks as not applicable, with the
-reason ``"<why the loop lacks it>: <what the check needs>"`` (e.g. "measured plant: the
-step response needs a model"); nothing else keeps a list of what does not apply.
+Each part of the analysis of one plant variant is a row of :data:`~.parts.PARTS`: its name
+(the key of ``LoopAnalysis.errors`` when it fails), the checks its failure leaves
+undecided, what it needs from the loop beyond its frequency response
+(:class:`~.loop_response.LoopResponse` ``capabilities``: "model", "roots",
+"time_response", "continuous"), and, for each check that needs it, why in words.  A loop
+that lacks a need gets those checks as not applicable, with the reason
+``"<why the loop lacks it>: <what the check needs>"`` (e.g. "measured plant: the step
+response needs a model"); nothing else keeps a list of what does not apply.
 
 :func:`run_loop` runs the parts in table order for a continuous, a sampled or a measured
 loop alike.  The few computations that differ by kind (stability from roots, in z or by
@@ -18,14 +19,12 @@ response once (:mod:`.loop_figures`).  A part that fails numerically is recorded
 
 from __future__ import annotations
 
-from collections.abc import Mapping
-from dataclasses import dataclass, field
 from types import MappingProxyType
 from typing import TYPE_CHECKING
 
 import numpy as np
 
-from .loop_response import CONTINUOUS, MODEL, ROOTS, TIME_RESPONSE
+from .parts import PARTS, Part
 from .results import Curves, LoopAnalysis, TimeSeries
 from .undecided import (
     NUMERIC_ERRORS,
@@ -44,51 +43,7 @@ if TYPE_CHECKING:  # pragma: no cover
 
 __all__ = ["PARTS", "Part", "applies", "not_applicable", "run_loop"]
 
-_TRACKING = "the tracking constants need a model of the plant's low-frequency behaviour"
-_STEP = "the step response needs a model"
-
-
-@dataclass(frozen=True)
-class Part:
-    """One part of the analysis and what it needs (module notes)."""
-
-    name: str
-    needs: frozenset[str] = frozenset()
-    #: Check → what it needs, in words (the tail of its "not applicable" reason).
-    checks: Mapping[str, str] = field(default_factory=dict)
-    #: What ``LoopAnalysis.errors`` says for the part when the loop lacks a need.
-    absent: str | None = None
-
-
-#: The parts in the order they run.  Parts without needs apply to every loop.
-PARTS: tuple[Part, ...] = (
-    Part("stability"),
-    Part("internal_stability", frozenset({MODEL}), {
-        "internal_stability": "cancellations between the controller and the plant's poles "
-                              "and zeros cannot be checked without a model"}),
-    Part("frequency_grid"),
-    Part("margins"),
-    Part("stabilising_gain", frozenset({MODEL})),
-    Part("sensitivity"),
-    Part("tracking", frozenset({MODEL}), {"system_type": _TRACKING,
-                                          "error_constant": _TRACKING}),
-    Part("sampling"),
-    Part("step", frozenset({MODEL, TIME_RESPONSE}),
-         dict.fromkeys(("step_overshoot", "step_settling", "step_rise"), _STEP),
-         absent="no model to simulate"),
-    Part("slow_tail", frozenset({MODEL, ROOTS, TIME_RESPONSE}), {
-        "slow_pair_tail": "closed-loop poles and residues need a model"}),
-    Part("boost_band", frozenset({MODEL}), {
-        "boost_band": "the boost-band analysis is done on models only",
-        "lag_phase_budget": "the lag phase budget is priced on models only"}),
-    Part("integral_alternative", frozenset({MODEL}), {
-        "integral_alternative": "the integral-action alternative is re-tuned on models "
-                                "only"}),
-    Part("curves"),
-)
 _BY_NAME = {p.name: p for p in PARTS}
-#: Every need a part may declare.
-NEEDS = frozenset({MODEL, ROOTS, TIME_RESPONSE, CONTINUOUS})
 
 
 def applies(part: str, capabilities: frozenset[str]) -> bool:
