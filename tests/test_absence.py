@@ -53,6 +53,11 @@ def test_truncated_sweep_leaves_the_gain_margin_undecided_with_a_true_bound(tmp_
     # Type 0: Kp needs the plant's DC gain, which a sweep does not give.
     kp = figure_absence(a, "kp")
     assert kp is not None and kp.why is Why.UNDECIDED
+    # [derived] type 0: Kv = Ka = 0, ramp and parabola errors infinite; Kp and the step
+    # error need the DC gain: missing, with no placeholder number.
+    tr = a.tracking
+    assert tr.unknown == ("kp", "step_error") and tr.kp is None and tr.step_error is None
+    assert (tr.kv, tr.ka, tr.ramp_error, tr.parabola_error) == (0.0, 0.0, math.inf, math.inf)
     assert "gain_margin_db" in missing_figures(a) and "kp" in missing_figures(a)
 
 

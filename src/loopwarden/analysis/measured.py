@@ -334,15 +334,17 @@ def _tracking(m: int) -> Tracking:
     which = ("kp", "kv", "ka")
     errors = ("step_error", "ramp_error", "parabola_error")
     unknown = (which[m], errors[m]) if m < 3 else ()
-    values = {k: (math.inf if i < m else 0.0) for i, k in enumerate(which)}
-    errs = {e: (0.0 if i < m else math.inf) for i, e in enumerate(errors)}
+    values: dict[str, float | None] = {k: (math.inf if i < m else 0.0)
+                                       for i, k in enumerate(which)}
+    errs: dict[str, float | None] = {e: (0.0 if i < m else math.inf)
+                                     for i, e in enumerate(errors)}
     for name in unknown:
         values.pop(name, None)
         errs.pop(name, None)
-    return Tracking(system_type=m, kp=values.get("kp", 0.0), kv=values.get("kv", 0.0),
-                    ka=values.get("ka", 0.0), step_error=errs.get("step_error", 0.0),
-                    ramp_error=errs.get("ramp_error", 0.0),
-                    parabola_error=errs.get("parabola_error", 0.0), unknown=unknown)
+    return Tracking(system_type=m, kp=values.get("kp"), kv=values.get("kv"),
+                    ka=values.get("ka"), step_error=errs.get("step_error"),
+                    ramp_error=errs.get("ramp_error"),
+                    parabola_error=errs.get("parabola_error"), unknown=unknown)
 
 
 @dataclass(frozen=True)
