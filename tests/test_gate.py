@@ -430,12 +430,12 @@ SAMPLES = Path(__file__).resolve().parents[1] / "sample_designs"
 
 def test_unknown_tracking_constants_compare_as_missing() -> None:
     # spindle_sweep: the measured nominal plant leaves Kv (type 1: the constant of its own
-    # type) unknown; its stored 0.0 is a placeholder.  Against the model variant (Kv = 1333)
-    # a placeholder compared as a number would be a worsening of 1333 1/s.
+    # type) unknown; it is stored as None, not as a number.  Against the model variant
+    # (Kv = 1333) a placeholder compared as a number would be a worsening of 1333 1/s.
     design = parse_design((SAMPLES / "spindle_sweep.toml").read_text(encoding="utf-8"),
                           str(SAMPLES / "spindle_sweep.toml"))
     measured, model = analyze(design)
-    assert "kv" in measured.tracking.unknown and measured.tracking.kv == 0.0
+    assert "kv" in measured.tracking.unknown and measured.tracking.kv is None
     assert model.tracking.kv == pytest.approx(1333.33, rel=1e-4)   # kp/ti·(plant DC gain 40)
     changes = {c.figure: c for c in compare(model, measured)}
     assert changes["kv"].candidate is None and changes["kv"].change is None

@@ -240,8 +240,8 @@ def test_undecided_stability_is_an_error_finding(tmp_path):
 
 
 @pytest.mark.parametrize(("target", "checks"), [
-    ("loopwarden.analysis.margins.compute_margins", ("gain_margin", "phase_margin")),
-    ("loopwarden.analysis.sensitivity.compute_sensitivity", ("peak_sensitivity",)),
+    ("loopwarden.analysis.loop_figures.loop_margins", ("gain_margin", "phase_margin")),
+    ("loopwarden.analysis.loop_figures.loop_sensitivity", ("peak_sensitivity",)),
     ("loopwarden.analysis.tracking.compute_tracking", ("system_type",)),
     ("loopwarden.analysis.frequency_grid.loop_grid", ("gain_margin", "disk_margin")),
 ])
@@ -310,15 +310,15 @@ def test_a_part_that_returns_nan_is_undecided():
     # without saying so and is reported like one that raised.
     import dataclasses as dc
 
-    from loopwarden.analysis import margins as margins_mod
+    from loopwarden.analysis import loop_figures
 
-    real = margins_mod.compute_margins
+    real = loop_figures.loop_margins
 
-    def nan_margins(loop, w):
-        return dc.replace(real(loop, w), phase_margin_deg=float("nan"))
+    def nan_margins(resp, x):
+        return dc.replace(real(resp, x), phase_margin_deg=float("nan"))
 
     d = parse_design(design(), "d.toml")
-    with mock.patch.object(margins_mod, "compute_margins", nan_margins):
+    with mock.patch.object(loop_figures, "loop_margins", nan_margins):
         review = run_review(d, today=DATE)
     found = {f.check: f for f in review.findings}
     assert found["phase_margin"].status is Status.ERROR

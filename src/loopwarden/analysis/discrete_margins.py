@@ -10,8 +10,10 @@ Crossings are bracketed on a grid in ``φ = ωT`` that resolves every root (a lo
 down to well below the slowest root, a uniform grid for delays ``z^{−n}``, clusters across
 roots close to the unit circle, points approaching roots on it) and refined on the
 continuous functions ``ln|L|`` and the factor-wise phase of
-:func:`~loopwarden.lti_discrete.unit_circle_phase_rad`, with the same bracketing solver
-as the continuous margins.
+:func:`~loopwarden.lti_discrete.unit_circle_phase_rad` by the code every kind of loop
+shares (:mod:`.loop_figures` over :class:`~.loop_response.SampledResponse`); this module
+holds the unit-circle grid and the exact values at z = ±1, and keeps the sampled-loop
+entry points as thin wrappers.
 """
 
 from __future__ import annotations
@@ -20,34 +22,16 @@ import math
 from collections.abc import Callable
 
 import numpy as np
-from scipy import optimize
 
 from ..lti import ComplexArray, FloatArray, Zpk
-from ..lti_discrete import (
-    DiscreteLoop,
-    at_z_one,
-    unit_circle_log_magnitude,
-    unit_circle_phase_rad,
-)
-from .margins import (
-    dedupe,
-    gain_crossing_list,
-    gain_crossings_on,
-    margins_from_crossings,
-    phase_crossing,
-    phase_crossings_on,
-    valid_steps,
-)
+from ..lti_discrete import DiscreteLoop, at_z_one
+from .peak_search import refined_peaks
 from .results import Margins, Sensitivity
-from .sensitivity import (
-    PEAK_FUNCTIONS,
-    peak_candidates,
-    peak_values_at,
-    sensitivity_from_peaks,
-)
+from .sensitivity import peak_values_at
 
 __all__ = ["closed_loop_bandwidth", "compute_discrete_margins",
-           "compute_discrete_sensitivity", "refined_peak", "unit_circle_grid"]
+           "compute_discrete_sensitivity", "end_values", "interior", "on_circle_angles",
+           "real_value", "refined_peak", "unit_circle_grid"]
 
 POINTS_PER_DECADE = 100
 UNIFORM_POINTS = 2000
@@ -70,34 +54,10 @@ def refined_peak(fn: Callable[[ComplexArray], FloatArray], w: FloatArray,
     ``(frequency, value)`` pairs known exactly (e.g. ω = 0 and the Nyquist frequency); an
     interior value must beat them by more than rounding (1e−12) to replace them.
     """
-    vals = fn(l_of_w(w))
-    best_val, best_w = -math.inf, float(w[0])
-    for at, value in ends:
-        if value > best_val:
-            best_val, best_w = value, at
-    if not np.all(np.isfinite(vals)):
-        i = int(np.flatnonzero(~np.isfinite(vals))[0])
-        return math.inf, float(w[i])
-    floor = best_val * (1.0 + 1e-12) if best_val > -math.inf else -math.inf
-    u = np.log(w)
-
-    def neg(x: float) -> float:
-        return -float(fn(l_of_w(np.array([math.exp(x)])))[0])
-
-    for i in peak_candidates(vals):
-        if vals[i] > max(best_val, floor):
-            best_val, best_w = float(vals[i]), float(w[i])
-        a, b = u[max(i - 1, 0)], u[min(i + 1, u.size - 1)]
-        if b <= a:
-            continue
-        res = optimize.minimize_scalar(neg, bounds=(a, b), method="bounded",
-                                       options={"xatol": 1e-12})
-        if -res.fun > max(best_val, floor):
-            best_val, best_w = float(-res.fun), float(math.exp(res.x))
-    return best_val, best_w
+    return refined_peaks([fn], w, l_of_w, [ends], method="brent")[0]
 
 
-def _on_circle_angles(zpk: Zpk) -> FloatArray:
+def on_circle_angles(zpk: Zpk) -> FloatArray:
     roots = np.concatenate([zpk.zeros, zpk.poles])
     roots = roots[np.abs(roots) > 0]
     lam = np.log(roots.astype(complex))
@@ -141,27 +101,17 @@ def unit_circle_grid(zpk: Zpk, points_per_decade: int = POINTS_PER_DECADE,
             parts.append(t + s * offsets)
     phi = np.unique(np.concatenate(parts))
     phi = phi[(phi > 0) & (phi <= math.pi)]
-    axis = _on_circle_angles(zpk)
+    axis = on_circle_angles(zpk)
     if axis.size:
         phi = phi[~np.isin(phi, axis)]
     return phi
 
 
-def _interior(phi: FloatArray) -> FloatArray:
+def interior(phi: FloatArray) -> FloatArray:
     return phi[phi < math.pi * (1.0 - _NYQUIST_GAP)]
 
 
-def _gain_crossings(rat: Zpk, phi: FloatArray) -> FloatArray:
-    return gain_crossings_on(lambda p: unit_circle_log_magnitude(rat, p), phi,
-                             valid_steps(phi, _on_circle_angles(rat)))
-
-
-def _phase_crossings(rat: Zpk, phi: FloatArray) -> FloatArray:
-    return dedupe(phase_crossings_on(lambda p: unit_circle_phase_rad(rat, p), phi,
-                                     valid_steps(phi, _on_circle_angles(rat))))
-
-
-def _real_value(rat: Zpk, z: float) -> float | None:
+def real_value(rat: Zpk, z: float) -> float | None:
     """``L(z)`` at z = ±1 when finite and non-zero there (it is real), else None."""
     if np.any(np.abs(rat.poles - z) <= 1e-12) or np.any(np.abs(rat.zeros - z) <= 1e-12):
         return None
@@ -180,38 +130,17 @@ def compute_discrete_margins(loop: DiscreteLoop) -> Margins:
         ``delay_margin_samples`` the same in periods: the extra delay ``e^{−jωτ}`` that
         takes L onto −1 (exact for whole samples ``z^{−d}``).
     """
-    rat = loop.rational
-    T = loop.period_s
-    if rat.gain == 0:
-        return Margins(gain_margin_db=math.inf, gain_margin_lower_db=None,
-                       phase_margin_deg=math.inf, gain_crossover_rad_s=None,
-                       phase_crossover_rad_s=None, delay_margin_s=math.inf, gain_crossings=(),
-                       phase_crossings=(), delay_margin_samples=math.inf)
-    phi = _interior(unit_circle_grid(rat))
-    phi_gc = list(_gain_crossings(rat, phi))
-    l_pi = _real_value(rat, -1.0)
-    if l_pi is not None and abs(math.log(abs(l_pi))) <= 1e-9:
-        phi_gc.append(math.pi)                       # |L| = 1 exactly at the Nyquist frequency
-    phi_gc_arr = np.asarray(phi_gc, dtype=float)
-    gains = gain_crossing_list(phi_gc_arr / T, unit_circle_phase_rad(rat, phi_gc_arr))
+    from .loop_figures import loop_margins
+    from .loop_response import SampledResponse
 
-    phi_pc = _phase_crossings(rat, phi)
-    mags = np.exp(unit_circle_log_magnitude(rat, phi_pc))
-    phases = [phase_crossing(float(p / T), float(m)) for p, m in zip(phi_pc, mags, strict=True)]
-    l_one = _real_value(rat, 1.0)
-    if l_one is not None and l_one < 0:
-        phases.append(phase_crossing(0.0, abs(l_one)))
-    if l_pi is not None and l_pi < 0:
-        phases.append(phase_crossing(math.pi / T, abs(l_pi)))
-    phases.sort(key=lambda c: c.frequency_rad_s)
-    return margins_from_crossings(gains, phases, period_s=T)
+    return loop_margins(SampledResponse(loop))
 
 
-def _end_values(rat: Zpk, z: float) -> tuple[float, float, float]:
+def end_values(rat: Zpk, z: float) -> tuple[float, float, float]:
     """``(|S|, |T|, |S − 1/2|)`` at z = ±1 (a pole there: L infinite; a zero: L = 0)."""
     if np.any(np.abs(rat.poles - z) <= 1e-12) and not np.any(np.abs(rat.zeros - z) <= 1e-12):
         return 0.0, 1.0, 0.5
-    value = _real_value(rat, z)
+    value = real_value(rat, z)
     if value is None:
         return 1.0, 0.0, 0.5
     return peak_values_at(value)
@@ -224,21 +153,10 @@ def compute_discrete_sensitivity(loop: DiscreteLoop) -> Sensitivity:
     beyond it).  Conventions otherwise as
     :func:`~loopwarden.analysis.sensitivity.compute_sensitivity`.
     """
-    rat = loop.rational
-    T = loop.period_s
+    from .loop_figures import loop_sensitivity
+    from .loop_response import SampledResponse
 
-    def l_of_w(x: FloatArray) -> ComplexArray:
-        return rat(np.exp(1j * np.asarray(x, dtype=float) * T))
-
-    w = _interior(unit_circle_grid(rat)) / T
-    zero, high = _end_values(rat, 1.0), _end_values(rat, -1.0)
-    nyquist = math.pi / T
-
-    s_mag, t_mag, d_mag = PEAK_FUNCTIONS
-    s_peak = refined_peak(s_mag, w, l_of_w, ((0.0, zero[0]), (nyquist, high[0])))
-    t_peak = refined_peak(t_mag, w, l_of_w, ((0.0, zero[1]), (nyquist, high[1])))
-    d_max, _ = refined_peak(d_mag, w, l_of_w, ((0.0, zero[2]), (nyquist, high[2])))
-    return sensitivity_from_peaks(s_peak, t_peak, d_max)
+    return loop_sensitivity(SampledResponse(loop))
 
 
 def closed_loop_bandwidth(loop: DiscreteLoop) -> float | None:
@@ -247,28 +165,8 @@ def closed_loop_bandwidth(loop: DiscreteLoop) -> float | None:
     None when it stays above that level up to the Nyquist frequency, or when ``T(1) = 0``
     (no transmission at DC, so no low-frequency level to fall from).
     """
-    rat = loop.rational
-    T = loop.period_s
-    t_dc = _end_values(rat, 1.0)[1]
-    if not t_dc > 0 or not math.isfinite(t_dc):
-        return None
-    level = t_dc / math.sqrt(2.0)
-    phi = unit_circle_grid(rat)
+    from .loop_figures import closed_loop_bandwidth as bandwidth
+    from .loop_response import SampledResponse
 
-    def t_abs(p: FloatArray) -> FloatArray:
-        lv = rat(np.exp(1j * p))
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.abs(lv / (1.0 + lv))
-
-    below = np.flatnonzero(t_abs(phi) < level)
-    if below.size == 0:
-        return None
-    k = int(below[0])
-    if k == 0:
-        return float(phi[0] / T)
-
-    def g(u: float) -> float:
-        return float(t_abs(np.array([math.exp(u)]))[0] - level)
-
-    u = optimize.brentq(g, math.log(phi[k - 1]), math.log(phi[k]), xtol=1e-14, rtol=1e-14)
-    return float(math.exp(u) / T)
+    resp = SampledResponse(loop)
+    return bandwidth(resp, resp.full_grid())

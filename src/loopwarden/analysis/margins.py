@@ -27,7 +27,6 @@ import numpy as np
 from ..lti import FloatArray, Loop, Zpk
 from . import frequency_grid
 from .frequency_grid import (
-    NEGLIGIBLE_GAIN,
     bound_frequency,
     imaginary_axis_frequencies,
     log_magnitude,
@@ -38,8 +37,9 @@ from .frequency_grid import (
 from .frequency_grid import phase as loop_phase
 from .results import GainCrossing, Margins, PhaseCrossing
 
-__all__ = ["bracketed_roots", "compute_margins", "dedupe", "gain_crossing_list",
-           "gain_crossings_on", "gain_crossover_frequencies", "margins_from_crossings",
+__all__ = ["bracketed_roots", "compute_margins", "dedupe", "endpoint_crossings",
+           "gain_crossing_list", "gain_crossings_on", "gain_crossover_frequencies",
+           "margins_from_crossings",
            "phase_crossing", "phase_crossings_on", "phase_crossover_frequencies", "plot_grid",
            "valid_steps", "wrap_phase_margin_deg"]
 
@@ -216,7 +216,7 @@ def phase_crossover_frequencies(loop: Loop, w: FloatArray | None = None) -> Floa
     return dedupe(np.concatenate(found))
 
 
-def _endpoint_crossings(loop: Loop) -> list[PhaseCrossing]:
+def endpoint_crossings(loop: Loop) -> list[PhaseCrossing]:
     """Phase crossings at ω = 0 and ω = ∞ where L is finite and negative real there.
 
     For a biproper rational part with a delay, ``L(jω)`` keeps turning with ``|L| → |k|``;
@@ -312,19 +312,10 @@ def compute_margins(loop: Loop, w: FloatArray | None = None) -> Margins:
     of the crossing setting the upper margin (the others are more than 60 dB from
     mattering), found as :func:`phase_crossover_frequencies` describes.
     """
-    rat = loop.rational
-    if w is None:
-        w = loop_grid(loop)
-    w_gc = gain_crossover_frequencies(loop, w)
-    w_pc = phase_crossover_frequencies(loop, w)
+    from .loop_figures import loop_margins
+    from .loop_response import ContinuousResponse
 
-    gains = gain_crossing_list(w_gc, loop_phase(rat, w_gc) - w_gc * loop.delay_s)
-    mags = np.exp(log_magnitude(rat, w_pc))
-    phases = [phase_crossing(float(x), float(m)) for x, m in zip(w_pc, mags, strict=True)]
-    phases = sorted(phases + _endpoint_crossings(loop), key=lambda c: c.frequency_rad_s)
-    # A delay turns L for ever; list only crossings within 60 dB of the upper margin.
-    return margins_from_crossings(gains, phases,
-                                  listed_above=NEGLIGIBLE_GAIN if loop.has_delay else None)
+    return loop_margins(ContinuousResponse(loop), w)
 
 
 def plot_grid(loop: Loop) -> FloatArray:

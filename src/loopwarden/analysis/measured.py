@@ -34,29 +34,20 @@ from ..design.frd import MeasuredPlant
 from ..design.model import Design, PlantVariant
 from ..errors import AnalysisError
 from ..lti import ComplexArray, FloatArray, Zpk
-from .discrete_margins import refined_peak
 from .internal import internal_stability
-from .margins import (
-    bracketed_roots,
-    gain_crossing_list,
-    margins_from_crossings,
-    phase_crossing,
-    phase_crossings_on,
-)
+from .pipeline import not_applicable
 from .results import (
-    Curves,
     FrequencyCoverage,
-    LoopAnalysis,
+    InternalStability,
     Margins,
     Sensitivity,
     Stability,
-    TimeSeries,
     Tracking,
 )
-from .sensitivity import PEAK_FUNCTIONS, sensitivity_from_peaks
+from .sensitivity import sensitivity_from_peaks
 from .stability import open_loop_pole_counts
 
-__all__ = ["ASSUMPTIONS", "MODEL_ONLY", "MeasuredLoop", "analyze_measured",
+__all__ = ["ASSUMPTIONS", "MODEL_ONLY", "MeasuredFigures", "MeasuredLoop", "measured_figures",
            "measured_loop"]
 
 ASSUMPTIONS = (
@@ -68,23 +59,9 @@ ASSUMPTIONS = (
     "side of 1 it has at the lowest measured frequency. The declared unstable poles are "
     "taken as the plant's open-loop right-half-plane poles.")
 
-#: Checks that need a model of the plant, with the reason they do not apply.
-MODEL_ONLY = {
-    "internal_stability": "measured plant: cancellations between the controller and the "
-                          "plant's poles and zeros cannot be checked without a model",
-    "system_type": "measured plant: the tracking constants need a model of the plant's "
-                   "low-frequency behaviour",
-    "error_constant": "measured plant: the tracking constants need a model of the plant's "
-                      "low-frequency behaviour",
-    "step_overshoot": "measured plant: the step response needs a model",
-    "step_settling": "measured plant: the step response needs a model",
-    "step_rise": "measured plant: the step response needs a model",
-    "slow_pair_tail": "measured plant: closed-loop poles and residues need a model",
-    "boost_band": "measured plant: the boost-band analysis is done on models only",
-    "lag_phase_budget": "measured plant: the lag phase budget is priced on models only",
-    "integral_alternative": "measured plant: the integral-action alternative is re-tuned "
-                            "on models only",
-}
+#: Checks that need a model of the plant, with the reason they do not apply (derived from
+#: the pipeline's table of parts: what each needs, the measured loop offering no model).
+MODEL_ONLY = not_applicable(frozenset(), "measured plant")
 #: Checks decided by the Nyquist count or the crossings (see :func:`_coverage`).
 _MARGIN_CHECKS = ("gain_margin", "phase_margin", "delay_margin", "crossover_band",
                   "peak_sensitivity", "peak_complementary", "disk_margin")
@@ -159,24 +136,12 @@ def analysis_grid(loop: MeasuredLoop) -> FloatArray:
 
 
 # --------------------------------------------------------------------------- margins
-def _gain_crossings(loop: MeasuredLoop, w: FloatArray) -> FloatArray:
-    f = loop.log_magnitude(w)
-    idx = np.flatnonzero((f[:-1] > 0) != (f[1:] > 0))
-
-    def fn(u: FloatArray, _: FloatArray) -> FloatArray:
-        return loop.log_magnitude(np.exp(u))
-
-    return np.exp(bracketed_roots(fn, np.log(w[idx]), np.log(w[idx + 1])))
-
-
 def measured_margins(loop: MeasuredLoop, w: FloatArray) -> Margins:
     """Margins from the crossings inside the measured range (see the module notes)."""
-    w_gc = _gain_crossings(loop, w)
-    gains = gain_crossing_list(w_gc, loop.phase_rad(w_gc))
-    w_pc = phase_crossings_on(loop.phase_rad, w)
-    mags = np.exp(loop.log_magnitude(w_pc))
-    phases = [phase_crossing(float(x), float(m)) for x, m in zip(w_pc, mags, strict=True)]
-    return margins_from_crossings(gains, phases)
+    from .loop_figures import loop_margins
+    from .loop_response import MeasuredResponse
+
+    return loop_margins(MeasuredResponse(loop), w)
 
 
 # --------------------------------------------------------------------------- peaks
@@ -196,10 +161,10 @@ def measured_sensitivity(loop: MeasuredLoop, w: FloatArray, low_side_below_one: 
     peak is the larger of the in-range peak and those bounds, so it is never optimistic.
     Returns the figures and the names of those set by a bound, not by the data.
     """
-    def l_of_w(x: FloatArray) -> ComplexArray:
-        return loop.value(np.clip(x, w[0], w[-1]))
+    from .loop_figures import loop_peaks
+    from .loop_response import MeasuredResponse
 
-    lv = l_of_w(w[[0, -1]])
+    lv = loop.value(w[[0, -1]])
     a = float(np.abs(lv[-1]))
     b = float(np.abs(lv[0]))
     high = _edge_bounds(a, True)
@@ -207,8 +172,8 @@ def measured_sensitivity(loop: MeasuredLoop, w: FloatArray, low_side_below_one: 
     out: list[tuple[float, float]] = []
     bounded: list[str] = []
     names = ("peak_sensitivity", "peak_complementary", "disk_margin")
-    for i, (fn, name) in enumerate(zip(PEAK_FUNCTIONS, names, strict=True)):
-        peak, at = refined_peak(fn, w, l_of_w)
+    peaks = loop_peaks(MeasuredResponse(loop), w)
+    for i, (name, (peak, at)) in enumerate(zip(names, peaks, strict=True)):
         edge = max(low[i], high[i])
         if edge > peak:
             peak, at = edge, (float(w[0]) if low[i] >= high[i] else float(w[-1]))
@@ -369,27 +334,39 @@ def _tracking(m: int) -> Tracking:
     which = ("kp", "kv", "ka")
     errors = ("step_error", "ramp_error", "parabola_error")
     unknown = (which[m], errors[m]) if m < 3 else ()
-    values = {k: (math.inf if i < m else 0.0) for i, k in enumerate(which)}
-    errs = {e: (0.0 if i < m else math.inf) for i, e in enumerate(errors)}
+    values: dict[str, float | None] = {k: (math.inf if i < m else 0.0)
+                                       for i, k in enumerate(which)}
+    errs: dict[str, float | None] = {e: (0.0 if i < m else math.inf)
+                                     for i, e in enumerate(errors)}
     for name in unknown:
         values.pop(name, None)
         errs.pop(name, None)
-    return Tracking(system_type=m, kp=values.get("kp", 0.0), kv=values.get("kv", 0.0),
-                    ka=values.get("ka", 0.0), step_error=errs.get("step_error", 0.0),
-                    ramp_error=errs.get("ramp_error", 0.0),
-                    parabola_error=errs.get("parabola_error", 0.0), unknown=unknown)
+    return Tracking(system_type=m, kp=values.get("kp"), kv=values.get("kv"),
+                    ka=values.get("ka"), step_error=errs.get("step_error"),
+                    ramp_error=errs.get("ramp_error"),
+                    parabola_error=errs.get("parabola_error"), unknown=unknown)
 
 
-def analyze_measured(design: Design, variant: PlantVariant) -> LoopAnalysis:
-    """Analyse the loop around a measured plant variant on its data."""
-    loop = measured_loop(design, variant)
+@dataclass(frozen=True)
+class MeasuredFigures:
+    """What the data decide about a loop around a measured plant (see the module notes)."""
+
+    stability: Stability
+    internal: InternalStability
+    margins: Margins
+    sensitivity: Sensitivity
+    tracking: Tracking
+    coverage: FrequencyCoverage
+
+
+def measured_figures(design: Design, loop: MeasuredLoop) -> MeasuredFigures:
+    """Margins, peaks, the Nyquist count and the coverage of ``loop`` on its data."""
     mp = loop.plant
     kp = loop.known.poles
     if np.any((np.abs(kp.real) <= 1e-9 * np.abs(kp)) & (kp != 0)):
         raise AnalysisError("controller or sensor poles on the imaginary axis away from "
                             "s = 0 are not supported with a measured plant")
     w = analysis_grid(loop)
-    errors: dict[str, str] = {}
     l_min = float(np.exp(loop.log_magnitude(w[:1]))[0])
     l_max = float(np.exp(loop.log_magnitude(w[-1:]))[0])
     slope = _low_slope(loop)
@@ -436,19 +413,9 @@ def analyze_measured(design: Design, variant: PlantVariant) -> LoopAnalysis:
     if design.sensor is not None:
         blocks.append(("sensor", design.sensor))
     partial = internal_stability(blocks)
-    intern = type(partial)(internally_stable=partial.internally_stable,
-                           cancellations=partial.cancellations,
-                           note="plant not checked (measured); between controller and "
-                                "sensor: " + partial.note)
-    errors["step"] = "measured plant: no model to simulate"
-    plot_w = w if w.size <= 2000 else w[np.unique(
-        np.linspace(0, w.size - 1, 2000).round().astype(int))]
-    empty = TimeSeries(time_s=np.zeros(0), value=np.zeros(0))
-    curves = Curves(frequency_rad_s=plot_w, open_loop=loop.value(plot_w), step=empty,
-                    ramp_error=empty, improvement={})
-    return LoopAnalysis(
-        variant=variant.name, stability=stab, internal=intern, margins=marg,
-        sensitivity=sens, tracking=_tracking(m), step=None, slow_tail=None, boosts=(),
-        integral_alternatives=(), curves=curves, errors=errors, coverage=coverage,
-        not_applicable=MappingProxyType(dict(MODEL_ONLY)),
-    )
+    intern = InternalStability(internally_stable=partial.internally_stable,
+                               cancellations=partial.cancellations,
+                               note="plant not checked (measured); between controller and "
+                                    "sensor: " + partial.note)
+    return MeasuredFigures(stability=stab, internal=intern, margins=marg, sensitivity=sens,
+                           tracking=_tracking(m), coverage=coverage)

@@ -18,6 +18,7 @@ import math
 from collections.abc import Callable
 from dataclasses import dataclass
 
+from .absence import CHECK_FIGURES, absent_figures
 from .results import LoopAnalysis
 
 
@@ -86,28 +87,13 @@ FIGURES: tuple[Figure, ...] = (
 FIGURE_NAMES = tuple(f.name for f in FIGURES)
 
 #: Checks a measured range may leave undecided → the figures they decide.
-UNDECIDED_FIGURES = {
-    "gain_margin": ("gain_margin_db",),
-    "phase_margin": ("phase_margin_deg", "gain_crossover_rad_s"),
-    "crossover_band": ("gain_crossover_rad_s",),
-    "delay_margin": ("delay_margin_s",),
-    "peak_sensitivity": ("peak_sensitivity",),
-    "peak_complementary": ("peak_complementary",),
-    "disk_margin": ("disk_margin",),
-}
+UNDECIDED_FIGURES = CHECK_FIGURES
 
 
 def missing_figures(a: LoopAnalysis) -> frozenset[str]:
-    """Names of the figures of ``FIGURES`` that the analysis of ``a`` did not compute."""
-    out = set(a.tracking.unknown) & set(FIGURE_NAMES)
-    if a.coverage is not None:
-        for check in a.coverage.uncovered:
-            out.update(UNDECIDED_FIGURES.get(check, ()))
-    for check in a.undecided:
-        out.update(UNDECIDED_FIGURES.get(check, ()))
-    if "closed_loop_stability" in a.undecided or "step_settling" in a.undecided:
-        out.update(("overshoot_pct", "settling_time_s", "rise_time_s", "tail_time_s"))
-    return frozenset(out)
+    """Names of the figures of ``FIGURES`` that the analysis of ``a`` did not compute
+    (:func:`~.absence.figure_absence`)."""
+    return absent_figures(a, FIGURE_NAMES)
 
 
 def _difference(new: float, old: float) -> float:

@@ -125,14 +125,16 @@ class Tracking:
     """Error constants of the loop L (error e = r − H·y)."""
 
     system_type: int                               # net poles of L at s = 0
-    kp: float                                      # position constant; inf for type ≥ 1
-    kv: float                                      # velocity constant (1/s)
-    ka: float                                      # acceleration constant (1/s²)
-    step_error: float                              # 1/(1 + Kp)
-    ramp_error: float                              # 1/Kv (per unit ramp slope); inf type 0
-    parabola_error: float                          # 1/Ka
-    # Fields that could not be computed (a measured plant: the constant of the loop's own
-    # type needs the plant's DC gain); their values are 0.0 placeholders, shown as null.
+    kp: float | None                               # position constant; inf for type ≥ 1
+    kv: float | None                               # velocity constant (1/s)
+    ka: float | None                               # acceleration constant (1/s²)
+    step_error: float | None                       # 1/(1 + Kp)
+    ramp_error: float | None                       # 1/Kv (per unit ramp slope); inf type 0
+    parabola_error: float | None                   # 1/Ka
+    # Fields the data do not decide (a measured plant: the constant of the loop's own type
+    # needs the plant's DC gain): None, shown as null; why: analysis.absence.
+    # (A tracking part that failed keeps 0.0 placeholders, listed here too, because the
+    # step plots read ramp_error as a number whenever a step response exists.)
     unknown: tuple[str, ...] = ()
 
 

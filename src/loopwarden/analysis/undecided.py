@@ -24,6 +24,7 @@ from typing import Any, TypeVar
 import numpy as np
 
 from ..errors import AnalysisError, IllPosedLoopError
+from .parts import PARTS
 from .results import (
     Curves,
     InternalStability,
@@ -47,21 +48,9 @@ T = TypeVar("T")
 NUMERIC_ERRORS: tuple[type[BaseException], ...] = (
     AnalysisError, ArithmeticError, ValueError, RuntimeError, np.linalg.LinAlgError)
 
-#: Part of the analysis → the checks that cannot be decided without it.
-PART_CHECKS: dict[str, tuple[str, ...]] = {
-    "stability": ("closed_loop_stability", "step_overshoot", "step_settling", "step_rise",
-                  "slow_pair_tail", "integral_alternative"),
-    "internal_stability": ("internal_stability",),
-    "frequency_grid": ("gain_margin", "phase_margin", "delay_margin", "crossover_band",
-                       "peak_sensitivity", "peak_complementary", "disk_margin",
-                       "boost_band", "lag_phase_budget"),
-    "margins": ("gain_margin", "phase_margin", "delay_margin", "crossover_band",
-                "lag_phase_budget"),
-    "sensitivity": ("peak_sensitivity", "peak_complementary", "disk_margin"),
-    "tracking": ("system_type", "error_constant"),
-    "boost_band": ("boost_band", "lag_phase_budget", "integral_alternative"),
-    "sampling": ("sample_rate",),
-}
+#: Part of the analysis → the checks that cannot be decided without it (the ``decides``
+#: column of the table of parts).
+PART_CHECKS: dict[str, tuple[str, ...]] = {p.name: p.decides for p in PARTS if p.decides}
 #: Every check that reads the analysis (all but the design-wide ones).
 ALL_CHECKS: tuple[str, ...] = tuple(dict.fromkeys(
     c for checks in PART_CHECKS.values() for c in checks))
