@@ -40,6 +40,10 @@ class SampleLoops:
     poles: ComplexArray          # (N, b)
     gain: FloatArray             # (N,)
     delay_s: FloatArray          # (N,)
+    # First columns of conjugate pairs (columns j, j + 1 hold r and conj(r) in every row):
+    # evaluated together, one logarithm and one arctangent per pair.
+    zero_pairs: tuple[int, ...] = ()
+    pole_pairs: tuple[int, ...] = ()
 
     @property
     def size(self) -> int:
@@ -48,7 +52,7 @@ class SampleLoops:
     def rows(self, sl: slice | np.ndarray) -> SampleLoops:
         """The loops of the points ``sl`` only."""
         return SampleLoops(self.variant, self.fixed, self.zeros[sl], self.poles[sl],
-                           self.gain[sl], self.delay_s[sl])
+                           self.gain[sl], self.delay_s[sl], self.zero_pairs, self.pole_pairs)
 
 
 def swept_variants(design: Design) -> tuple[int, ...]:
@@ -103,7 +107,7 @@ def _zpk_block(table: Mapping[str, Any], index: Mapping[str, int], X: FloatArray
                     fixed += [complex(re[1], im[1]) * scale, complex(re[1], -im[1]) * scale]
                     continue
                 r, i = _value(re, X), _value(im, X)
-                varying += [(r + 1j * i) * scale, (r - 1j * i) * scale]
+                varying.append(((r + 1j * i) * scale, (r - 1j * i) * scale))
             else:
                 spec = _spec(item, index)
                 if spec[0] == "const":
@@ -177,10 +181,20 @@ def sample_loops(design: Design, variant_index: int, X: FloatArray) -> SampleLoo
     fixed = ctrl * Zpk(np.array(fz, dtype=complex), np.array(fp, dtype=complex), 1.0)
     n = X.shape[0]
 
-    def stack(cols: Sequence[Any]) -> ComplexArray:
-        if not cols:
-            return np.zeros((n, 0), dtype=complex)
-        return np.column_stack([np.asarray(c, dtype=complex) for c in cols])
+    def stack(cols: Sequence[Any]) -> tuple[ComplexArray, tuple[int, ...]]:
+        flat, pairs = [], []
+        for c in cols:
+            if isinstance(c, tuple):            # a conjugate pair from a zpk form
+                pairs.append(len(flat))
+                flat += list(c)
+            else:
+                flat.append(c)
+        if not flat:
+            return np.zeros((n, 0), dtype=complex), ()
+        return np.column_stack([np.asarray(c, dtype=complex) for c in flat]), tuple(pairs)
 
-    return SampleLoops(design.variants[variant_index].name, fixed, stack(vz), stack(vp),
-                       np.asarray(gain, dtype=float), np.asarray(delay, dtype=float))
+    zeros, zero_pairs = stack(vz)
+    poles, pole_pairs = stack(vp)
+    return SampleLoops(design.variants[variant_index].name, fixed, zeros, poles,
+                       np.asarray(gain, dtype=float), np.asarray(delay, dtype=float),
+                       zero_pairs, pole_pairs)

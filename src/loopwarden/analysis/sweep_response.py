@@ -33,7 +33,7 @@ import numpy as np
 
 from ..lti import FloatArray, Loop, Zpk
 from .frequency_grid import AXIS_RTOL, LIGHT_DAMPING, NEGLIGIBLE_GAIN, log_magnitude, phase
-from .margins import bracketed_roots, wrap_phase_margin_deg
+from .margins import wrap_phase_margin_deg
 from .sweep_models import SampleLoops
 
 __all__ = ["FIGURES", "SampleFigures", "evaluate_loops", "sample_grid"]
@@ -47,8 +47,12 @@ _DELAY_STEP_RAD = 0.25
 _MAX_GRID = 6000
 #: A grid step of 1 + L is accepted for the count when |ΔF| ≤ this · min|F| at its ends.
 _STEP_RTOL = 0.5
+#: A long step is cut into this many parts, at most this many times over.
+_SUBSTEPS = 16
+_MAX_DEPTH = 3
 _XTOL = 1e-10
-_PARABOLA_STEPS = 12
+_PARABOLA_STEPS = 8
+_MAX_FALSE_POSITION = 60
 
 
 @dataclass(frozen=True, eq=False)
@@ -142,8 +146,8 @@ def _cluster_points(fam: SampleLoops) -> list[FloatArray]:
         up, sig = up[light], np.maximum(sig[light], 1e-12)
         a = float(np.min(up.imag - 8.0 * sig))
         b = float(np.max(up.imag + 8.0 * sig))
-        step = float(np.min(sig)) / 10.0
-        count = min(int((b - a) / step) + 1, 2000)
+        step = float(np.min(sig)) / 4.0
+        count = min(int((b - a) / step) + 1, 600)
         out.append(np.linspace(max(a, 1e-300), b, count))
     return out
 
@@ -171,15 +175,35 @@ def _moving(fam: SampleLoops, rows: np.ndarray, w: FloatArray) -> tuple[FloatArr
     g = fam.gain[rows]
     lm = np.log(np.abs(g)) + np.zeros_like(w)
     ph = np.where(g < 0, -math.pi, 0.0) - w * fam.delay_s[rows]
-    for j in range(fam.zeros.shape[1]):
-        r = fam.zeros[rows, j]
-        lm = lm + _log_abs(w, r)
-        ph = ph + _angle(w, r)
-    for j in range(fam.poles.shape[1]):
-        r = fam.poles[rows, j]
-        lm = lm - _log_abs(w, r)
-        ph = ph - _angle(w, r)
+    for roots, pairs, sign in ((fam.zeros, fam.zero_pairs, 1.0),
+                               (fam.poles, fam.pole_pairs, -1.0)):
+        singles = sorted(set(range(roots.shape[1])) - set(pairs)
+                         - {j + 1 for j in pairs})
+        for j in pairs:
+            dl, da = _pair_terms(w, roots[rows, j])
+            lm = lm + sign * dl
+            ph = ph + sign * da
+        for j in singles:
+            r = roots[rows, j]
+            lm = lm + sign * _log_abs(w, r)
+            ph = ph + sign * _angle(w, r)
     return lm, ph
+
+
+def _pair_terms(w: FloatArray, r: np.ndarray) -> tuple[FloatArray, FloatArray]:
+    """``ln|·|`` and continuous angle of ``(jω − r)(jω − r̄)`` (r off the real axis).
+
+    The product is ``|r|² − ω² − 2·Re(r)·ω·j``: for Re r < 0 its angle runs from 0 to π
+    through atan2 without a jump; for Re r > 0 from 2π down to π (the branches of
+    :func:`_angle` summed over the pair).
+    """
+    a = r.real
+    m2 = a * a + r.imag * r.imag
+    re = m2 - w * w
+    im = -2.0 * a * w
+    with np.errstate(divide="ignore"):
+        lm = 0.5 * np.log(re * re + im * im)
+    return lm, np.arctan2(im, re) + np.where(a > 0, 2.0 * math.pi, 0.0)
 
 
 def _grid_values(fam: SampleLoops, w: FloatArray) -> tuple[FloatArray, FloatArray]:
@@ -192,6 +216,45 @@ def _point_values(fam: SampleLoops, rows: np.ndarray,
                   w: FloatArray) -> tuple[FloatArray, FloatArray]:
     lm, ph = _moving(fam, rows, w)
     return lm + log_magnitude(fam.fixed, w), ph + phase(fam.fixed, w)
+
+
+def _false_position(fn, a: FloatArray, b: FloatArray,  # type: ignore[no-untyped-def]
+                    xtol: float) -> FloatArray:
+    """Roots of ``fn(u, i)`` in every bracket ``[a_i, b_i]`` (a sign change in each).
+
+    Illinois false position from the first step (the grid brackets are short, so no
+    bisections are needed first, unlike :func:`.margins.bracketed_roots`); the iterate
+    never leaves its bracket.
+    """
+    a, b = a.astype(float).copy(), b.astype(float).copy()
+    idx_all = np.arange(a.size)
+    fa, fb = fn(a, idx_all), fn(b, idx_all)
+    root = np.where(fa == 0, a, b)
+    active = (fa != 0) & (fb != 0)
+    side = np.zeros(a.size, dtype=int)
+    for _ in range(_MAX_FALSE_POSITION):
+        idx = np.flatnonzero(active)
+        if idx.size == 0:
+            break
+        ai, bi, fai, fbi = a[idx], b[idx], fa[idx], fb[idx]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            c = (ai * fbi - bi * fai) / (fbi - fai)
+        lo, hi = np.minimum(ai, bi), np.maximum(ai, bi)
+        c = np.where(np.isfinite(c) & (c > lo) & (c < hi), c, 0.5 * (ai + bi))
+        fc = fn(c, idx)
+        step = np.abs(c - root[idx])
+        root[idx] = c
+        hit = fc == 0
+        same_b = (np.sign(fc) == np.sign(fbi)) & ~hit
+        same_a = ~same_b & ~hit
+        fa[idx[same_b & (side[idx] == -1)]] *= 0.5
+        fb[idx[same_a & (side[idx] == 1)]] *= 0.5
+        b[idx[same_b]], fb[idx[same_b]] = c[same_b], fc[same_b]
+        a[idx[same_a]], fa[idx[same_a]] = c[same_a], fc[same_a]
+        side[idx[same_b]], side[idx[same_a]] = -1, 1
+        tol = xtol * np.maximum(1.0, np.abs(c))
+        active[idx[hit | (np.abs(b[idx] - a[idx]) <= tol) | (step <= tol)]] = False
+    return root
 
 
 def _group_reduce(rows: np.ndarray, values: FloatArray, n: int, how: str) -> FloatArray:
@@ -216,7 +279,7 @@ def _margins(fam: SampleLoops, w: FloatArray, lm: FloatArray,
     def f_gain(x: FloatArray, i: np.ndarray) -> FloatArray:
         return _point_values(fam, r_g[i], np.exp(x))[0]
 
-    u_gc = bracketed_roots(f_gain, u[j_g], u[j_g + 1], _XTOL)
+    u_gc = _false_position(f_gain, u[j_g], u[j_g + 1], _XTOL)
     w_gc = np.exp(u_gc)
     ph_gc = _point_values(fam, r_g, w_gc)[1]
     pm = wrap_phase_margin_deg(np.degrees(ph_gc))
@@ -246,7 +309,7 @@ def _margins(fam: SampleLoops, w: FloatArray, lm: FloatArray,
         return (_point_values(fam, r_p[i], np.exp(x))[1] + math.pi) / (2.0 * math.pi) \
             - target[i]
 
-    u_pc = bracketed_roots(f_phase, u[j_p], u[j_p + 1], _XTOL)
+    u_pc = _false_position(f_phase, u[j_p], u[j_p + 1], _XTOL)
     mag_log = _point_values(fam, r_p, np.exp(u_pc))[0]
     rows_extra, mags_extra = _endpoint_crossings(fam)
     r_all = np.concatenate([r_p, rows_extra])
@@ -407,14 +470,56 @@ def _wrap(x: FloatArray) -> FloatArray:
     return x - 2.0 * math.pi * np.round(x / (2.0 * math.pi))
 
 
-def _stability(fam: SampleLoops, lv: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _steps_ok(F: np.ndarray) -> np.ndarray:
+    """Per step of the sequences ``F`` (last axis): short against the distance from 0."""
+    mag = np.abs(F)
+    return np.abs(np.diff(F, axis=-1)) <= _STEP_RTOL * np.minimum(mag[..., 1:], mag[..., :-1])
+
+
+def _refined_turn(fam: SampleLoops, rows: np.ndarray, ua: FloatArray, ub: FloatArray,
+                  fa: np.ndarray, fb: np.ndarray, depth: int = 0
+                  ) -> tuple[FloatArray, np.ndarray]:
+    """Change of ``arg(1 + L)`` over each step ``[ua, ub]`` (ln ω) of row ``rows``.
+
+    The step is cut into :data:`_SUBSTEPS` parts evaluated exactly; parts still too long
+    are cut again, up to :data:`_MAX_DEPTH` times.  Returns the turn per step and whether
+    every part was short enough (else the row's count is left to the certified method).
+    """
+    t = np.linspace(0.0, 1.0, _SUBSTEPS + 1)[1:-1]
+    u = ua[:, None] + (ub - ua)[:, None] * t[None, :]
+    lm, ph = _point_values(fam, np.repeat(rows, t.size).reshape(u.shape), np.exp(u))
+    seq = np.concatenate([fa[:, None], 1.0 + _complex(lm, ph), fb[:, None]], axis=1)
+    turn = _wrap(np.diff(np.angle(seq), axis=1))
+    good = _steps_ok(seq)
+    ok = np.ones(rows.size, dtype=bool)
+    if not good.all():
+        if depth >= _MAX_DEPTH:
+            ok = good.all(axis=1)
+        else:
+            r, j = np.nonzero(~good)
+            uu = np.concatenate([ua[:, None], u, ub[:, None]], axis=1)
+            sub, sub_ok = _refined_turn(fam, rows[r], uu[r, j], uu[r, j + 1], seq[r, j],
+                                        seq[r, j + 1], depth + 1)
+            turn[r, j] = sub
+            np.logical_and.at(ok, r, sub_ok)
+    return turn.sum(axis=1), ok
+
+
+def _stability(fam: SampleLoops, w: FloatArray, lv: np.ndarray) -> tuple[np.ndarray,
+                                                                          np.ndarray]:
     """(stable, decided by the certified per-loop count) per row."""
     F = 1.0 + lv
     mag = np.abs(F)
-    step = np.abs(np.diff(F, axis=1))
-    smooth = np.all(step <= _STEP_RTOL * np.minimum(mag[:, 1:], mag[:, :-1]), axis=1)
+    turn = _wrap(np.diff(np.angle(F), axis=1))
+    r, j = np.nonzero(~_steps_ok(F))
+    u = np.log(w)
+    smooth = np.ones(fam.size, dtype=bool)
+    if r.size:
+        sub, sub_ok = _refined_turn(fam, r, u[j], u[j + 1], F[r, j], F[r, j + 1])
+        turn[r, j] = sub
+        np.logical_and.at(smooth, r, sub_ok)
+    delta = turn.sum(axis=1)
     arg = np.angle(F)
-    delta = np.sum(_wrap(np.diff(arg, axis=1)), axis=1)
     m = _origin_counts(fam)
     c0 = _dc_coefficient(fam)
     # arg(1 + L) at ω = 0+.
@@ -459,5 +564,5 @@ def evaluate_loops(fam: SampleLoops, w: FloatArray) -> SampleFigures:
         lv = _complex(lm, ph)
         out = _margins(fam, w, lm, ph)
         out |= _peaks(fam, w, lv)
-        stable, certified = _stability(fam, lv)
+        stable, certified = _stability(fam, w, lv)
     return SampleFigures(**out, stable=stable, certified_count=certified)
