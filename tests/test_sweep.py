@@ -331,3 +331,39 @@ def test_sweep_figures_cover_the_json_contract() -> None:
     assert unc["seed"] == 0 and unc["samples"] == 256 and unc["corners"] == 4
     for rule, frac in unc["pass_fraction"].items():
         assert frac is None or 0.0 <= frac <= 1.0, rule
+
+
+def test_pdf_has_the_uncertainty_section(tmp_path: Path) -> None:
+    import pypdf
+
+    design = tmp_path / "d.toml"
+    design.write_text(BOX_D.replace("samples = 64", "samples = 64\nworst_case = false"))
+    out = tmp_path / "d.pdf"
+    assert main(["review", str(design), "--out", str(out), "--date", "2026-12-01",
+                 "-q"]) == 0
+    pages = [p.extract_text() for p in pypdf.PdfReader(out).pages]
+    section = next(t for t in pages if "Uncertain parameters" in t)
+    assert "random points passing" in section and "K = " in section
+    assert "against wr and K" in " ".join(pages) or "against K and wr" in " ".join(pages)
+
+
+def test_batch_on_dask_matches_the_local_batch(tmp_path: Path) -> None:
+    from dask import distributed
+
+    from loopwarden.batch import run_batch
+
+    src = tmp_path / "designs"
+    src.mkdir()
+    (src / "b.toml").write_text(BOX_B.replace("samples = 256", "samples = 64"))
+    (src / "plain.toml").write_text(BOX_B.split("[parameters]")[0]
+                                    + BOX_B.split("[plant]")[1].join(["[plant]", ""])
+                                    .replace('"K"', "1600.0").replace('"wr"', "40.0"))
+    local = run_batch(sorted(src.glob("*.toml")), tmp_path / "local", date="2026-12-01",
+                      jobs=1)
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False,
+                                  dashboard_address=None) as cluster:
+        remote = run_batch(sorted(src.glob("*.toml")), tmp_path / "dask", date="2026-12-01",
+                           scheduler=cluster.scheduler_address)
+    assert [o.verdict for o in local.outcomes] == [o.verdict for o in remote.outcomes]
+    for name in ("b.json", "plain.json", "summary.csv"):
+        assert (tmp_path / "local" / name).read_bytes() == (tmp_path / "dask" / name).read_bytes()

@@ -441,12 +441,10 @@ def _on_dask(tasks: list[tuple[int, str, str]], scheduler: str, args: tuple[Any,
     from .cluster import connect
 
     with connect(scheduler) as client:
-        from dask.distributed import as_completed
-
         futures = [client.submit(review_chunk, chunk, *args, pure=False)
                    for chunk in _chunks(tasks, max(1, len(client.nthreads()) or 1))]
         outcomes: list[DesignOutcome] = []
-        for fut in as_completed(futures):
+        for fut in futures:                 # in order: the outcomes are sorted anyway
             for outcome in fut.result():
                 outcomes.append(outcome)
                 on_done(outcome)

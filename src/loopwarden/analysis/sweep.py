@@ -93,6 +93,9 @@ class SweepResult:
     stable: np.ndarray                     # every swept variant stable, per point
     worst: Mapping[str, WorstPoint | None]
     settling_time_s: Mapping[int, float]   # point row → worst settling over the variants
+    # |Spearman rank correlation| of each parameter with each figure over the stable
+    # random points (0 where undefined): which parameters move a figure most.
+    influence: Mapping[str, tuple[float, ...]]
 
     @property
     def samples(self) -> int:
@@ -273,6 +276,23 @@ def _settling(design: Design, indices: Sequence[int], point: Sequence[float],
     return worst
 
 
+def _influence(X: FloatArray, values: FloatArray) -> tuple[float, ...]:
+    """|Spearman rank correlation| of each column of ``X`` with ``values`` (finite only)."""
+    from scipy.stats import rankdata
+
+    keep = np.isfinite(values)
+    if keep.sum() < 3:
+        return tuple(0.0 for _ in range(X.shape[1]))
+    rv = rankdata(values[keep])
+    out = []
+    for j in range(X.shape[1]):
+        rx = rankdata(X[keep, j])
+        sx, sv = np.std(rx), np.std(rv)
+        out.append(0.0 if sx == 0 or sv == 0 else
+                   float(abs(np.mean((rx - rx.mean()) * (rv - rv.mean())) / (sx * sv))))
+    return tuple(out)
+
+
 # --------------------------------------------------------------------------- entry point
 def run_sweep(design: Design, settings: SweepSettings | None = None, *,
               settling_band: float = 0.02, executor: Executor | None = None) -> SweepResult:
@@ -330,7 +350,10 @@ def run_sweep(design: Design, settings: SweepSettings | None = None, *,
             worst_settle = WorstPoint(figure="settling_time_s", value=got[0], point=key,
                                       variant=got[1], found_by="candidates")
     worst["settling_time_s"] = worst_settle
-    return SweepResult(names=space.names, settings=settings, points=points,
+    rows = np.arange(points.shape[0]) >= corners.shape[0]
+    influence = {name: _influence(points[rows & stable], figs[name][rows & stable])
+                 for name in FIGURES}
+    return SweepResult(influence=influence, names=space.names, settings=settings, points=points,
                        corners=int(corners.shape[0]), variants=names,
                        per_variant=dict(zip(names, per, strict=True)), figures=figs,
                        figure_variant=which,
