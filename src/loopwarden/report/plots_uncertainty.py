@@ -18,7 +18,7 @@ from collections.abc import Mapping
 import numpy as np
 
 from ..analysis.sweep import LARGER_IS_WORSE, SweepResult
-from .plots import C_FAIL, C_MAIN, C_MARK, C_SECOND, FULL_WIDTH_IN, Plot, _figure, _pixels, _RC
+from .plots import _RC, C_FAIL, C_MAIN, C_MARK, C_SECOND, FULL_WIDTH_IN, Plot, _figure, _pixels
 
 __all__ = ["FIGURE_LABELS", "histogram_figure", "influence_figure"]
 
