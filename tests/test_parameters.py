@@ -144,3 +144,56 @@ def test_bad_parameters(text: str, where: str, fragment: str) -> None:
     assert err.where == where, str(err)
     assert fragment in str(err)
     assert err.exit_code == 2
+
+
+def test_distributions_map_the_unit_interval() -> None:
+    from scipy.stats import truncnorm
+
+    from loopwarden.design.parameters import Parameter
+
+    u = np.array([0.0, 0.1, 0.5, 0.9, 1.0])
+    uni = Parameter(name="a", nominal=1.0, min=0.0, max=4.0)
+    np.testing.assert_allclose(uni.from_unit(u), 4.0 * u)
+    # [derived] log-uniform: ln x uniform, so the median is the geometric mean, the ends
+    # are the ends; a negative range keeps the map increasing.
+    log = Parameter(name="b", nominal=10.0, min=1.0, max=100.0, distribution="log-uniform")
+    np.testing.assert_allclose(log.from_unit(u), 10.0 ** (2.0 * u))
+    neg = Parameter(name="c", nominal=-10.0, min=-100.0, max=-1.0,
+                    distribution="log-uniform")
+    assert np.all(np.diff(neg.from_unit(u)) > 0) and neg.from_unit(np.array([0.5]))[0] == \
+        pytest.approx(-10.0)
+    # [reference library] scipy.stats.truncnorm: the truncated normal's quantiles.
+    nor = Parameter(name="d", nominal=40.0, min=34.0, max=46.0, distribution="normal",
+                    sigma=2.0)
+    ref = truncnorm.ppf(u, -3.0, 3.0, loc=40.0, scale=2.0)
+    np.testing.assert_allclose(nor.from_unit(u), ref)
+    assert nor.from_unit(np.array([0.5]))[0] == pytest.approx(40.0)
+
+
+def test_corners_all_and_the_stated_subset() -> None:
+    from loopwarden.analysis.sweep import corner_points
+
+    c = corner_points(np.zeros(3), np.ones(3), 0)
+    assert sorted(map(tuple, c)) == sorted({(a, b, d) for a in (0, 1) for b in (0, 1)
+                                            for d in (0, 1)})
+    big = corner_points(np.zeros(12), np.ones(12), 7)
+    assert big.shape == (1024, 12) and set(np.unique(big)) == {0.0, 1.0}
+    assert big[0].sum() == 0 and big[1].sum() == 12
+    assert all(big[2 + i].sum() == 1 and big[2 + i][i] == 1 for i in range(12))
+    np.testing.assert_array_equal(big, corner_points(np.zeros(12), np.ones(12), 7))
+
+
+def test_sample_designs_have_no_uncertainty() -> None:
+    import json
+    from pathlib import Path
+
+    from loopwarden.design.loader import load_design
+    from loopwarden.report import renderer
+    from loopwarden.review_run import run_review
+
+    path = Path(__file__).parents[1] / "sample_designs" / "tank_level.toml"
+    doc = json.loads(renderer("json").render(run_review(load_design(path),
+                                                        today="2026-12-01")))
+    assert doc["uncertainty"] is None
+    assert not any(f["variant"] and f["variant"].endswith("(worst case)")
+                   for f in doc["findings"])

@@ -41,7 +41,7 @@ __all__ = ["FIGURES", "SampleFigures", "evaluate_loops", "sample_grid"]
 #: The figures computed for every point (names as in the JSON ``uncertainty.worst``).
 FIGURES = ("phase_margin_deg", "gain_margin_db", "gain_margin_lower_db", "delay_margin_s",
            "peak_sensitivity", "peak_complementary", "disk_margin")
-POINTS_PER_DECADE = 40
+POINTS_PER_DECADE = 30
 #: Uniform spacing of a delay's phase on the grid, rad (ω·T step).
 _DELAY_STEP_RAD = 0.25
 _MAX_GRID = 6000
@@ -90,7 +90,7 @@ def sample_grid(families: list[SampleLoops],
                 points_per_decade: int = POINTS_PER_DECADE) -> FloatArray:
     """One grid (rad/s, ascending) for every loop of every family.
 
-    Log-spaced from two decades below the slowest nonzero root (or asymptotic crossover)
+    Log-spaced from 30 times below the slowest nonzero root (or asymptotic crossover)
     to where every loop's ``|L|`` has fallen below 1e−3 beyond all its roots; dense
     clusters over the range swept by each lightly damped root; uniform points with
     ``Δω·T = 0.25`` for the longest delay up to the highest gain crossover's region.
@@ -112,7 +112,7 @@ def sample_grid(families: list[SampleLoops],
             loud = max(loud, highs[-1], 2.0 * float(mags.max()) if mags.size else 0.0)
         t_max = max(t_max, float(np.max(fam.delay_s)) if fam.size else 0.0)
         clusters += _cluster_points(fam)
-    lo = min(lows, default=1.0) / 100.0
+    lo = min(lows, default=1.0) / 30.0
     hi = max(highs, default=1.0) * 100.0
     n = int(math.ceil(points_per_decade * math.log10(hi / lo))) + 1
     parts = [np.logspace(math.log10(lo), math.log10(hi), n), *clusters]
@@ -510,7 +510,8 @@ def _stability(fam: SampleLoops, w: FloatArray, lv: np.ndarray) -> tuple[np.ndar
     """(stable, decided by the certified per-loop count) per row."""
     F = 1.0 + lv
     mag = np.abs(F)
-    turn = _wrap(np.diff(np.angle(F), axis=1))
+    arg = np.angle(F)
+    turn = _wrap(np.diff(arg, axis=1))
     r, j = np.nonzero(~_steps_ok(F))
     u = np.log(w)
     smooth = np.ones(fam.size, dtype=bool)
@@ -519,7 +520,6 @@ def _stability(fam: SampleLoops, w: FloatArray, lv: np.ndarray) -> tuple[np.ndar
         turn[r, j] = sub
         np.logical_and.at(smooth, r, sub_ok)
     delta = turn.sum(axis=1)
-    arg = np.angle(F)
     m = _origin_counts(fam)
     c0 = _dc_coefficient(fam)
     # arg(1 + L) at ω = 0+.
