@@ -21,6 +21,7 @@ No timed unit tests: the figures live here.
 from __future__ import annotations
 
 import argparse
+import os
 import time
 from concurrent.futures import ThreadPoolExecutor
 
@@ -67,7 +68,16 @@ TARGET_S = 1.0
 TARGET_RATIO = 10.0
 
 
-def loopwarden_side(samples: int) -> tuple[float, object]:
+def _pool(kind: str):  # type: ignore[no-untyped-def]
+    if kind == "processes":
+        from concurrent.futures import ProcessPoolExecutor
+        from multiprocessing import get_context
+
+        return ProcessPoolExecutor(2, mp_context=get_context("spawn"))
+    return ThreadPoolExecutor(2)
+
+
+def loopwarden_side(samples: int, kind: str = "threads") -> tuple[float, object]:
     from loopwarden.analysis.sweep import _evaluate, sample_points
     from loopwarden.analysis.sweep_models import sample_loops
     from loopwarden.analysis.sweep_response import sample_grid
@@ -75,7 +85,7 @@ def loopwarden_side(samples: int) -> tuple[float, object]:
 
     d = parse_design(DESIGN, "bench.toml")
     X = sample_points(d, samples, 0)
-    with ThreadPoolExecutor(2) as pool:
+    with _pool(kind) as pool:
         fam = sample_loops(d, 0, X[:600])
         _evaluate(fam, sample_grid([fam]), pool)            # warm-up (imports, caches)
         t0 = time.perf_counter()
@@ -86,7 +96,8 @@ def loopwarden_side(samples: int) -> tuple[float, object]:
     print(f"loopwarden: {samples} samples of a {fam.fixed.order + fam.poles.shape[1]}th-order "
           f"loop, grid {w.size} points: {seconds:.3f} s "
           f"({1e6 * seconds / samples:.0f} µs per sample; {int(np.sum(fig.stable))} stable, "
-          f"{int(np.sum(fig.certified_count))} by the certified count)")
+          f"{int(np.sum(fig.certified_count))} by the certified count; 2 {kind}; load "
+          f"average {os.getloadavg()[0]:.1f})")
     return seconds, (d, X, fig)
 
 
@@ -118,8 +129,10 @@ def main() -> None:
     ap.add_argument("--control-samples", type=int, default=200,
                     help="python-control points timed (scaled to --samples)")
     ap.add_argument("--full", action="store_true", help="also time the whole run_sweep")
+    ap.add_argument("--workers", choices=("threads", "processes"), default="threads",
+                    help="how the two cores share the chunks (default threads)")
     args = ap.parse_args()
-    ours, (d, X, fig) = loopwarden_side(args.samples)
+    ours, (d, X, fig) = loopwarden_side(args.samples, args.workers)
     per = control_side(d, X, args.control_samples)
     theirs = per * args.samples
     print(f"python-control point by point: {1e3 * per:.2f} ms per sample, "

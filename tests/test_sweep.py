@@ -291,7 +291,7 @@ def _json_bytes(text: str, tmp_path: Path, name: str, *extra: str) -> bytes:
 
 
 def test_same_seed_same_bytes_here_in_processes_and_on_dask(tmp_path: Path) -> None:
-    text = BOX_B.replace("samples = 256", "samples = 1100")   # three chunks
+    text = BOX_B.replace("samples = 256", "samples = 600")   # three chunks
     local = _json_bytes(text, tmp_path, "local")
     d = parse_design(text, "design.toml")
     here = renderer("json").render(run_review(d, today="2026-12-01"))
@@ -301,7 +301,7 @@ def test_same_seed_same_bytes_here_in_processes_and_on_dask(tmp_path: Path) -> N
     with distributed.LocalCluster(n_workers=1, threads_per_worker=2, processes=False,
                                   dashboard_address=None) as cluster:
         on_dask = _json_bytes(text, tmp_path, "dask", "--scheduler", cluster.scheduler_address)
-    assert json.loads(local)["uncertainty"]["samples"] == 1100
+    assert json.loads(local)["uncertainty"]["samples"] == 600
     assert local == here == pooled == on_dask
 
 

@@ -48,7 +48,7 @@ LARGER_IS_WORSE = {"phase_margin_deg": False, "gain_margin_db": False,
                    "gain_margin_lower_db": True, "delay_margin_s": False,
                    "peak_sensitivity": True, "peak_complementary": True,
                    "disk_margin": False, "settling_time_s": True}
-CHUNK_ROWS = 512
+CHUNK_ROWS = 256
 MAX_CORNER_DIMENSION = 10
 CORNER_SUBSET = 1024
 STARTS = 2

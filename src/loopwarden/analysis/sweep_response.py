@@ -51,7 +51,7 @@ _STEP_RTOL = 0.5
 _SUBSTEPS = 16
 _MAX_DEPTH = 3
 _XTOL = 1e-10
-_PARABOLA_STEPS = 8
+_PARABOLA_STEPS = 6
 _MAX_FALSE_POSITION = 60
 
 
@@ -368,10 +368,21 @@ def _complex(lm: FloatArray, ph: FloatArray) -> np.ndarray:
     return np.exp(lm + 1j * ph)
 
 
-def _peaks(fam: SampleLoops, w: FloatArray, lv: np.ndarray) -> dict[str, FloatArray]:
+def _grid_peak_functions(mag: FloatArray, re: FloatArray,
+                         im: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray]:
+    """:func:`_peak_functions` from ``|L|`` and the real and imaginary parts of L (real
+    arithmetic only: cheaper than complex numbers on the whole grid)."""
+    im2 = im * im
+    with np.errstate(divide="ignore", invalid="ignore"):
+        inv = 1.0 / np.sqrt((1.0 + re) ** 2 + im2)
+        return inv, mag * inv, 0.5 * np.sqrt((1.0 - re) ** 2 + im2) * inv
+
+
+def _peaks(fam: SampleLoops, w: FloatArray, mag: FloatArray, re: FloatArray,
+           im: FloatArray) -> dict[str, FloatArray]:
     n = fam.size
     u = np.log(w)
-    values = _peak_functions(lv)
+    values = _grid_peak_functions(mag, re, im)
     ends = _peak_limits(fam)
     rows = np.arange(n)
     out = []
@@ -505,18 +516,22 @@ def _refined_turn(fam: SampleLoops, rows: np.ndarray, ua: FloatArray, ub: FloatA
     return turn.sum(axis=1), ok
 
 
-def _stability(fam: SampleLoops, w: FloatArray, lv: np.ndarray) -> tuple[np.ndarray,
-                                                                          np.ndarray]:
+def _stability(fam: SampleLoops, w: FloatArray, re: FloatArray,
+               im: FloatArray) -> tuple[np.ndarray, np.ndarray]:
     """(stable, decided by the certified per-loop count) per row."""
-    F = 1.0 + lv
-    mag = np.abs(F)
-    arg = np.angle(F)
+    fr = 1.0 + re
+    mag = np.sqrt(fr * fr + im * im)
+    arg = np.arctan2(im, fr)
     turn = _wrap(np.diff(arg, axis=1))
-    r, j = np.nonzero(~_steps_ok(F))
+    dr, di = np.diff(fr, axis=1), np.diff(im, axis=1)
+    step = np.sqrt(dr * dr + di * di)
+    r, j = np.nonzero(~(step <= _STEP_RTOL * np.minimum(mag[:, 1:], mag[:, :-1])))
     u = np.log(w)
     smooth = np.ones(fam.size, dtype=bool)
+    lv_end = re[:, -1] + 1j * im[:, -1]
     if r.size:
-        sub, sub_ok = _refined_turn(fam, r, u[j], u[j + 1], F[r, j], F[r, j + 1])
+        sub, sub_ok = _refined_turn(fam, r, u[j], u[j + 1], fr[r, j] + 1j * im[r, j],
+                                    fr[r, j + 1] + 1j * im[r, j + 1])
         turn[r, j] = sub
         np.logical_and.at(smooth, r, sub_ok)
     delta = turn.sum(axis=1)
@@ -529,11 +544,11 @@ def _stability(fam: SampleLoops, w: FloatArray, lv: np.ndarray) -> tuple[np.ndar
     rd = _relative_degree(fam)
     if rd > 0:
         arg_inf = np.zeros(fam.size)
-        ok &= np.abs(lv[:, -1]) < 0.5
+        ok &= np.abs(lv_end) < 0.5
     else:
         k = fam.fixed.gain * fam.gain
         arg_inf = np.where(1.0 + k < 0, math.pi, 0.0)
-        ok &= (fam.delay_s == 0) & (np.abs(1.0 + k) > 0.1) & (np.abs(lv[:, -1] - k) <
+        ok &= (fam.delay_s == 0) & (np.abs(1.0 + k) > 0.1) & (np.abs(lv_end - k) <
                                                               0.1 * np.abs(1.0 + k))
     delta = delta + _wrap(arg[:, 0] - arg0) + _wrap(arg_inf - arg[:, -1])
     z = _open_loop_rhp(fam) + np.maximum(m, 0) / 2.0 - delta / math.pi
@@ -561,8 +576,9 @@ def evaluate_loops(fam: SampleLoops, w: FloatArray) -> SampleFigures:
     """
     with np.errstate(over="ignore", under="ignore"):
         lm, ph = _grid_values(fam, w)
-        lv = _complex(lm, ph)
+        mag = np.exp(lm)
+        re, im = mag * np.cos(ph), mag * np.sin(ph)
         out = _margins(fam, w, lm, ph)
-        out |= _peaks(fam, w, lv)
-        stable, certified = _stability(fam, w, lv)
+        out |= _peaks(fam, w, mag, re, im)
+        stable, certified = _stability(fam, w, re, im)
     return SampleFigures(**out, stable=stable, certified_count=certified)
