@@ -367,3 +367,25 @@ def test_batch_on_dask_matches_the_local_batch(tmp_path: Path) -> None:
     assert [o.verdict for o in local.outcomes] == [o.verdict for o in remote.outcomes]
     for name in ("b.json", "plain.json", "summary.csv"):
         assert (tmp_path / "local" / name).read_bytes() == (tmp_path / "dask" / name).read_bytes()
+
+
+def test_delay_loop_stability_matches_the_first_crossing() -> None:
+    # Box A with the gain range widened into instability. L has no open-loop RHP pole and
+    # its phase falls monotonically through −180° (type 1, lead, delay), |L| falling too:
+    # the closed loop is stable exactly when |L| < 1 at the first phase crossover
+    # [derived: Nyquist criterion, P = 0], read here on a dense grid.
+    text = BOX_A.replace("max = 8.0", "max = 30.0").replace("samples = 256", "samples = 48")
+    d = parse_design(text, "wide.toml")
+    X = np.vstack([corner_points(d.parameters.lower, d.parameters.upper, 0),
+                   np.column_stack([np.linspace(2.0, 30.0, 29), np.linspace(0.15, 0.02, 29)])])
+    fam = sample_loops(d, 0, X)
+    fig = evaluate_loops(fam, sample_grid([fam]))
+    w = np.logspace(-2, 3, 200_000)
+    s = 1j * w
+    expected = []
+    for K, T in X:
+        L = 10.0 * K * (s + 1.0) / ((s + 10.0) * s * (s + 2.0)) * np.exp(-s * T)
+        ph = np.unwrap(np.angle(L))
+        expected.append(bool(np.abs(L[np.argmax(ph <= -math.pi)]) < 1.0))
+    assert fig.stable.tolist() == expected
+    assert 0 < sum(expected) < X.shape[0]

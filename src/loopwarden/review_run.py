@@ -130,6 +130,13 @@ def _uncertainty(design: Design, rs: RuleSet, limits: dict, min_pm: float | None
         raise DesignError("the parameters of a sampled design cannot be swept yet",
                           file=design.path, where="sweep" if design.sweep else "parameters",
                           hint="review the continuous design, or write the variants out")
+    from .analysis.sweep_models import swept_variants
+
+    if not swept_variants(design):
+        raise DesignError("no plant variant that the parameters move can be swept (a "
+                          "measured plant is never swept)", file=design.path,
+                          where="parameters", hint="name parameters in a model plant or "
+                                                   "the sensor")
     settle = band or design.requirements.settling_band or DEFAULT_SETTLING_BAND
     result = run_sweep(design, design.sweep or SweepSettings(), settling_band=settle,
                        executor=executor)
