@@ -87,6 +87,21 @@ type = "gain"
 k = 1.0
 """
 
+BOX_E = """
+[design]
+name = "box E: unstable plant pole, stable loop"
+[parameters]
+K = { nominal = 4.0, min = 3.0, max = 5.0 }
+a = { nominal = 1.0, min = 0.5, max = 1.5 }
+[sweep]
+samples = 128
+[plant]
+zpk = { zeros = [-1.0], poles = [0.0, "a", -50.0], gain = "K" }
+[[controller]]
+type = "gain"
+k = 50.0
+"""
+
 BOX_C = """
 [design]
 name = "box C: unstable pole"
@@ -119,6 +134,10 @@ def _poly_loop(box: str, K: np.ndarray, x: np.ndarray):  # type: ignore[no-untyp
         num = np.array([K[i] * np.array([1.0, 2.0, 1.0 + w * w]) for i, w in enumerate(x)])
         den = np.array([np.convolve([1.0, 50.0, 0.0], [1.0, 6.0, 9.0 + w * w]) for w in x])
         return num, den, np.zeros(K.size)
+    if box == "E":          # 50K(s+1)/(s(s − a)(s+50))
+        num = np.stack([50.0 * K, 50.0 * K], axis=1)
+        den = np.array([np.convolve([1.0, -a, 0.0], [1.0, 50.0]) for a in x])
+        return num, den, np.zeros(K.size)
     raise ValueError(box)
 
 
@@ -126,7 +145,7 @@ def _brute(box: str, K: np.ndarray, x: np.ndarray) -> dict[str, np.ndarray]:
     w = np.logspace(-3, 3.5, 40_000)
     num, den, delay = _poly_loop(box, K, x)
     s = 1j * w
-    pm, gm, ms = [], [], []
+    pm, gm, ms, gm_low = [], [], [], []
     for i in range(K.size):
         L = np.polyval(num[i], s) / np.polyval(den[i], s) * np.exp(-s * delay[i])
         mag, ph = np.abs(L), np.unwrap(np.angle(L))
@@ -140,18 +159,21 @@ def _brute(box: str, K: np.ndarray, x: np.ndarray) -> dict[str, np.ndarray]:
         pm.append(min(pms, key=abs) if pms else math.inf)
         g = (ph + math.pi) / (2 * math.pi)
         k = np.flatnonzero(np.floor(g[:-1]) != np.floor(g[1:]))
-        gms = []
+        gms, lows = [], []
         for j in k:
             target = max(np.floor(g[j]), np.floor(g[j + 1]))
             t = (target - g[j]) / (g[j + 1] - g[j])
             m = math.exp(np.log(mag[j]) + t * (np.log(mag[j + 1]) - np.log(mag[j])))
             if m <= 1.0:
                 gms.append(-20.0 * math.log10(m))
+            else:
+                lows.append(-20.0 * math.log10(m))
         del lu
         gm.append(min(gms) if gms else math.inf)
+        gm_low.append(max(lows) if lows else math.nan)
         ms.append(float(np.max(1.0 / np.abs(1.0 + L))))
     return {"phase_margin_deg": np.array(pm), "gain_margin_db": np.array(gm),
-            "peak_sensitivity": np.array(ms)}
+            "gain_margin_lower_db": np.array(gm_low), "peak_sensitivity": np.array(ms)}
 
 
 def _box_grid(design_text: str, n: int) -> tuple[np.ndarray, np.ndarray]:
@@ -234,6 +256,25 @@ def test_worst_case_inside_the_box_found_by_the_search() -> None:
     assert wp.value <= brute + 1e-6            # never better than a point of the grid
     assert 200.0 < wp.point[0] < 1500.0 and 8.0 <= wp.point[1] <= 12.0
     assert wp.found_by == "search"
+
+
+def test_unstable_plant_pole_worst_case_matches_brute_force() -> None:
+    # Box E: an unstable plant pole a in [0.5, 1.5], the closed loop stable over the whole
+    # box (Routh–Hurwitz below holds at every corner and is monotone in K and a). Its gain
+    # margin is a gain-reduction margin (|L| > 1 where the phase crosses −180°).
+    d = parse_design(BOX_E, "e.toml")
+    result = run_sweep(d)
+    assert bool(result.stable.all())
+    K, x = _box_grid(BOX_E, 21)
+    assert _routh_stable(K, x).all()
+    ref = _brute("E", K, x)
+    for name, worse_is_larger in (("phase_margin_deg", False),
+                                  ("gain_margin_lower_db", True),
+                                  ("peak_sensitivity", True)):
+        wp = result.worst[name]
+        brute = float(np.nanmax(ref[name]) if worse_is_larger else np.nanmin(ref[name]))
+        assert wp is not None and wp.value == pytest.approx(brute, rel=2e-3), name
+        assert 3.0 <= wp.point[0] <= 5.0 and 0.5 <= wp.point[1] <= 1.5
 
 
 def _routh_stable(K: np.ndarray, a: np.ndarray) -> np.ndarray:

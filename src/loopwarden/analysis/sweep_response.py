@@ -6,15 +6,17 @@ the fixed factor (controller and unmoved roots) once, the moving roots, gains an
 per row.  Then, per row, only where needed:
 
 * gain and phase crossings are located as sign changes on the grid and refined together
-  by the bracketing solver of :mod:`.margins` on the exact functions of that row;
-* the largest grid value of ``|S|``, ``|T|`` and ``|S − 1/2|`` is refined by a golden
-  section in ``ln ω`` between its grid neighbours; the limits at ω = 0 and ∞ are exact;
+  by bracketed false position (Illinois) on the exact functions of that row;
+* the largest grid value of ``|S|``, ``|T|`` and ``|S − 1/2|`` is refined by successive
+  parabolic interpolation in ``ln ω`` between its grid neighbours; the limits at ω = 0
+  and ∞ are exact;
 * closed-loop stability is counted by the argument principle on the grid
   (``Z = P + m/2 − Δ/π``, Δ the change of ``arg(1 + L)`` from ω = 0+ to ∞, m the net
   poles at the origin, P the open-loop right-half-plane poles).  The count is accepted only
   when every grid step of ``1 + L`` is short against its distance from 0 (as
-  :mod:`.stability` demands of its contour) and the ends are clear; any other row is
-  decided by :func:`.stability.closed_loop_stability` on that row's loop.
+  :mod:`.stability` demands of its contour; a long step is cut into parts evaluated
+  exactly, three times over at most) and the ends are clear; any other row is decided by
+  :func:`.stability.closed_loop_stability` on that row's loop.
 
 Conventions (as :func:`.margins.compute_margins` and :mod:`.sensitivity`): phase margin
 wrapped to (−180°, 180°], the crossing of smallest magnitude, sign kept; delay margin the
