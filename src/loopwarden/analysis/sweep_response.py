@@ -162,9 +162,13 @@ def _axis_frequencies(families: list[SampleLoops]) -> FloatArray:
 
 # --------------------------------------------------------------------------- evaluation
 def _angle(w: FloatArray, r: np.ndarray) -> FloatArray:
-    """Continuous angle of (jω − r), broadcast (branch as :func:`.frequency_grid.phase`)."""
-    dw = w - r.imag
-    return np.where(r.real > 0, math.pi - np.arctan2(dw, r.real), np.arctan2(dw, -r.real))
+    """Continuous angle of (jω − r), broadcast (branch as :func:`.frequency_grid.phase`).
+
+    Both branches are ``atan((ω − Im r)/|Re r|)``, taken from π for a right-half-plane
+    root: one arctangent per element.
+    """
+    t = np.arctan2(w - r.imag, np.abs(r.real))
+    return np.where(r.real > 0, math.pi - t, t)
 
 
 def _log_abs(w: FloatArray, r: np.ndarray) -> FloatArray:
