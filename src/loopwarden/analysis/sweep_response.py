@@ -34,7 +34,7 @@ from dataclasses import dataclass, fields
 import numpy as np
 
 from ..lti import FloatArray, Loop, Zpk
-from .frequency_grid import AXIS_RTOL, LIGHT_DAMPING, NEGLIGIBLE_GAIN, log_magnitude, phase
+from .frequency_grid import AXIS_RTOL, LIGHT_DAMPING, NEGLIGIBLE_GAIN
 from .margins import wrap_phase_margin_deg
 from .sweep_models import SampleLoops
 
@@ -206,22 +206,42 @@ def _pair_terms(w: FloatArray, r: np.ndarray) -> tuple[FloatArray, FloatArray]:
     a = r.real
     m2 = a * a + r.imag * r.imag
     re = m2 - w * w
-    im = -2.0 * a * w
+    # −2·Re(r)·ω, with +0 (not −0) on the axis so that the angle above |r| is +π.
+    im = 2.0 * np.abs(a) * np.where(a > 0, -1.0, 1.0) * w
     with np.errstate(divide="ignore"):
         lm = 0.5 * np.log(re * re + im * im)
     return lm, np.arctan2(im, re) + np.where(a > 0, 2.0 * math.pi, 0.0)
 
 
+def _fixed_values(z: Zpk, w: FloatArray) -> tuple[FloatArray, FloatArray]:
+    """``ln|G(jω)|`` and continuous phase of the fixed factor at ``w`` (any shape).
+
+    The same branches as :func:`.frequency_grid.phase`; a conjugate pair as one factor.
+    """
+    lm = np.full(w.shape, math.log(abs(z.gain)))
+    ph = np.full(w.shape, -math.pi if z.gain < 0 else 0.0)
+    for roots, sign in ((z.zeros, 1.0), (z.poles, -1.0)):
+        for r in roots[roots.imag > 0]:
+            dl, da = _pair_terms(w, np.asarray(r))
+            lm, ph = lm + sign * dl, ph + sign * da
+        for r in roots[roots.imag == 0]:
+            r = np.asarray(r)
+            lm, ph = lm + sign * _log_abs(w, r), ph + sign * _angle(w, r)
+    return lm, ph
+
+
 def _grid_values(fam: SampleLoops, w: FloatArray) -> tuple[FloatArray, FloatArray]:
     rows = np.arange(fam.size)[:, None]
     lm, ph = _moving(fam, rows, w[None, :])
-    return lm + log_magnitude(fam.fixed, w)[None, :], ph + phase(fam.fixed, w)[None, :]
+    flm, fph = _fixed_values(fam.fixed, w)
+    return lm + flm[None, :], ph + fph[None, :]
 
 
 def _point_values(fam: SampleLoops, rows: np.ndarray,
                   w: FloatArray) -> tuple[FloatArray, FloatArray]:
     lm, ph = _moving(fam, rows, w)
-    return lm + log_magnitude(fam.fixed, w), ph + phase(fam.fixed, w)
+    flm, fph = _fixed_values(fam.fixed, w)
+    return lm + flm, ph + fph
 
 
 def _false_position(fn, a: FloatArray, b: FloatArray,  # type: ignore[no-untyped-def]
