@@ -15,7 +15,10 @@ Printed, in one run (2 cores, figures taken in one run only compare with each ot
 * the ratio, against the targets: ≤ 1 s and ≥ 10x;
 * the whole ``run_sweep`` (corners, worst-case search, settling candidates) for scale.
 
-No timed unit tests: the figures live here.
+No timed unit tests: the figures live here.  Taken on 2026-12-02 on the shared 2-core
+machine (load average 2.3-3.6 from other work, so about one core free): 10 000 samples in
+0.9-1.6 s wall (CPU time equal to the wall time: the second core was busy), python-control
+2.2-3.3 ms per sample, ratio 11-14x; the whole run_sweep 2.2 s.
 """
 
 from __future__ import annotations
