@@ -435,10 +435,27 @@ def _in_parallel(tasks: list[tuple[int, str, str]], jobs: int, args: tuple[Any, 
     return outcomes
 
 
+def _on_dask(tasks: list[tuple[int, str, str]], scheduler: str, args: tuple[Any, ...],
+             on_done: Callable[[DesignOutcome], None]) -> list[DesignOutcome]:
+    """The chunks of designs reviewed by the workers of a Dask cluster (``--scheduler``)."""
+    from .cluster import connect
+
+    with connect(scheduler) as client:
+        futures = [client.submit(review_chunk, chunk, *args, pure=False)
+                   for chunk in _chunks(tasks, max(1, len(client.nthreads()) or 1))]
+        outcomes: list[DesignOutcome] = []
+        for fut in futures:                 # in order: the outcomes are sorted anyway
+            for outcome in fut.result():
+                outcomes.append(outcome)
+                on_done(outcome)
+    return outcomes
+
+
 def run_batch(inputs: Sequence[Path], out_dir: Path, *, ruleset: str | None = None,
               jobs: int | None = None, date: str | None = None,
               progress: IO[str] | None = None, tool_version: str | None = None,
-              timeout_s: float | None = DEFAULT_TIMEOUT_S) -> BatchResult:
+              timeout_s: float | None = DEFAULT_TIMEOUT_S,
+              scheduler: str | None = None) -> BatchResult:
     """Review every design of ``inputs`` into ``out_dir``; write the two summaries.
 
     Parameters
@@ -459,6 +476,9 @@ def run_batch(inputs: Sequence[Path], out_dir: Path, *, ruleset: str | None = No
     timeout_s : float, optional
         Wall time allowed per design (default :data:`DEFAULT_TIMEOUT_S`); a review that
         takes longer is stopped and gets a ``timeout`` row.  None or 0: no limit.
+    scheduler : str, optional
+        Address of a Dask scheduler: the designs are reviewed by its workers (``jobs`` is
+        then not used); the workers must see the same paths.
 
     Raises
     ------
@@ -491,7 +511,9 @@ def run_batch(inputs: Sequence[Path], out_dir: Path, *, ruleset: str | None = No
     # Starting a worker (a fresh interpreter importing numpy and scipy) costs about as
     # much as a few small reviews: give each worker at least a few designs.
     workers = min(jobs, math.ceil(len(tasks) / _PER_WORKER))
-    if workers == 1:
+    if scheduler is not None:
+        outcomes = _on_dask(tasks, scheduler, args, bar.update)
+    elif workers == 1:
         outcomes = []
         for task in tasks:
             outcomes.append(review_file(*task, *args))

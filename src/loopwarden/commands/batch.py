@@ -78,6 +78,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--timeout", metavar="SECONDS", type=_seconds, default=120.0,
                         help="stop a design's review after this many seconds and record it "
                              "as timed out (default 120; 0: no limit)")
+    parser.add_argument("--scheduler", metavar="ADDRESS",
+                        help="review the designs on the workers of this Dask scheduler "
+                             "(tcp://host:8786; needs loopwarden[dask]; the workers must "
+                             "see the same paths)")
     parser.add_argument("--quiet", "-q", action="store_true",
                         help="no progress and no summary; only the exit status tells")
 
@@ -90,7 +94,7 @@ def run(args: argparse.Namespace) -> int:
     try:
         result = run_batch(inputs, out, ruleset=args.rules, jobs=args.jobs, date=args.date,
                            progress=None if args.quiet else sys.stderr,
-                           timeout_s=args.timeout or None)
+                           timeout_s=args.timeout or None, scheduler=args.scheduler)
     except KeyboardInterrupt:
         # Reviews finished so far are in place; the summaries are not written.
         print(f"loopwarden: batch interrupted; no summary written in {out}", file=sys.stderr)

@@ -60,6 +60,15 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "(never an input of the run, a link, a pipe or a device)")
     parser.add_argument("--quiet", "-q", action="store_true",
                         help="print nothing; only the exit status tells")
+    parser.add_argument("--sweep", action="store_true",
+                        help="sweep the design's [parameters] even without a [sweep] table "
+                             "(2000 samples, seed 0, corners, worst-case search)")
+    parser.add_argument("--scheduler", metavar="ADDRESS",
+                        help="run the sweep's chunks on this Dask scheduler "
+                             "(tcp://host:8786; needs loopwarden[dask])")
+    parser.add_argument("--worst-variants", action="store_true",
+                        help="print the sweep's worst points as [[plant.variants]] tables "
+                             "to paste into a design file")
 
 
 def _embedded(review: object, evidence: bytes) -> dict[str, bytes]:
@@ -162,7 +171,22 @@ def run(args: argparse.Namespace) -> int:
         passphrase = read_passphrase(args)
         signer = signer_name(args.sign, passphrase)
 
-    review = run_review(design, ruleset, baseline=baseline, today=date)
+    if (args.sweep or args.scheduler or args.worst_variants) and design.parameters is None:
+        what = ("--sweep" if args.sweep else "--scheduler" if args.scheduler
+                else "--worst-variants")
+        raise UsageError(f"{what}: the design has no [parameters] to sweep",
+                         file=args.design, hint="name uncertain plant numbers in a "
+                                                "[parameters] table")
+    if args.scheduler:
+        from ..cluster import connect, executor
+
+        with connect(args.scheduler) as client:
+            review = run_review(design, ruleset, baseline=baseline, today=date,
+                                sweep=args.sweep or args.worst_variants,
+                                executor=executor(client))
+    else:
+        review = run_review(design, ruleset, baseline=baseline, today=date,
+                            sweep=args.sweep or args.worst_variants)
     signed_at = None
     if signer is not None:
         # The signing time goes into the evidence and the signature alike (to the second).
@@ -187,6 +211,11 @@ def run(args: argparse.Namespace) -> int:
         from ..report.escape import for_terminal
 
         sys.stdout.write(table)
+        if args.worst_variants:
+            from ..report.escape import for_terminal
+            from ..report.worst_variants import worst_variants_toml
+
+            sys.stdout.write(for_terminal(worst_variants_toml(review)))
         for path in files:
             print(for_terminal(f"wrote {path}"))
     return 0 if review.verdict == "pass" else 1

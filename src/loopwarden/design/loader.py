@@ -53,12 +53,19 @@ from .model import (
     Waiver,
     default_tracking_time,
 )
+from .parameters import (
+    ParameterSpace,
+    check_used,
+    read_parameters,
+    read_sweep,
+    substitute_tables,
+)
 from .sampling import read_controller_stage, read_sampling
 
-__all__ = ["load_design", "parse_design"]
+__all__ = ["design_at", "load_design", "parse_design"]
 
 _TOP = ("design", "plant", "controller", "sensor", "requirements", "limits", "waivers",
-        "sampling", "disturbance", "actuator")
+        "sampling", "disturbance", "actuator", "parameters", "sweep")
 _FRD_HINT = ("a measured frequency response (frd) is accepted for the plant and its "
              "variants only; give the sensor as a tf, zpk or ss model")
 #: Keys that describe what a measured response cannot show: declared poles.
@@ -158,6 +165,12 @@ def _parse(text: str, path: str, sha256: str) -> Design:
         raise head.error("frequency_unit", f"unknown frequency unit {written!r}",
                          'allowed values: "rad/s", "hz"')
     hz = unit == "hz"
+    space = None
+    if "parameters" in data:
+        space, data = _parameter_space(Table(data, "", path, hz), data)
+    elif "sweep" in data:
+        raise top.error("sweep", "a [sweep] table needs uncertain parameters",
+                        "add a [parameters] table and name its entries in the plant")
     top = Table(data, "", path, hz)
 
     sampling = read_sampling(_table(top, "sampling")) if "sampling" in data else None
@@ -183,6 +196,9 @@ def _parse(text: str, path: str, sha256: str) -> Design:
     _check_sizes(top, variants, controller)
     for variant in variants:
         _check_loop(path, variant, controller, sensor, sensor_delay, sampling, hz)
+    sweep = read_sweep(_table(top, "sweep")) if "sweep" in data else None
+    if space is not None:
+        _check_ranges(path, space, controller, sampling, hz)
 
     return Design(
         name=head.string("name"),
@@ -202,7 +218,92 @@ def _parse(text: str, path: str, sha256: str) -> Design:
         sampling=sampling,
         disturbance=disturbance,
         actuator=actuator,
+        parameters=space,
+        sweep=sweep,
     )
+
+
+# ---------------------------------------------------------------------- parameters
+def _parameter_space(top: Table, data: dict) -> tuple[ParameterSpace, dict]:
+    """Read ``[parameters]`` and return the data with the nominal values for the names."""
+    params = read_parameters(_table(top, "parameters"))
+    plant = data.get("plant")
+    sensor = data.get("sensor")
+    if not isinstance(plant, dict):
+        raise top.error("plant", "expected a table [plant]")
+    uses: dict[str, list[str]] = {}
+    nominal = {p.name: p.nominal for p in params}
+    plant_n, sensor_n = substitute_tables(plant, sensor if isinstance(sensor, dict) else None,
+                                          nominal, file=top.file, uses=uses)
+    check_used(params, uses, top.file)
+    out = dict(data)
+    out["plant"] = plant_n
+    if sensor_n is not None:
+        out["sensor"] = sensor_n
+    space = ParameterSpace(parameters=params, plant=plant,
+                           sensor=sensor if isinstance(sensor, dict) else None,
+                           uses=MappingProxyType({k: tuple(v) for k, v in uses.items()}))
+    return space, out
+
+
+def _blocks_at(space: ParameterSpace, values: dict[str, float], path: str,
+               hz: bool) -> tuple[tuple[PlantVariant, ...], Zpk | None, float]:
+    plant, sensor = substitute_tables(space.plant, space.sensor, values, file=path)
+    data: dict = {"plant": plant}
+    if sensor is not None:
+        data["sensor"] = sensor
+    top = Table(data, "", path, hz)
+    variants = _plant(_table(top, "plant"))
+    sensor_model, sensor_delay = _sensor(top) if sensor is not None else (None, 0.0)
+    return variants, sensor_model, sensor_delay
+
+
+#: Places where a parameter's range must not contain 0: the block would change form.
+_NO_ZERO = ((".zpk.gain", "the gain would vanish"),
+            (".tf.den[1]", "the leading denominator coefficient would vanish, making the "
+                           "block improper"))
+
+
+def _check_ranges(path: str, space: ParameterSpace, controller: tuple[Stage, ...],
+                  sampling: Sampling | None, hz: bool) -> None:
+    """Each parameter at its min and at its max (the others nominal) gives valid blocks.
+
+    A zpk gain or a leading tf denominator coefficient whose range holds 0 is refused: the
+    block would lose its gain or its degree inside the range.
+    """
+    for p in space.parameters:
+        for place in space.uses.get(p.name, ()):
+            for tail, why in _NO_ZERO:
+                if place.endswith(tail) and p.min <= 0.0 <= p.max:
+                    raise DesignError(f"the range {p.min:g} .. {p.max:g} contains 0, where "
+                                      f"{place} uses it: {why}", file=path,
+                                      where=f"parameters.{p.name}",
+                                      hint="keep the range on one side of 0")
+        for key, end in (("min", p.min), ("max", p.max)):
+            values = space.nominal | {p.name: end}
+            try:
+                variants, sensor, sensor_delay = _blocks_at(space, values, path, hz)
+                for variant in variants:
+                    _check_loop(path, variant, controller, sensor, sensor_delay, sampling, hz)
+            except DesignError as exc:
+                place = f"{exc.where}: " if exc.where else ""
+                raise DesignError(f"with {p.name} = {end:g}: {place}{exc.what}", file=path,
+                                  where=f"parameters.{p.name}.{key}", hint=exc.hint) from None
+
+
+def design_at(design: Design, values: dict[str, float]) -> Design:
+    """``design`` with its plant variants and sensor at the parameter ``values``.
+
+    ``values`` holds every parameter of ``design.parameters``; the result has the same
+    controller, requirements and settings, and ``parameters`` kept.
+    """
+    space = design.parameters
+    if space is None:
+        return design
+    variants, sensor, sensor_delay = _blocks_at(space, values, design.path,
+                                                design.frequency_unit == "hz")
+    return dataclasses.replace(design, variants=variants, sensor=sensor,
+                               sensor_delay_s=sensor_delay)
 
 
 def _check_sizes(top: Table, variants: tuple[PlantVariant, ...],

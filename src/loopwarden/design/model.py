@@ -11,6 +11,7 @@ from types import MappingProxyType
 from ..lti import Loop, Zpk
 from ..lti_discrete import DiscreteLoop
 from .frd import MeasuredPlant
+from .parameters import ParameterSpace, SweepSettings
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -171,6 +172,10 @@ class Design:
     sampling: Sampling | None = None            # None: a continuous-time controller
     disturbance: Disturbance | None = None      # None: no [disturbance] table
     actuator: Actuator | None = None            # None: no [actuator] table
+    # [parameters] / [sweep] (design/parameters.py): None without them; the variants and
+    # sensor above then hold the nominal values.
+    parameters: ParameterSpace | None = None
+    sweep: SweepSettings | None = None
 
     def loop(self, variant: PlantVariant) -> Loop | DiscreteLoop:
         """The feedback loop of this design around one plant variant.

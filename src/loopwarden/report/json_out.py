@@ -315,11 +315,55 @@ def to_dict(review: Review) -> dict[str, Any]:
         "counts": {s.value: review.count(s) for s in Status},
         "cautions": CAUTIONS,
         "baseline": None,
+        "uncertainty": uncertainty_dict(review),
     }
     if review.baseline is not None:
         out["baseline"] = {"design": _design(review.baseline.design),
                            "variants": [_variant(a, review.baseline.design)
                                         for a in review.baseline.analyses]}
+    return out
+
+
+# --------------------------------------------------------------------------- uncertainty
+def uncertainty_dict(review: Review) -> dict[str, Any] | None:
+    """``uncertainty``: the ``[parameters]`` sweep (None for a design without parameters).
+
+    ``parameters.<name>`` as read (file units); ``samples``/``corners`` evaluated and
+    ``seed`` (0 and None when no sweep ran); ``worst.<figure>`` = value, the point
+    (``parameters``), the plant variant and how it was found, or None when no stable point
+    has the figure; ``pass_fraction.<rule id>`` over the random sample (None where not
+    computed); ``unstable_samples`` / ``unstable_corners`` with an unstable closed loop on
+    any swept variant, ``unstable_example`` the first such point.
+    """
+    unc = review.uncertainty
+    if unc is None:
+        return None
+    params = {p.name: {"nominal": p.nominal, "min": p.min, "max": p.max,
+                       "distribution": p.distribution, "sigma": p.sigma}
+              for p in unc.parameters}
+    out: dict[str, Any] = {"parameters": params, "samples": 0, "corners": 0, "seed": None,
+                           "swept_variants": [], "worst": None, "pass_fraction": None,
+                           "unstable_samples": None, "unstable_corners": None,
+                           "unstable_example": None}
+    sw = unc.sweep
+    if sw is None:
+        return out
+    unstable = ~sw.stable
+    first = np.flatnonzero(unstable)
+    out.update({
+        "samples": sw.samples, "corners": sw.corners, "seed": sw.settings.seed,
+        "swept_variants": list(sw.variants),
+        "worst": {name: None if wp is None else {
+            "value": plain(float(wp.value)), "variant": wp.variant, "found_by": wp.found_by,
+            "parameters": sw.values(wp.point)} for name, wp in sw.worst.items()},
+        "pass_fraction": {k: plain(v) for k, v in unc.pass_fraction.items()},
+        "unstable_samples": int(np.sum(unstable[sw.random_rows])),
+        "unstable_corners": int(np.sum(unstable[:sw.corners])),
+        "unstable_example": None if first.size == 0 else {
+            "parameters": sw.values(sw.points[int(first[0])]),
+            "variants": [n for n in sw.variants
+                         if not sw.per_variant[n].stable[int(first[0])]]},
+    })
     return out
 
 

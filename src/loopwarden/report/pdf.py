@@ -116,6 +116,12 @@ def _layout(review: Review, embedded: Mapping[str, bytes]) -> bytes:
         story.append(PageBreak())
         story += evidence_section(review, analysis, st, unit, number=f"2.{i + 1}",
                                   plots=figures[i])
+    if review.uncertainty is not None:
+        from .pdf_uncertainty import uncertainty_section
+
+        story.append(PageBreak())
+        story += uncertainty_section(review, st, unit,
+                                     number=f"2.{len(review.analyses) + 1}")
     if any(a.integral_alternatives for a in review.analyses):
         story.append(PageBreak())
         story += alternative_section(review, st, unit)

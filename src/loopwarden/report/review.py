@@ -10,6 +10,7 @@ from ..analysis.regression import FigureChange
 from ..analysis.results import LoopAnalysis
 from ..design.model import Design
 from ..ruleset.model import Finding, RuleSet, Status, Verdict
+from ..ruleset.sweep_rules import Uncertainty
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -40,6 +41,7 @@ class Review:
     findings: tuple[Finding, ...]          # sorted once: by variant order, then rule order
     run: RunInfo
     baseline: Baseline | None = None
+    uncertainty: Uncertainty | None = None     # [parameters]: the sweep and its findings
 
     @property
     def verdict(self) -> Verdict:

@@ -1,0 +1,622 @@
+"""Margins, peaks and closed-loop stability of many loops at once (one row per point).
+
+One frequency grid serves the whole sample (:func:`sample_grid`); ``ln|L(jω)|`` and the
+continuous phase of ``L(jω)`` are evaluated for every point on it by numpy broadcasting:
+the fixed factor (controller and unmoved roots) once, the moving roots, gains and delays
+per row.  Then, per row, only where needed:
+
+* gain and phase crossings are located as sign changes on the grid and refined together
+  by bracketed false position (Illinois) on the exact functions of that row;
+* the largest grid value of ``|S|``, ``|T|`` and ``|S − 1/2|`` is refined by successive
+  parabolic interpolation in ``ln ω`` between its grid neighbours; the limits at ω = 0
+  and ∞ are exact;
+* closed-loop stability is counted by the argument principle on the grid
+  (``Z = P + m/2 − Δ/π``, Δ the change of ``arg(1 + L)`` from ω = 0+ to ∞, m the net
+  poles at the origin, P the open-loop right-half-plane poles).  The count is accepted only
+  when every grid step of ``1 + L`` is short against its distance from 0 (as
+  :mod:`.stability` demands of its contour; a long step is cut into parts evaluated
+  exactly, three times over at most) and the ends are clear; any other row is decided by
+  :func:`.stability.closed_loop_stability` on that row's loop.
+
+Conventions (as :func:`.margins.compute_margins` and :mod:`.sensitivity`): phase margin
+wrapped to (−180°, 180°], the crossing of smallest magnitude, sign kept; delay margin the
+smallest ``(PM mod 360°)/ω``; upper gain margin the smallest ``−20·log10|L|`` over phase
+crossings with ``|L| ≤ 1``; the lower one the largest over ``|L| > 1`` (NaN here when
+there is none).  Phase crossings are sought only where ``|L| ≥ 1e−3`` on the grid: a
+gain margin above 60 dB counts as infinite.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, fields
+
+import numpy as np
+
+from ..lti import FloatArray, Loop, Zpk
+from .frequency_grid import AXIS_RTOL, LIGHT_DAMPING, NEGLIGIBLE_GAIN
+from .margins import wrap_phase_margin_deg
+from .sweep_models import SampleLoops
+
+__all__ = ["FIGURES", "SampleFigures", "evaluate_loops", "sample_grid"]
+
+#: The figures computed for every point (names as in the JSON ``uncertainty.worst``).
+FIGURES = ("phase_margin_deg", "gain_margin_db", "gain_margin_lower_db", "delay_margin_s",
+           "peak_sensitivity", "peak_complementary", "disk_margin")
+POINTS_PER_DECADE = 30
+#: Uniform spacing of a delay's phase on the grid, rad (ω·T step).
+_DELAY_STEP_RAD = 0.25
+_MAX_GRID = 6000
+#: A grid step of 1 + L is accepted for the count when |ΔF| ≤ this · min|F| at its ends.
+_STEP_RTOL = 0.5
+#: A long step is cut into this many parts, at most this many times over.
+_SUBSTEPS = 16
+_MAX_DEPTH = 3
+_XTOL = 1e-10
+_PARABOLA_STEPS = 6
+_MAX_FALSE_POSITION = 60
+
+
+@dataclass(frozen=True, eq=False)
+class SampleFigures:
+    """Per-point figures (arrays of one length); NaN where a figure does not exist."""
+
+    phase_margin_deg: FloatArray
+    gain_margin_db: FloatArray
+    gain_margin_lower_db: FloatArray
+    delay_margin_s: FloatArray
+    peak_sensitivity: FloatArray
+    peak_complementary: FloatArray
+    disk_margin: FloatArray
+    stable: np.ndarray                 # bool: every closed-loop root in Re s < 0
+    certified_count: np.ndarray        # bool: decided by the certified per-loop count
+
+    @staticmethod
+    def concat(parts: list[SampleFigures]) -> SampleFigures:
+        return SampleFigures(**{f.name: np.concatenate([getattr(p, f.name) for p in parts])
+                                for f in fields(SampleFigures)})
+
+    def figure(self, name: str) -> FloatArray:
+        return np.asarray(getattr(self, name))
+
+
+# --------------------------------------------------------------------------- the grid
+def _nonzero_mags(loops: SampleLoops) -> FloatArray:
+    roots = np.concatenate([loops.zeros.ravel(), loops.poles.ravel(),
+                            loops.fixed.zeros, loops.fixed.poles])
+    mags = np.abs(roots)
+    return mags[mags > 0]
+
+
+def sample_grid(families: list[SampleLoops],
+                points_per_decade: int = POINTS_PER_DECADE) -> FloatArray:
+    """One grid (rad/s, ascending) for every loop of every family.
+
+    Log-spaced from 30 times below the slowest nonzero root (or asymptotic crossover)
+    to where every loop's ``|L|`` has fallen below 1e−3 beyond all its roots; dense
+    clusters over the range swept by each lightly damped root; uniform points with
+    ``Δω·T = 0.25`` for the longest delay up to the highest gain crossover's region.
+    """
+    lows, highs, clusters = [], [], []
+    loud = 0.0                      # beyond it every |L| < 1e−3 (asymptotically)
+    t_max = 0.0
+    for fam in families:
+        mags = _nonzero_mags(fam)
+        if mags.size:
+            lows.append(float(mags.min()))
+            highs.append(float(mags.max()))
+        rd = fam.fixed.relative_degree + fam.poles.shape[1] - fam.zeros.shape[1]
+        k = np.abs(fam.fixed.gain * fam.gain)
+        if rd > 0:
+            # |L| ≈ |k|·ω^(−rd) beyond the roots: where it reaches 1e−3, with room.
+            highs.append(float(np.max((k / NEGLIGIBLE_GAIN) ** (1.0 / rd))) * 2.0)
+            lows.append(float(np.min(k ** (1.0 / rd))))
+            loud = max(loud, highs[-1], 2.0 * float(mags.max()) if mags.size else 0.0)
+        t_max = max(t_max, float(np.max(fam.delay_s)) if fam.size else 0.0)
+        clusters += _cluster_points(fam)
+    lo = min(lows, default=1.0) / 30.0
+    hi = max(highs, default=1.0) * 100.0
+    n = int(math.ceil(points_per_decade * math.log10(hi / lo))) + 1
+    parts = [np.logspace(math.log10(lo), math.log10(hi), n), *clusters]
+    if t_max > 0:
+        step = _DELAY_STEP_RAD / t_max
+        end = min(loud or hi, hi, step * _MAX_GRID / 2)
+        parts.append(np.arange(1, int(end / step) + 1) * step)
+    w = np.unique(np.concatenate(parts))
+    w = w[(w >= lo) & (w <= hi)]
+    axis = _axis_frequencies(families)
+    return w[~np.isin(w, axis)] if axis.size else w
+
+
+def _cluster_points(fam: SampleLoops) -> list[FloatArray]:
+    out = []
+    fixed = np.concatenate([fam.fixed.zeros, fam.fixed.poles])
+    for r in np.unique(fixed[fixed.imag > 0]):
+        sigma = abs(r.real)
+        if AXIS_RTOL * abs(r) < sigma < LIGHT_DAMPING * abs(r):
+            out.append(r.imag + sigma * np.linspace(-8.0, 8.0, 161))
+    moving = np.concatenate([fam.zeros, fam.poles], axis=1)
+    for j in range(moving.shape[1]):
+        col = moving[:, j]
+        up = col[col.imag > 0]
+        if up.size == 0:
+            continue
+        sig = np.abs(up.real)
+        light = sig < LIGHT_DAMPING * np.abs(up)
+        if not light.any():
+            continue
+        up, sig = up[light], np.maximum(sig[light], 1e-12)
+        a = float(np.min(up.imag - 8.0 * sig))
+        b = float(np.max(up.imag + 8.0 * sig))
+        step = float(np.min(sig)) / 4.0
+        count = min(int((b - a) / step) + 1, 600)
+        out.append(np.linspace(max(a, 1e-300), b, count))
+    return out
+
+
+def _axis_frequencies(families: list[SampleLoops]) -> FloatArray:
+    roots = np.concatenate([np.concatenate([f.fixed.zeros, f.fixed.poles]) for f in families])
+    on = (np.abs(roots.real) <= AXIS_RTOL * np.abs(roots)) & (roots.imag > 0)
+    return np.unique(roots[on].imag)
+
+
+# --------------------------------------------------------------------------- evaluation
+def _angle(w: FloatArray, r: np.ndarray) -> FloatArray:
+    """Continuous angle of (jω − r), broadcast (branch as :func:`.frequency_grid.phase`).
+
+    Both branches are ``atan((ω − Im r)/|Re r|)``, taken from π for a right-half-plane
+    root: one arctangent per element.
+    """
+    t = np.arctan2(w - r.imag, np.abs(r.real))
+    return np.where(r.real > 0, math.pi - t, t)
+
+
+def _log_abs(w: FloatArray, r: np.ndarray) -> FloatArray:
+    with np.errstate(divide="ignore"):
+        return 0.5 * np.log(r.real ** 2 + (w - r.imag) ** 2)
+
+
+def _moving(fam: SampleLoops, rows: np.ndarray, w: FloatArray) -> tuple[FloatArray, FloatArray]:
+    """``ln|·|`` and phase of the moving part at ``w`` (shape broadcast with rows)."""
+    g = fam.gain[rows]
+    lm = np.log(np.abs(g)) + np.zeros_like(w)
+    ph = np.where(g < 0, -math.pi, 0.0) - w * fam.delay_s[rows]
+    for roots, pairs, sign in ((fam.zeros, fam.zero_pairs, 1.0),
+                               (fam.poles, fam.pole_pairs, -1.0)):
+        singles = sorted(set(range(roots.shape[1])) - set(pairs)
+                         - {j + 1 for j in pairs})
+        for j in pairs:
+            dl, da = _pair_terms(w, roots[rows, j])
+            lm = lm + sign * dl
+            ph = ph + sign * da
+        for j in singles:
+            r = roots[rows, j]
+            lm = lm + sign * _log_abs(w, r)
+            ph = ph + sign * _angle(w, r)
+    return lm, ph
+
+
+def _pair_terms(w: FloatArray, r: np.ndarray) -> tuple[FloatArray, FloatArray]:
+    """``ln|·|`` and continuous angle of ``(jω − r)(jω − r̄)`` (r off the real axis).
+
+    The product is ``|r|² − ω² − 2·Re(r)·ω·j``: for Re r < 0 its angle runs from 0 to π
+    through atan2 without a jump; for Re r > 0 from 2π down to π (the branches of
+    :func:`_angle` summed over the pair).
+    """
+    a = r.real
+    m2 = a * a + r.imag * r.imag
+    re = m2 - w * w
+    # −2·Re(r)·ω, with +0 (not −0) on the axis so that the angle above |r| is +π.
+    im = 2.0 * np.abs(a) * np.where(a > 0, -1.0, 1.0) * w
+    with np.errstate(divide="ignore"):
+        lm = 0.5 * np.log(re * re + im * im)
+    return lm, np.arctan2(im, re) + np.where(a > 0, 2.0 * math.pi, 0.0)
+
+
+def _fixed_values(z: Zpk, w: FloatArray) -> tuple[FloatArray, FloatArray]:
+    """``ln|G(jω)|`` and continuous phase of the fixed factor at ``w`` (any shape).
+
+    The same branches as :func:`.frequency_grid.phase`; a conjugate pair as one factor.
+    """
+    lm = np.full(w.shape, math.log(abs(z.gain)))
+    ph = np.full(w.shape, -math.pi if z.gain < 0 else 0.0)
+    for roots, sign in ((z.zeros, 1.0), (z.poles, -1.0)):
+        for r in roots[roots.imag > 0]:
+            dl, da = _pair_terms(w, np.asarray(r))
+            lm, ph = lm + sign * dl, ph + sign * da
+        for r in roots[roots.imag == 0]:
+            r = np.asarray(r)
+            lm, ph = lm + sign * _log_abs(w, r), ph + sign * _angle(w, r)
+    return lm, ph
+
+
+def _grid_values(fam: SampleLoops, w: FloatArray) -> tuple[FloatArray, FloatArray]:
+    rows = np.arange(fam.size)[:, None]
+    lm, ph = _moving(fam, rows, w[None, :])
+    flm, fph = _fixed_values(fam.fixed, w)
+    return lm + flm[None, :], ph + fph[None, :]
+
+
+def _point_values(fam: SampleLoops, rows: np.ndarray,
+                  w: FloatArray) -> tuple[FloatArray, FloatArray]:
+    lm, ph = _moving(fam, rows, w)
+    flm, fph = _fixed_values(fam.fixed, w)
+    return lm + flm, ph + fph
+
+
+def _false_position(fn, a: FloatArray, b: FloatArray,  # type: ignore[no-untyped-def]
+                    xtol: float) -> FloatArray:
+    """Roots of ``fn(u, i)`` in every bracket ``[a_i, b_i]`` (a sign change in each).
+
+    Illinois false position from the first step (the grid brackets are short, so no
+    bisections are needed first, unlike :func:`.margins.bracketed_roots`); the iterate
+    never leaves its bracket.
+    """
+    a, b = a.astype(float).copy(), b.astype(float).copy()
+    idx_all = np.arange(a.size)
+    fa, fb = fn(a, idx_all), fn(b, idx_all)
+    root = np.where(fa == 0, a, b)
+    active = (fa != 0) & (fb != 0)
+    side = np.zeros(a.size, dtype=int)
+    for _ in range(_MAX_FALSE_POSITION):
+        idx = np.flatnonzero(active)
+        if idx.size == 0:
+            break
+        ai, bi, fai, fbi = a[idx], b[idx], fa[idx], fb[idx]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            c = (ai * fbi - bi * fai) / (fbi - fai)
+        lo, hi = np.minimum(ai, bi), np.maximum(ai, bi)
+        c = np.where(np.isfinite(c) & (c > lo) & (c < hi), c, 0.5 * (ai + bi))
+        fc = fn(c, idx)
+        step = np.abs(c - root[idx])
+        root[idx] = c
+        hit = fc == 0
+        same_b = (np.sign(fc) == np.sign(fbi)) & ~hit
+        same_a = ~same_b & ~hit
+        fa[idx[same_b & (side[idx] == -1)]] *= 0.5
+        fb[idx[same_a & (side[idx] == 1)]] *= 0.5
+        b[idx[same_b]], fb[idx[same_b]] = c[same_b], fc[same_b]
+        a[idx[same_a]], fa[idx[same_a]] = c[same_a], fc[same_a]
+        side[idx[same_b]], side[idx[same_a]] = -1, 1
+        tol = xtol * np.maximum(1.0, np.abs(c))
+        active[idx[hit | (np.abs(b[idx] - a[idx]) <= tol) | (step <= tol)]] = False
+    return root
+
+
+def _group_reduce(rows: np.ndarray, values: FloatArray, n: int, how: str) -> FloatArray:
+    out = np.full(n, np.nan)
+    if rows.size == 0:
+        return out
+    order = np.lexsort((values, rows)) if how == "min" else np.lexsort((-values, rows))
+    r = rows[order]
+    first = np.r_[True, r[1:] != r[:-1]]
+    out[r[first]] = values[order][first]
+    return out
+
+
+def _margins(fam: SampleLoops, w: FloatArray, lm: FloatArray,
+             ph: FloatArray) -> dict[str, FloatArray]:
+    n = fam.size
+    u = np.log(w)
+    # Gain crossings: sign changes of ln|L|.
+    above = lm > 0
+    r_g, j_g = np.nonzero(above[:, :-1] != above[:, 1:])
+
+    def f_gain(x: FloatArray, i: np.ndarray) -> FloatArray:
+        return _point_values(fam, r_g[i], np.exp(x))[0]
+
+    u_gc = _false_position(f_gain, u[j_g], u[j_g + 1], _XTOL)
+    w_gc = np.exp(u_gc)
+    ph_gc = _point_values(fam, r_g, w_gc)[1]
+    pm = wrap_phase_margin_deg(np.degrees(ph_gc))
+    dm = np.radians(np.mod(pm, 360.0)) / w_gc
+    order = np.lexsort((np.abs(pm), r_g))
+    first = np.r_[True, r_g[order][1:] != r_g[order][:-1]] if order.size else order
+    pm_out = np.full(n, math.inf)
+    pm_out[r_g[order][first]] = pm[order][first]
+    dm_out = np.nan_to_num(_group_reduce(r_g, dm, n, "min"), nan=math.inf)
+
+    # Phase crossings through −π + 2πk, where |L| ≥ 1e−3 at an end of the step.
+    g = (ph + math.pi) / (2.0 * math.pi)
+    lo = np.minimum(g[:, :-1], g[:, 1:])
+    hi = np.maximum(g[:, :-1], g[:, 1:])
+    first_k = np.floor(lo) + 1.0
+    count = np.floor(hi) - first_k + 1.0
+    loud = np.maximum(lm[:, :-1], lm[:, 1:]) >= math.log(NEGLIGIBLE_GAIN)
+    count = np.where(loud, np.maximum(count, 0.0), 0.0).astype(int)
+    r_s, j_s = np.nonzero(count)
+    reps = count[r_s, j_s]
+    r_p = np.repeat(r_s, reps)
+    j_p = np.repeat(j_s, reps)
+    offs = np.arange(r_p.size) - np.repeat(np.cumsum(reps) - reps, reps)
+    target = first_k[r_p, j_p] + offs
+
+    def f_phase(x: FloatArray, i: np.ndarray) -> FloatArray:
+        return (_point_values(fam, r_p[i], np.exp(x))[1] + math.pi) / (2.0 * math.pi) \
+            - target[i]
+
+    u_pc = _false_position(f_phase, u[j_p], u[j_p + 1], _XTOL)
+    mag_log = _point_values(fam, r_p, np.exp(u_pc))[0]
+    rows_extra, mags_extra = _endpoint_crossings(fam)
+    r_all = np.concatenate([r_p, rows_extra])
+    ml_all = np.concatenate([mag_log, mags_extra])
+    gm_db = -20.0 * ml_all / math.log(10.0)
+    upper = ml_all <= 0.0
+    gm = np.nan_to_num(_group_reduce(r_all[upper], gm_db[upper], n, "min"), nan=math.inf)
+    gm_low = _group_reduce(r_all[~upper], gm_db[~upper], n, "max")
+    return {"phase_margin_deg": pm_out, "delay_margin_s": dm_out, "gain_margin_db": gm,
+            "gain_margin_lower_db": gm_low}
+
+
+def _origin_counts(fam: SampleLoops) -> np.ndarray:
+    """Net poles at s = 0 per row (poles minus zeros there)."""
+    fixed = int(np.sum(fam.fixed.poles == 0) - np.sum(fam.fixed.zeros == 0))
+    return fixed + np.sum(fam.poles == 0, axis=1) - np.sum(fam.zeros == 0, axis=1)
+
+
+def _dc_coefficient(fam: SampleLoops) -> FloatArray:
+    """``lim s^m L(s)`` as s → 0 per row (m the net origin poles), real."""
+    fz = fam.fixed.zeros[fam.fixed.zeros != 0]
+    fp = fam.fixed.poles[fam.fixed.poles != 0]
+    c = fam.fixed.gain * np.prod(-fz) / np.prod(-fp) * fam.gain
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z = np.where(fam.zeros == 0, -1.0, -fam.zeros)
+        p = np.where(fam.poles == 0, -1.0, -fam.poles)
+        return np.real(c * np.prod(z, axis=1) / np.prod(p, axis=1))
+
+
+def _relative_degree(fam: SampleLoops) -> int:
+    return fam.fixed.relative_degree + fam.poles.shape[1] - fam.zeros.shape[1]
+
+
+def _endpoint_crossings(fam: SampleLoops) -> tuple[np.ndarray, FloatArray]:
+    """Phase crossings at ω = 0 (type 0, L(0) < 0) and ω = ∞ (biproper): rows, ln|L|."""
+    m = _origin_counts(fam)
+    c0 = _dc_coefficient(fam)
+    rows = np.flatnonzero((m == 0) & (c0 < 0))
+    mags = np.log(np.abs(c0[rows]))
+    if _relative_degree(fam) == 0:
+        k = fam.fixed.gain * fam.gain
+        inf_rows = np.flatnonzero((fam.delay_s > 0) | (k < 0))
+        rows = np.concatenate([rows, inf_rows])
+        mags = np.concatenate([mags, np.log(np.abs(k[inf_rows]))])
+    return rows, mags
+
+
+# --------------------------------------------------------------------------- peaks
+def _peak_functions(lv: np.ndarray) -> tuple[FloatArray, FloatArray, FloatArray]:
+    with np.errstate(divide="ignore", invalid="ignore"):
+        inv = 1.0 / np.abs(1.0 + lv)
+        return inv, np.abs(lv) * inv, 0.5 * np.abs(1.0 - lv) * inv
+
+
+def _complex(lm: FloatArray, ph: FloatArray) -> np.ndarray:
+    return np.exp(lm + 1j * ph)
+
+
+def _grid_peak_functions(mag: FloatArray, re: FloatArray,
+                         im: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray]:
+    """:func:`_peak_functions` from ``|L|`` and the real and imaginary parts of L (real
+    arithmetic only: cheaper than complex numbers on the whole grid)."""
+    im2 = im * im
+    with np.errstate(divide="ignore", invalid="ignore"):
+        inv = 1.0 / np.sqrt((1.0 + re) ** 2 + im2)
+        return inv, mag * inv, 0.5 * np.sqrt((1.0 - re) ** 2 + im2) * inv
+
+
+def _peaks(fam: SampleLoops, w: FloatArray, mag: FloatArray, re: FloatArray,
+           im: FloatArray) -> dict[str, FloatArray]:
+    """Ms, Mt and the disk margin per row: the three peaks refined in one search (their
+    brackets stacked, so each step evaluates L once for all of them)."""
+    n = fam.size
+    u = np.log(w)
+    values = _grid_peak_functions(mag, re, im)
+    ends = _peak_limits(fam)
+    rows = np.arange(n)
+    js = [np.clip(np.argmax(vals, axis=1), 1, w.size - 2) for vals in values]
+    stacked_rows = np.tile(rows, 3)
+    which = np.repeat(np.arange(3), n)
+
+    def fn(x: FloatArray) -> FloatArray:
+        lm, ph = _point_values(fam, stacked_rows, np.exp(x))
+        parts = _peak_functions(_complex(lm, ph))
+        return np.choose(which, parts)
+
+    def around(offset: int) -> tuple[FloatArray, FloatArray]:
+        return (np.concatenate([u[j + offset] for j in js]),
+                np.concatenate([vals[rows, j + offset] for vals, j in zip(values, js,
+                                                                          strict=True)]))
+
+    (ua, fa), (um, fm), (ub, fb) = around(-1), around(0), around(1)
+    best = _parabolic_max(fn, ua, um, ub, fa, fm, fb).reshape(3, n)
+    out = [np.maximum(np.max(vals, axis=1), np.maximum(best[k], ends[k]))
+           for k, vals in enumerate(values)]
+    ms, mt, d = out
+    with np.errstate(divide="ignore"):
+        return {"peak_sensitivity": ms, "peak_complementary": mt, "disk_margin": 1.0 / d}
+
+
+def _peak_limits(fam: SampleLoops) -> tuple[FloatArray, FloatArray, FloatArray]:
+    """``(|S|, |T|, |S − 1/2|)`` suprema at ω = 0 and ω = ∞, per row (max of the two)."""
+    m = _origin_counts(fam)
+    c0 = _dc_coefficient(fam)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        at0 = _peak_functions(c0.astype(complex))
+    zero = [np.where(m > 0, big, np.where(m < 0, small, val))
+            for big, small, val in zip((0.0, 1.0, 0.5), (1.0, 0.0, 0.5), at0, strict=True)]
+    rd = _relative_degree(fam)
+    if rd > 0:
+        high = (np.ones(fam.size), np.zeros(fam.size), np.full(fam.size, 0.5))
+    else:
+        k = fam.fixed.gain * fam.gain
+        plain = _peak_functions(k.astype(complex))
+        ka = np.abs(k)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            turning = (1.0 / (1.0 - ka), ka / (1.0 - ka), (1.0 + ka) / (2.0 * (1.0 - ka)))
+        high = tuple(np.where(fam.delay_s > 0, np.where(ka < 1, t, math.inf), p)
+                     for t, p in zip(turning, plain, strict=True))
+    return tuple(np.maximum(z, h) for z, h in zip(zero, high, strict=True))  # type: ignore
+
+
+def _parabolic_max(fn, a: FloatArray, m: FloatArray, b: FloatArray,  # type: ignore
+                   fa: FloatArray, fm: FloatArray, fb: FloatArray) -> FloatArray:
+    """Largest value of ``fn`` near the grid maximum ``m`` between ``a`` and ``b``.
+
+    Successive parabolic interpolation kept inside the bracket (a golden step where the
+    parabola's vertex falls outside or too close to a point): a smooth peak converges in a
+    few steps; every value evaluated is a true value of ``fn``, so the result is never
+    above the peak.
+    """
+    g = 0.5 * (3.0 - math.sqrt(5.0))
+    a, m, b, fa, fm, fb = (np.array(x, dtype=float) for x in (a, m, b, fa, fm, fb))
+    best = fm.copy()
+    for _ in range(_PARABOLA_STEPS):
+        d1, d2 = m - a, m - b
+        num = d1 ** 2 * (fm - fb) - d2 ** 2 * (fm - fa)
+        den = d1 * (fm - fb) - d2 * (fm - fa)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            x = m - 0.5 * num / den
+        tol = 1e-10 * np.maximum(1.0, np.abs(m))
+        golden = np.where(b - m > m - a, m + g * (b - m), m - g * (m - a))
+        bad = ~np.isfinite(x) | (x <= a + tol) | (x >= b - tol) | (np.abs(x - m) < tol)
+        x = np.where(bad, golden, x)
+        fx = fn(x)
+        best = np.maximum(best, np.nan_to_num(fx, nan=-math.inf))
+        better = fx >= fm
+        right = x > m
+        # New bracket: around the better of (x, m).
+        na = np.where(better, np.where(right, m, a), np.where(right, a, x))
+        nb = np.where(better, np.where(right, b, m), np.where(right, x, b))
+        nfa = np.where(better, np.where(right, fm, fa), np.where(right, fa, fx))
+        nfb = np.where(better, np.where(right, fb, fm), np.where(right, fx, fb))
+        nm = np.where(better, x, m)
+        nfm = np.where(better, fx, fm)
+        a, b, fa, fb, m, fm = na, nb, nfa, nfb, nm, nfm
+        if np.all(b - a < 1e-9 * np.maximum(1.0, np.abs(m))):
+            break
+    return best
+
+
+# --------------------------------------------------------------------------- stability
+def _open_loop_rhp(fam: SampleLoops) -> np.ndarray:
+    fixed = int(np.sum(fam.fixed.poles.real > 0))
+    return fixed + np.sum(fam.poles.real > 0, axis=1)
+
+
+def _axis_poles(fam: SampleLoops) -> np.ndarray:
+    """Rows with an open-loop pole on the imaginary axis away from 0 (count not taken)."""
+    p = fam.poles
+    on = (np.abs(p.real) <= AXIS_RTOL * np.abs(p)) & (p != 0)
+    fixed = fam.fixed.poles
+    fixed_on = bool(np.any((np.abs(fixed.real) <= AXIS_RTOL * np.abs(fixed)) & (fixed != 0)))
+    return on.any(axis=1) | fixed_on
+
+
+def _wrap(x: FloatArray) -> FloatArray:
+    return x - 2.0 * math.pi * np.round(x / (2.0 * math.pi))
+
+
+def _steps_ok(F: np.ndarray) -> np.ndarray:
+    """Per step of the sequences ``F`` (last axis): short against the distance from 0."""
+    mag = np.abs(F)
+    return np.abs(np.diff(F, axis=-1)) <= _STEP_RTOL * np.minimum(mag[..., 1:], mag[..., :-1])
+
+
+def _refined_turn(fam: SampleLoops, rows: np.ndarray, ua: FloatArray, ub: FloatArray,
+                  fa: np.ndarray, fb: np.ndarray, depth: int = 0
+                  ) -> tuple[FloatArray, np.ndarray]:
+    """Change of ``arg(1 + L)`` over each step ``[ua, ub]`` (ln ω) of row ``rows``.
+
+    The step is cut into :data:`_SUBSTEPS` parts evaluated exactly; parts still too long
+    are cut again, up to :data:`_MAX_DEPTH` times.  Returns the turn per step and whether
+    every part was short enough (else the row's count is left to the certified method).
+    """
+    t = np.linspace(0.0, 1.0, _SUBSTEPS + 1)[1:-1]
+    u = ua[:, None] + (ub - ua)[:, None] * t[None, :]
+    lm, ph = _point_values(fam, np.repeat(rows, t.size).reshape(u.shape), np.exp(u))
+    seq = np.concatenate([fa[:, None], 1.0 + _complex(lm, ph), fb[:, None]], axis=1)
+    turn = _wrap(np.diff(np.angle(seq), axis=1))
+    good = _steps_ok(seq)
+    ok = np.ones(rows.size, dtype=bool)
+    if not good.all():
+        if depth >= _MAX_DEPTH:
+            ok = good.all(axis=1)
+        else:
+            r, j = np.nonzero(~good)
+            uu = np.concatenate([ua[:, None], u, ub[:, None]], axis=1)
+            sub, sub_ok = _refined_turn(fam, rows[r], uu[r, j], uu[r, j + 1], seq[r, j],
+                                        seq[r, j + 1], depth + 1)
+            turn[r, j] = sub
+            np.logical_and.at(ok, r, sub_ok)
+    return turn.sum(axis=1), ok
+
+
+def _stability(fam: SampleLoops, w: FloatArray, re: FloatArray,
+               im: FloatArray) -> tuple[np.ndarray, np.ndarray]:
+    """(stable, decided by the certified per-loop count) per row."""
+    fr = 1.0 + re
+    mag = np.sqrt(fr * fr + im * im)
+    # The turn of each step is the angle of F_{j+1}·conj(F_j), in (−π, π] already.
+    a0, b0, a1, b1 = fr[:, :-1], im[:, :-1], fr[:, 1:], im[:, 1:]
+    turn = np.arctan2(b1 * a0 - a1 * b0, a1 * a0 + b1 * b0)
+    arg = np.stack([np.arctan2(im[:, 0], fr[:, 0]), np.arctan2(im[:, -1], fr[:, -1])],
+                   axis=1)
+    dr, di = np.diff(fr, axis=1), np.diff(im, axis=1)
+    step = np.sqrt(dr * dr + di * di)
+    r, j = np.nonzero(~(step <= _STEP_RTOL * np.minimum(mag[:, 1:], mag[:, :-1])))
+    u = np.log(w)
+    smooth = np.ones(fam.size, dtype=bool)
+    lv_end = re[:, -1] + 1j * im[:, -1]
+    if r.size:
+        sub, sub_ok = _refined_turn(fam, r, u[j], u[j + 1], fr[r, j] + 1j * im[r, j],
+                                    fr[r, j + 1] + 1j * im[r, j + 1])
+        turn[r, j] = sub
+        np.logical_and.at(smooth, r, sub_ok)
+    delta = turn.sum(axis=1)
+    m = _origin_counts(fam)
+    c0 = _dc_coefficient(fam)
+    # arg(1 + L) at ω = 0+.
+    arg0 = np.where(m > 0, np.where(c0 < 0, math.pi, 0.0) - m * math.pi / 2.0,
+                    np.where((m == 0) & (1.0 + c0 < 0), math.pi, 0.0))
+    ok = smooth & ~_axis_poles(fam) & ((m != 0) | (1.0 + c0 != 0)) & (mag[:, 0] > 0.1)
+    rd = _relative_degree(fam)
+    if rd > 0:
+        arg_inf = np.zeros(fam.size)
+        ok &= np.abs(lv_end) < 0.5
+    else:
+        k = fam.fixed.gain * fam.gain
+        arg_inf = np.where(1.0 + k < 0, math.pi, 0.0)
+        ok &= (fam.delay_s == 0) & (np.abs(1.0 + k) > 0.1) & (np.abs(lv_end - k) <
+                                                              0.1 * np.abs(1.0 + k))
+    delta = delta + _wrap(arg[:, 0] - arg0) + _wrap(arg_inf - arg[:, -1])
+    z = _open_loop_rhp(fam) + np.maximum(m, 0) / 2.0 - delta / math.pi
+    ok &= np.abs(z - np.round(z)) < 0.05
+    stable = ok & (np.round(z) == 0)
+    for i in np.flatnonzero(~ok):
+        stable[i] = _certified_stable(fam, int(i))
+    return stable, ~ok
+
+
+def _certified_stable(fam: SampleLoops, i: int) -> bool:
+    from .stability import closed_loop_stability
+
+    plant = Zpk(fam.zeros[i], fam.poles[i], float(fam.gain[i]))
+    loop = Loop(plant=plant, controller=fam.fixed, sensor=Zpk.constant(1.0),
+                delay_s=float(fam.delay_s[i]), stages=(fam.fixed,))
+    return bool(closed_loop_stability(loop, find_roots=False).closed_loop_stable)
+
+
+# --------------------------------------------------------------------------- entry point
+def evaluate_loops(fam: SampleLoops, w: FloatArray) -> SampleFigures:
+    """Every figure of :data:`FIGURES` and closed-loop stability for each row of ``fam``.
+
+    ``w`` is the shared grid (:func:`sample_grid`), rad/s.
+    """
+    with np.errstate(over="ignore", under="ignore"):
+        lm, ph = _grid_values(fam, w)
+        mag = np.exp(lm)
+        re, im = mag * np.cos(ph), mag * np.sin(ph)
+        out = _margins(fam, w, lm, ph)
+        out |= _peaks(fam, w, mag, re, im)
+        stable, certified = _stability(fam, w, re, im)
+    return SampleFigures(**out, stable=stable, certified_count=certified)
