@@ -449,3 +449,28 @@ def test_certified_fallback_agrees(monkeypatch: pytest.MonkeyPatch) -> None:
     exact = _routh_stable(X[:, 0], X[:, 1])
     assert slow.stable.tolist() == fast.stable.tolist() == exact.tolist()
     assert 0 < int(exact.sum()) < exact.size
+
+
+def test_waivers_are_decided_on_the_worst_case_findings() -> None:
+    """A waiver of the rule on every variant (no `variant` key) turns the worst case's fail
+    into waived; an expired one does not (README "Waivers", as on any variant)."""
+    waiver = """
+[[waivers]]
+rule = "margin.phase"
+reason = "retune scheduled"
+approved_by = "A. Engineer"
+expires = {expires}
+"""
+    statuses = {}
+    for expires in ("2027-03-31", "2026-11-01"):
+        d = parse_design(BOX_A.replace("samples = 256", "samples = 64")
+                         + waiver.replace("{expires}", expires), "a.toml")
+        review = run_review(d, today="2026-12-01")
+        found = [f for f in review.findings
+                 if f.rule == "margin.phase" and f.variant == "nominal (worst case)"]
+        assert len(found) == 1
+        statuses[expires] = found[0]
+    assert statuses["2027-03-31"].status == "waived"
+    assert "Waived by A. Engineer" in statuses["2027-03-31"].message
+    assert statuses["2026-11-01"].status == "fail"
+    assert "expired" in statuses["2026-11-01"].message

@@ -119,7 +119,6 @@ def _uncertainty(design: Design, rs: RuleSet, limits: dict, min_pm: float | None
     from .analysis.sweep import run_sweep
     from .design.parameters import SweepSettings
     from .errors import DesignError
-    from .ruleset.evaluate import apply_waivers
     from .ruleset.sweep_rules import pass_fractions, uncertainty_findings
 
     space = design.parameters
@@ -146,10 +145,8 @@ def _uncertainty(design: Design, rs: RuleSet, limits: dict, min_pm: float | None
         variant = next(v for v in at.variants if v.name == name)
         return analyze_variant(at, variant, min_phase_margin_deg=min_pm, settling_band=band)
 
-    extra = uncertainty_findings(design, rs, limits, result, fractions, analyse)
-    # Waivers apply as on any variant; one that matches nothing was reported already.
-    waived = [f for f in apply_waivers(extra, design.waivers, today=date,
-                                       rule_ids=[r.id for r in rs.rules])
-              if f.check != "waiver"]
+    # Waivers apply as on any variant (decided before each finding is built); one that
+    # matches nothing was reported already by evaluate().
+    extra = uncertainty_findings(design, rs, limits, result, fractions, analyse, today=date)
     return (Uncertainty(parameters=space.parameters, sweep=result,
-                        pass_fraction=MappingProxyType(fractions)), tuple(waived))
+                        pass_fraction=MappingProxyType(fractions)), tuple(extra))

@@ -20,6 +20,7 @@ Worst-case finding
 from __future__ import annotations
 
 import dataclasses
+import datetime as dt
 import math
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
@@ -31,9 +32,19 @@ import numpy as np
 from ..analysis.results import LoopAnalysis
 from ..design.model import Design
 from ..design.parameters import Parameter
-from .checks import is_lower_bound, is_warn_key
-from .evaluate import Limit, evaluate_rule
-from .model import Finding, Rule, RuleSet
+from .evaluate import Limit, build_finding, judge_rule
+from .model import Bound, Finding, Level, LimitKey, Rule, RuleSet
+from .waivers import waiver_matches
+
+
+def is_lower_bound(key: str) -> bool:
+    """True for a limit key that bounds its quantity from below (typed by LimitKey)."""
+    return LimitKey.parse(key).bound is Bound.MIN
+
+
+def is_warn_key(key: str) -> bool:
+    """True for a warning-level limit key."""
+    return LimitKey.parse(key).level is Level.WARN
 
 if TYPE_CHECKING:  # pragma: no cover - the sweep loads only when a design has parameters
     from ..analysis.sweep import SweepResult, WorstPoint
@@ -148,8 +159,12 @@ def _stability_point(result: SweepResult) -> tuple[tuple[float, ...], str, bool]
 def uncertainty_findings(design: Design, ruleset: RuleSet,
                          limits: Mapping[str, Mapping[str, Limit]], result: SweepResult,
                          fractions: Mapping[str, float | None],
-                         analyse: Callable[[Design, str], LoopAnalysis]) -> list[Finding]:
+                         analyse: Callable[[Design, str], LoopAnalysis], *,
+                         today: dt.date | None = None) -> list[Finding]:
     """One finding per swept rule at its worst point (see the module docstring).
+
+    The design's waivers that name the rule and the worst-case variant (or every variant)
+    are decided before the finding is built, as on any variant (expired ones use ``today``).
 
     ``analyse(design_at_point, variant_name)`` analyses one plant variant of a design in
     full; points shared by several rules are analysed once.
@@ -187,7 +202,7 @@ def uncertainty_findings(design: Design, ruleset: RuleSet,
             at = dataclasses.replace(at, variants=(*at.variants, worst_variant))
             cache[key] = (at, analyse(at, worst_variant.name))
         at, analysis = cache[key]
-        f = evaluate_rule(rule, lim, analysis, at)
+        f = judge_rule(rule, lim, analysis, at)
         where = point_text(result.names, point)
         details = dict(f.details)
         details.update({f"parameter.{n}": float(x)
@@ -197,7 +212,8 @@ def uncertainty_findings(design: Design, ruleset: RuleSet,
         details["unstable_samples"] = float(sum(unstable.values()))
         tail = (f"; {100.0 * frac:.1f} % of {result.samples} samples pass"
                 if frac is not None and not math.isnan(frac) else "")
-        out.append(dataclasses.replace(
-            f, message=f"{how}, at {where}: {f.message}{tail}",
-            details=MappingProxyType(details)))
+        outcome = dataclasses.replace(f, message=f"{how}, at {where}: {f.message}{tail}",
+                                      details=MappingProxyType(details))
+        waivers = [w for w in design.waivers if waiver_matches(w, rule.id, analysis.variant)]
+        out.append(build_finding(rule, analysis.variant, outcome, waivers, today=today))
     return out
