@@ -257,7 +257,9 @@ class SaturatedLoad:
     ``peak`` = max |y| (output units); ``recovery_time_s`` = last time |y − y∞| exceeds the
     linear response's ``recovery_level`` (y∞ the linear static deviation; ``inf``: not
     recovered within the horizon).  ``linear_*`` are the same figures of the same
-    simulation without limits (continuous loops: the linear load response's).
+    simulation without limits, so both carry the same time step (peaks read on the
+    simulation grid: within a few 1e-6 of ``disturbance.peak``, which is refined on the exact
+    response).
     """
 
     peak: float
