@@ -326,6 +326,7 @@ EXPECTED_SAMPLES = {
     "pump_pressure.toml": (("nominal", "long delivery line", "two pumps"), ("tf", "lowpass"),
                            "hz"),
     "spindle_sweep.toml": (("nominal", "identified model"), ("pi",), "hz"),
+    "dancer_tension.toml": (("nominal",), ("pid",), "rad/s"),
 }
 
 
