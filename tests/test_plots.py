@@ -277,3 +277,22 @@ def test_figures_drawn_in_worker_processes_equal_those_drawn_here(
     assert forked == here
     monkeypatch.setenv(plots.FIGURE_JOBS_ENV, "1")
     assert plots._figure_jobs(8) == 1
+
+
+def test_figures_started_ahead_equal_those_drawn_here(monkeypatch: pytest.MonkeyPatch) -> None:
+    # review --out starts the figures in forked workers right after the analysis
+    # (report/figure_pool.py); what it hands the PDF must be exactly what variant_plots
+    # draws here, variant by variant and in page order.
+    from loopwarden.report.figure_pool import FigureJob
+
+    review = sample_review("spindle_sweep")
+    monkeypatch.setenv(plots.FIGURE_JOBS_ENV, "2")
+    job = FigureJob(review.design, review.analyses)
+    ahead = job.result()
+    job.close()                                   # nothing left to stop: a no-op
+    here = [plots.variant_plots(review.design, a) for a in review.analyses]
+    assert [list(f) for f in ahead] == [list(h) for h in here]
+    assert ahead == here
+    # One process (or too few figures): nothing starts, result() draws them here.
+    monkeypatch.setenv(plots.FIGURE_JOBS_ENV, "1")
+    assert FigureJob(review.design, review.analyses).result() == here

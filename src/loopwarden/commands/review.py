@@ -15,6 +15,7 @@ import hashlib
 import os
 import sys
 from pathlib import Path
+from typing import Any
 
 HELP = "review one design against a rule set"
 
@@ -137,8 +138,7 @@ def _measured_files(*designs: object) -> list[Path]:
 def run(args: argparse.Namespace) -> int:
     from ..design.loader import load_design
     from ..errors import UsageError
-    from ..report import renderer
-    from ..report.atomic import check_outputs, write_outputs
+    from ..report.atomic import check_outputs
     from ..review_run import review_date, run_review
     from ..ruleset.loader import load_ruleset
     from ..signing.review_age import signing_time_text
@@ -193,6 +193,26 @@ def run(args: argparse.Namespace) -> int:
         signed_at = _signing_time_now(date, args)
         review = dataclasses.replace(review, run=dataclasses.replace(
             review.run, signer=signer, signed_at=signing_time_text(signed_at)))
+    figures = None
+    if args.out:
+        # The figures start drawing in forked workers now, while the JSON, JUnit and
+        # Markdown are rendered and reportlab (and pyHanko) load here.
+        from ..report.figure_pool import FigureJob
+
+        figures = FigureJob(review.design, review.analyses)
+    try:
+        return _write_outputs(review, args, inputs, passphrase, signed_at, figures)
+    finally:
+        if figures is not None:
+            figures.close()
+
+
+def _write_outputs(review: Any, args: argparse.Namespace, inputs: list[Path],
+                   passphrase: bytes | None, signed_at: dt.datetime | None,
+                   figures: Any) -> int:
+    from ..report import renderer
+    from ..report.atomic import write_outputs
+
     # Everything is rendered before the first file is written.
     evidence = renderer("json").render(review)
     files: dict[Path, bytes] = {}
@@ -203,7 +223,7 @@ def run(args: argparse.Namespace) -> int:
     if args.markdown:
         files[Path(args.markdown)] = renderer("markdown").render(review)
     if args.out:
-        files[Path(args.out)] = _pdf(review, evidence, args, passphrase, signed_at)
+        files[Path(args.out)] = _pdf(review, evidence, args, passphrase, signed_at, figures)
     table = renderer("terminal").render(review).decode("utf-8")
     write_outputs(files, inputs=inputs, force=args.force)
 
@@ -222,7 +242,8 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _pdf(review: object, evidence: bytes, args: argparse.Namespace,
-         passphrase: bytes | None, signed_at: dt.datetime | None) -> bytes:
+         passphrase: bytes | None, signed_at: dt.datetime | None, figures: Any = None
+         ) -> bytes:
     from ..errors import UsageError
 
     try:
@@ -231,9 +252,11 @@ def _pdf(review: object, evidence: bytes, args: argparse.Namespace,
         if exc.name != "loopwarden.report.pdf":
             raise
         raise UsageError("PDF output is not available in this build") from exc
-    pdf: bytes = render_pdf(review, embedded=_embedded(review, evidence))
     if args.sign:
-        from ..signing.sign import sign_pdf
+        from ..signing.sign import preload, sign_pdf
 
+        preload()                           # while the figure workers draw
+    pdf: bytes = render_pdf(review, embedded=_embedded(review, evidence), figures=figures)
+    if args.sign:
         pdf = sign_pdf(pdf, args.sign, passphrase, signing_time=signed_at)
     return pdf

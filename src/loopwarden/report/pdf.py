@@ -12,7 +12,7 @@ from __future__ import annotations
 import hashlib
 import io
 from collections.abc import Callable, Mapping
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from reportlab.lib.pagesizes import A4
 from reportlab.lib.units import mm
@@ -50,6 +50,9 @@ from .pdf_style import (
 from .plots import FrequencyUnit, all_variant_plots
 from .review import Review
 
+if TYPE_CHECKING:  # pragma: no cover
+    from .figure_pool import FigureJob
+
 __all__ = ["render_pdf", "CAUTION"]
 
 CAUTION = ("This review analyses the linear models it was given. It does not replace tests "
@@ -77,7 +80,8 @@ def _embed_info(name: str) -> tuple[str, str]:
     return "application/octet-stream", name
 
 
-def render_pdf(review: Review, *, embedded: Mapping[str, bytes]) -> bytes:
+def render_pdf(review: Review, *, embedded: Mapping[str, bytes],
+               figures: FigureJob | None = None) -> bytes:
     """Render the review as PDF bytes, with ``embedded`` files attached.
 
     Parameters
@@ -87,6 +91,9 @@ def render_pdf(review: Review, *, embedded: Mapping[str, bytes]) -> bytes:
     embedded : mapping of str to bytes
         Files to embed, by name (normally ``review.json``, ``design.toml``,
         ``rules.toml``).  They are attached in name order.
+    figures : FigureJob, optional
+        The review's figures, already being drawn (:mod:`.figure_pool`); without it they
+        are drawn here.  The PDF is the same either way.
 
     Returns
     -------
@@ -99,19 +106,21 @@ def render_pdf(review: Review, *, embedded: Mapping[str, bytes]) -> bytes:
     # Binary image streams: reportlab's pure-Python ASCII85 step took a third of the time
     # and made the file 25 % larger.  (A process-wide setting; loopwarden wants it off.)
     rl_config.useA85 = 0
-    body = _layout(review, embedded)
+    body = _layout(review, embedded, figures)
     return _attach(body, review, embedded)
 
 
 # --------------------------------------------------------------------------- layout
-def _layout(review: Review, embedded: Mapping[str, bytes]) -> bytes:
+def _layout(review: Review, embedded: Mapping[str, bytes],
+            job: FigureJob | None = None) -> bytes:
     st = styles()
     unit = FrequencyUnit.of(review.design)
     story: list[Any] = []
     story += _cover(review, st, unit)
     story.append(PageBreak())
     story += _findings(review, st, unit)
-    figures = all_variant_plots(review.design, review.analyses)
+    figures = (job.result() if job is not None
+               else all_variant_plots(review.design, review.analyses))
     for i, analysis in enumerate(review.analyses):
         story.append(PageBreak())
         story += evidence_section(review, analysis, st, unit, number=f"2.{i + 1}",

@@ -17,10 +17,16 @@ from typing import Any
 from ..errors import SigningError
 from .keys import load_key
 
-__all__ = ["sign_pdf", "SIGNATURE_FIELD"]
+__all__ = ["SIGNATURE_FIELD", "preload", "sign_pdf"]
 
 #: Name of the signature field loopwarden creates.
 SIGNATURE_FIELD = "loopwarden-review"
+
+
+def preload() -> None:
+    """Import pyHanko now (about 0.3 s), e.g. while the review's figures are drawn."""
+    import pyhanko.pdf_utils.incremental_writer  # noqa: F401
+    import pyhanko.sign  # noqa: F401
 
 
 def sign_pdf(pdf: bytes, key_path: Path | str, passphrase: bytes | None, *,
