@@ -143,6 +143,49 @@ def _verify(data: bytes, roots: list[Any] | None, trust: Path | str | None,
         checks.append(Check("signature intact", False,
                             f"cannot validate the signature: {type(exc).__name__}: {exc}"))
         return done()
+    signer = _signature_checks(sig, status, roots, trust, checks)
+    _coverage_checks(data, sig, status, revisions, checks)
+    signing_time = None
+    try:
+        from .review_age import signing_time_text
+
+        signing_time = status.signer_reported_dt or sig.self_reported_timestamp
+        signed_at = signing_time_text(signing_time) if signing_time is not None else None
+    except Exception:  # noqa: BLE001 - judged below as "no signing time"
+        signing_time = None
+
+    # 5. evidence from the signed revision
+    try:
+        files = embedded_files(reader.get_historical_resolver(sig.signed_revision))
+    except Exception as exc:  # noqa: BLE001
+        checks.append(Check("embedded evidence", False,
+                            f"cannot read the embedded files of the signed revision: "
+                            f"{type(exc).__name__}: {exc}"))
+        return done()
+    evidence = _evidence(files, checks)
+    if evidence is None:
+        return done()
+    try:
+        verdict = str(evidence.get("verdict"))
+        review_date = str(evidence.get("date"))
+        _consistency(files, evidence, checks)
+        _dates(evidence, signing_time, checks)
+        named = evidence.get("signer")
+        if named is not None:
+            checks.append(Check("signer named in evidence", str(named) == signer,
+                                f"evidence names {named!r}; certificate subject {signer!r}"))
+        _input_checks(evidence, design_bytes, rules_bytes, design_path, baseline_bytes,
+                      checks)
+    except Exception as exc:  # noqa: BLE001 - malformed evidence is a failure, not a crash
+        checks.append(Check("evidence content", False,
+                            f"the evidence is malformed: {type(exc).__name__}: {exc}"))
+        return done()
+    return done(complete=True)
+
+
+def _signature_checks(sig: Any, status: Any, roots: list[Any] | None,
+                      trust: Path | str | None, checks: list[Check]) -> str | None:
+    """Steps 2 and 3: integrity, PAdES form and trust; returns the signer's name."""
     try:
         subject = status.signing_cert.subject
         signer = str(subject.native.get("common_name") or subject.human_friendly)
@@ -174,7 +217,13 @@ def _verify(data: bytes, roots: list[Any] | None, trust: Path | str | None,
         checks.append(Check("trusted signer", False,
                             f"signed by {signer}, whose certificate does not chain to "
                             f"{trust}"))
+    return signer
 
+
+def _coverage_checks(data: bytes, sig: Any, status: Any, revisions: int,
+                     checks: list[Check]) -> None:
+    """Steps 4 and 7: the signed revision covers the whole file, and the unsigned bytes are
+    the signature value and zero padding."""
     # 4. coverage: the signed revision is the last and nothing follows the signed bytes
     try:
         from pyhanko.sign.validation.status import SignatureCoverageLevel as Coverage
@@ -201,62 +250,33 @@ def _verify(data: bytes, roots: list[Any] | None, trust: Path | str | None,
     except Exception as exc:  # noqa: BLE001
         checks.append(Check("signature padding", False,
                             f"cannot read the signature value: {type(exc).__name__}: {exc}"))
-    signing_time = None
-    try:
-        from .review_age import signing_time_text
 
-        signing_time = status.signer_reported_dt or sig.self_reported_timestamp
-        signed_at = signing_time_text(signing_time) if signing_time is not None else None
-    except Exception:  # noqa: BLE001 - judged below as "no signing time"
-        signing_time = None
 
-    # 5. evidence from the signed revision
-    try:
-        files = embedded_files(reader.get_historical_resolver(sig.signed_revision))
-    except Exception as exc:  # noqa: BLE001
-        checks.append(Check("embedded evidence", False,
-                            f"cannot read the embedded files of the signed revision: "
-                            f"{type(exc).__name__}: {exc}"))
-        return done()
-    evidence = _evidence(files, checks)
-    if evidence is None:
-        return done()
-    try:
-        verdict = str(evidence.get("verdict"))
-        review_date = str(evidence.get("date"))
-        _consistency(files, evidence, checks)
-        _dates(evidence, signing_time, checks)
-        named = evidence.get("signer")
-        if named is not None:
-            checks.append(Check("signer named in evidence", str(named) == signer,
-                                f"evidence names {named!r}; certificate subject {signer!r}"))
-
-        # 6. the inputs on disk
-        rec_design = str(_table(evidence, "design").get("sha256", ""))
-        rec_rules = str(_table(evidence, "ruleset").get("sha256", ""))
-        if design_bytes is not None:
-            got = _sha(design_bytes)
-            checks.append(Check("design file matches", got == rec_design,
-                                f"sha256 {_short(got)}; evidence records {_short(rec_design)}"))
-            if design_path is not None:
-                _measured_on_disk(design_bytes, design_path, evidence, checks)
-        if rules_bytes is not None:
-            got = _sha(rules_bytes)
-            checks.append(Check("rule-set file matches", got == rec_rules,
-                                f"sha256 {_short(got)}; evidence records {_short(rec_rules)}"))
-        if baseline_bytes is not None:
-            got = _sha(baseline_bytes)
-            base = evidence.get("baseline")
-            if not isinstance(base, dict):
-                checks.append(Check("baseline file matches", False,
-                                    "the review was made without a baseline"))
-            else:
-                rec_base = str(_table(base, "design").get("sha256", ""))
-                checks.append(Check("baseline file matches", got == rec_base,
-                                    f"sha256 {_short(got)}; evidence records "
-                                    f"{_short(rec_base)}"))
-    except Exception as exc:  # noqa: BLE001 - malformed evidence is a failure, not a crash
-        checks.append(Check("evidence content", False,
-                            f"the evidence is malformed: {type(exc).__name__}: {exc}"))
-        return done()
-    return done(complete=True)
+def _input_checks(evidence: dict[str, Any], design_bytes: bytes | None,
+                  rules_bytes: bytes | None, design_path: Path | None,
+                  baseline_bytes: bytes | None, checks: list[Check]) -> None:
+    """Step 6: the input files on disk hash to what the evidence records."""
+    # 6. the inputs on disk
+    rec_design = str(_table(evidence, "design").get("sha256", ""))
+    rec_rules = str(_table(evidence, "ruleset").get("sha256", ""))
+    if design_bytes is not None:
+        got = _sha(design_bytes)
+        checks.append(Check("design file matches", got == rec_design,
+                            f"sha256 {_short(got)}; evidence records {_short(rec_design)}"))
+        if design_path is not None:
+            _measured_on_disk(design_bytes, design_path, evidence, checks)
+    if rules_bytes is not None:
+        got = _sha(rules_bytes)
+        checks.append(Check("rule-set file matches", got == rec_rules,
+                            f"sha256 {_short(got)}; evidence records {_short(rec_rules)}"))
+    if baseline_bytes is not None:
+        got = _sha(baseline_bytes)
+        base = evidence.get("baseline")
+        if not isinstance(base, dict):
+            checks.append(Check("baseline file matches", False,
+                                "the review was made without a baseline"))
+        else:
+            rec_base = str(_table(base, "design").get("sha256", ""))
+            checks.append(Check("baseline file matches", got == rec_base,
+                                f"sha256 {_short(got)}; evidence records "
+                                f"{_short(rec_base)}"))
