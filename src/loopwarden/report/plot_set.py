@@ -8,8 +8,9 @@ from collections.abc import Sequence
 
 from ..analysis.results import LoopAnalysis
 from ..design.model import Design
-from .plot_frequency import bode_figure, nyquist_figure, sensitivity_figure
+from .plot_frequency import bode_figure, nyquist_figure
 from .plot_pole_zero import _open_loop_poles, closed_loop_zeros, pole_zero_figure
+from .plot_sensitivity import sensitivity_figure
 from .plot_style import FrequencyUnit, Plot
 from .plot_time import time_figure
 

@@ -6,8 +6,10 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from typing import Any
 
 import numpy as np
+from matplotlib.axes import Axes
 
 from ..analysis.results import LoopAnalysis, SlowPair
 from .plot_style import (
@@ -96,26 +98,7 @@ def time_figure(analysis: LoopAnalysis, *, width_in: float = FULL_WIDTH_IN,
         ax_log.legend(loc="upper right", frameon=False)
         ax_log.set_title("Step error, log scale (slow tail)", loc="left")
 
-        tr = curves.ramp_error.time_s
-        er = curves.ramp_error.value
-        if tr.size >= 2:
-            ax_r.plot(tr, er, color=C_MAIN, label="e(t) = t − y(t), r = t", **draw)
-            final = metrics.ramp_error_final
-            ax_r.axhline(final, color=C_MARK, linewidth=0.6, linestyle="--",
-                         label=f"e at end of run {_fmt(final)}")
-            if math.isfinite(analysis.tracking.ramp_error):
-                ax_r.axhline(analysis.tracking.ramp_error, color=C_SECOND, linewidth=0.8,
-                             linestyle=":",
-                             label=f"steady state 1/Kv = {_fmt(analysis.tracking.ramp_error)}")
-            ax_r.set_xlim(tr[0], tr[-1])
-            # A growing error (type 0) ends top right; put the legend where the curve isn't.
-            rising = er[-1] >= 0.8 * float(np.max(er))
-            ax_r.legend(loc="lower right" if rising else "upper right", frameon=False)
-        else:
-            _no_data(ax_r, analysis.errors.get("ramp", "no ramp response was computed"))
-        ax_r.set_xlabel("time (s)")
-        ax_r.set_ylabel("tracking error (per unit slope)")
-        ax_r.set_title("Reference ramp: tracking error", loc="left")
+        _ramp_panel(ax_r, analysis, curves, metrics, draw)
         for ax in (ax_y, ax_log, ax_r):
             _style(ax)
         _place(fig, rows=2, cols=2, hgap=0.62, wgap=0.72)
@@ -132,3 +115,28 @@ def time_figure(analysis: LoopAnalysis, *, width_in: float = FULL_WIDTH_IN,
                         "it lies above the band, the tail alone keeps the output unsettled.")
         return Plot(key="time", pixels=_pixels(fig), width_in=width_in, height_in=height_in,
                     caption=caption)
+
+
+def _ramp_panel(ax_r: Axes, analysis: LoopAnalysis, curves: Any, metrics: Any,
+                draw: dict[str, str]) -> None:
+    """The lower panel of :func:`time_figure`: the ramp-tracking error."""
+    tr = curves.ramp_error.time_s
+    er = curves.ramp_error.value
+    if tr.size >= 2:
+        ax_r.plot(tr, er, color=C_MAIN, label="e(t) = t − y(t), r = t", **draw)
+        final = metrics.ramp_error_final
+        ax_r.axhline(final, color=C_MARK, linewidth=0.6, linestyle="--",
+                     label=f"e at end of run {_fmt(final)}")
+        if math.isfinite(analysis.tracking.ramp_error):
+            ax_r.axhline(analysis.tracking.ramp_error, color=C_SECOND, linewidth=0.8,
+                         linestyle=":",
+                         label=f"steady state 1/Kv = {_fmt(analysis.tracking.ramp_error)}")
+        ax_r.set_xlim(tr[0], tr[-1])
+        # A growing error (type 0) ends top right; put the legend where the curve isn't.
+        rising = er[-1] >= 0.8 * float(np.max(er))
+        ax_r.legend(loc="lower right" if rising else "upper right", frameon=False)
+    else:
+        _no_data(ax_r, analysis.errors.get("ramp", "no ramp response was computed"))
+    ax_r.set_xlabel("time (s)")
+    ax_r.set_ylabel("tracking error (per unit slope)")
+    ax_r.set_title("Reference ramp: tracking error", loc="left")

@@ -24,7 +24,6 @@ from .plot_frequency import (  # noqa: F401  (re-exported: the old import path s
     frequency_view,
     marked_crossings,
     nyquist_figure,
-    sensitivity_figure,
     uncovered_sides,
 )
 from .plot_pole_zero import (  # noqa: F401  (re-exported: the old import path stays valid)
@@ -38,6 +37,9 @@ from .plot_pole_zero import (  # noqa: F401  (re-exported: the old import path s
     closed_loop_zeros,
     pole_zero_figure,
     z_plane_view,
+)
+from .plot_sensitivity import (  # noqa: F401  (re-exported: the old import path stays valid)
+    sensitivity_figure,
 )
 from .plot_set import (  # noqa: F401  (re-exported: the old import path stays valid)
     _MIN_PARALLEL_FIGURES,
