@@ -21,6 +21,7 @@ compare different quantities against different keys (boost_band: the 3 dB band a
 
 from __future__ import annotations
 
+from ..report.numbers import fmt  # noqa: F401  (re-exported: batch.py imports it from here)
 from .check_catalog import (  # noqa: F401  (re-exported: the old import path stays valid)
     BAND,
     CHECKS,
