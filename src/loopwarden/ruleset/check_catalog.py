@@ -78,6 +78,10 @@ class Check:
     limit_specs: Mapping[str, LimitKey] = field(default_factory=lambda: MappingProxyType({}))
     options: Mapping[str, Option] = field(default_factory=lambda: MappingProxyType({}))
     waivable: bool = True
+    #: design ``[requirements]`` key → the limit keys of this check it tightens or supplies
+    #: (merged into :data:`loopwarden.ruleset.evaluate.REQUIREMENT_TARGETS`)
+    requirements: Mapping[str, tuple[str, ...]] = field(
+        default_factory=lambda: MappingProxyType({}))
     predicate: bool = False                         # pass/fail without numeric limits
     needs_stable: bool = False                      # only meaningful for a stable loop
 
@@ -122,7 +126,8 @@ BAND = Option(kind=float, low=0.0, high=0.5,
 
 def _check(name: str, *, unit: str, summary: str, limits: tuple[str, ...] = (),
            options: Mapping[str, Option] | None = None, waivable: bool = True,
-           predicate: bool = False, needs_stable: bool = False
+           predicate: bool = False, needs_stable: bool = False,
+           requirements: Mapping[str, tuple[str, ...]] | None = None
            ) -> Callable[[CheckFunction], CheckFunction]:
     def register(fn: CheckFunction) -> CheckFunction:
         CHECKS[name] = Check(name=name, unit=unit, summary=summary, limit_keys=limits,
@@ -130,7 +135,8 @@ def _check(name: str, *, unit: str, summary: str, limits: tuple[str, ...] = (),
                                  {k: LimitKey.parse(k) for k in limits}),
                              function=fn, options=MappingProxyType(dict(options or {})),
                              waivable=waivable, predicate=predicate,
-                             needs_stable=needs_stable)
+                             needs_stable=needs_stable,
+                             requirements=MappingProxyType(dict(requirements or {})))
         return fn
     return register
 
