@@ -62,6 +62,31 @@ def disturbance_rejection(a: LoopAnalysis, rule: Rule, design: Design, *,
                  "gain_peak_rad_s": d.gain_peak_rad_s, "at": d.at})
 
 
+@_check("disturbance_recovery", unit="s", limits=UPPER,
+        requirements={"disturbance_recovery_time": ("max",)},
+        summary="step load disturbance ([disturbance]): time until the output stays within "
+                "the settling band of the load's static effect (s)")
+def disturbance_recovery(a: LoopAnalysis, rule: Rule, design: Design, *,
+                         baseline: LoopAnalysis | None = None) -> Measurement:
+    if design.disturbance is None:
+        raise NotApplicable("the design has no [disturbance] table (where a load enters and "
+                            "how large it is)")
+    _stable_for(a, "recovery from the load")
+    d = a.disturbance
+    if d is None:
+        raise AnalysisError(a.errors.get("disturbance",
+                                         "the disturbance response was not computed"))
+    where = "plant input" if d.at == "plant_input" else "plant output"
+    text = (f"load step {fmt(d.size)} at the {where}: the output stays within "
+            f"±{fmt(d.recovery_level)} of its final value after {fmt(d.recovery_time_s, 's')}")
+    if d.sampled:
+        text += " (at the sampling instants)"
+    return Measurement(value=d.recovery_time_s, text=text,
+                       compare=dict.fromkeys(UPPER, d.recovery_time_s),
+                       details={"recovery_level": d.recovery_level, "peak": d.peak,
+                                "at": d.at})
+
+
 def _effort(a: LoopAnalysis):  # type: ignore[no-untyped-def]
     if a.effort is None:
         raise AnalysisError(a.errors.get("effort", "the noise and effort figures were not "
