@@ -322,6 +322,26 @@ def test_disturbance_rule_without_table_or_limit_is_not_applicable(tmp_path: Pat
     assert load["status"] == "n/a" and "disturbance_peak" in load["message"]
 
 
+@pytest.mark.parametrize(("limit_factor", "status"), [(1.01, "pass"), (0.99, "fail")])
+def test_recovery_check_against_the_closed_form(tmp_path: Path, limit_factor: float,
+                                                status: str) -> None:
+    # [derived] as in test_first_order_p_control_at_the_output: y = d·(1/(1+K) +
+    # K/(1+K)·e^{−at}), a = (1+K)/τ, back within 0.02·|d| of y∞ after ln(K/((1+K)·0.02))/a.
+    t_rec = math.log(K / ((1.0 + K) * BAND)) / ((1.0 + K) / TAU)
+    path = tmp_path / "d.toml"
+    path.write_text(design(FIRST_ORDER_P, '[disturbance]\nat = "plant_output"\nsize = 2.0\n',
+                           f"[requirements]\ndisturbance_recovery_time = "
+                           f"{limit_factor * t_rec!r}\n"), encoding="utf-8")
+    out = tmp_path / "r.json"
+    main(["review", str(path), "--rules", "process-control", "--json", str(out)])
+    data = json.loads(out.read_text(encoding="utf-8"))
+    rec = next(f for f in data["findings"] if f["rule"] == "load.recovery")
+    assert rec["check"] == "disturbance_recovery"
+    assert rec["measured"] == pytest.approx(t_rec, rel=1e-9)
+    assert rec["status"] == status
+    assert rec["limit_source"] == "design [requirements].disturbance_recovery_time"
+
+
 def test_load_response_of_an_unstable_loop_is_refused() -> None:
     loop = Loop(plant=Zpk([], [1.0], 1.0), controller=Zpk.constant(0.5),
                 sensor=Zpk.constant(1.0), stages=(Zpk.constant(0.5),))

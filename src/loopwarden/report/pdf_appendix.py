@@ -124,6 +124,19 @@ def appendix(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[An
             rows.append([text(v.name), "P_d(z) = " + _tf(d.sampled_loop(v).plant, "z")])
         out.append(grid_table(rows, st, (16, 84)))
 
+    out += _nominal_loop(d, st)
+    out += _requirements(d, st, unit)
+    out.append(Paragraph("Design file as read", st["h3"]))
+    out.append(_verbatim(d.text, st))
+
+    out += _rule_set(review, st)
+    return out
+
+
+def _nominal_loop(d: Any, st: dict[str, Any]) -> list[Any]:
+    """Appendix A: the open loop of the nominal plant, as the analysis uses it."""
+    sampling = d.sampling
+    out: list[Any] = []
     nominal_variant = d.variants[0]
     out.append(Paragraph("Loop, nominal plant", st["h3"]))
     if nominal_variant.measured is not None:
@@ -143,7 +156,12 @@ def appendix(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[An
         delay_text = f" · e^(−{num(nominal.delay_s)}·s)" if nominal.delay_s else ""
         out.append(Paragraph(f"L(s) = C·P·H = {_tf(nominal.rational)}{text(delay_text)}",
                              st["body"]))
+    return out
 
+
+def _requirements(d: Any, st: dict[str, Any], unit: FrequencyUnit) -> list[Any]:
+    """Appendix A: the requirements, the limits the design tightens and its waivers."""
+    out: list[Any] = []
     req = d.requirements
     items = []
     if req.reference_band_rad_s is not None:
@@ -177,9 +195,12 @@ def appendix(review: Review, st: dict[str, Any], unit: FrequencyUnit) -> list[An
             rows.append([text(w.rule), text(w.variant or "all"), text(w.reason),
                          text(w.approved_by), w.expires.isoformat()])
         out.append(grid_table(rows, st, (18, 12, 42, 16, 12)))
-    out.append(Paragraph("Design file as read", st["h3"]))
-    out.append(_verbatim(d.text, st))
+    return out
 
+
+def _rule_set(review: Review, st: dict[str, Any]) -> list[Any]:
+    """Appendix B: the rule set, each rule with its limits, rationale and source."""
+    out: list[Any] = []
     rs = review.ruleset
     out.append(CondPageBreak(70 * mm))
     out.append(Paragraph("B  The rule set", st["h1"]))

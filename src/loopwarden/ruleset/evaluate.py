@@ -103,6 +103,13 @@ REQUIREMENT_TARGETS: dict[str, tuple[Target, ...]] = {
                        Target("error_constant", ("min",), when=_which("ka"),
                               convert=_inverse)),
 }
+# A check declares the requirement keys it takes in its catalog entry
+# (``@_check(requirements={"key": ("max",)})``); they land here too, so a new check needs no
+# edit of this table.
+for _entry in CHECKS.values():
+    for _key, _limit_keys in _entry.requirements.items():
+        REQUIREMENT_TARGETS[_key] = (*REQUIREMENT_TARGETS.get(_key, ()),
+                                     Target(_entry.name, _limit_keys))
 #: requirement keys the analysis itself uses (not limits).
 ANALYSIS_REQUIREMENTS = ("settling_band",)
 

@@ -30,144 +30,38 @@ certificate) raises :class:`~loopwarden.errors.UsageError` instead (exit status 
 
 from __future__ import annotations
 
-import contextlib
-import hashlib
 import io
-import json
-import logging
-import re
-import tomllib
-from collections.abc import Iterator, Sequence
-from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, NamedTuple
+from typing import Any
 
 from ..errors import UsageError
+from .verify_common import (  # noqa: F401  (re-exported: the old import path stays valid)
+    _PADES,
+    SCHEMA,
+    Check,
+    VerifyReport,
+    _der_length,
+    _obj,
+    _padding,
+    _quiet,
+    _read,
+    _sha,
+    _short,
+    _trust_root,
+    embedded_files,
+    plant_attachment_names,
+)
+from .verify_evidence import (  # noqa: F401  (re-exported: the old import path stays valid)
+    _consistency,
+    _dates,
+    _evidence,
+    _measured_on_disk,
+    _measured_plants,
+    _named_csv_files,
+    _table,
+)
 
 __all__ = ["Check", "VerifyReport", "verify_pdf", "SCHEMA", "plant_attachment_names"]
-
-SCHEMA = "loopwarden-review/1"
-_PADES = "/ETSI.CAdES.detached"
-
-
-class Check(NamedTuple):
-    """One verification step: its name, whether it passed, and why."""
-
-    name: str
-    passed: bool
-    detail: str
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class VerifyReport:
-    """The outcome of :func:`verify_pdf`; ``ok`` only when every check ran and passed."""
-
-    ok: bool
-    checks: tuple[Check, ...]
-    signer: str | None = None           # subject of the signing certificate, when read
-    verdict: str | None = None          # the review's verdict per the signed evidence
-    review_date: str | None = None      # the evidence's date (YYYY-MM-DD), when read
-    signed_at: str | None = None        # the signature's signing time (UTC), when read
-
-
-def plant_attachment_names(variants: Sequence[str]) -> dict[str, str]:
-    """Embedded-file name of each measured plant variant's CSV: ``plant-<variant>.csv``.
-
-    The variant name is kept where it is a safe file name (letters, digits, ``.``, ``_``,
-    ``-``; anything else becomes ``-``); names that would coincide get ``-2``, ``-3``… in
-    the given order.  The review command and ``verify`` both use this, in the order of
-    ``design.measured_plants`` in the evidence, so the names need not be recorded.
-    """
-    out: dict[str, str] = {}
-    taken: set[str] = set()
-    for variant in variants:
-        stem = re.sub(r"[^A-Za-z0-9._-]+", "-", variant).strip("-.") or "variant"
-        name, k = f"plant-{stem}.csv", 2
-        while name in taken:
-            name, k = f"plant-{stem}-{k}.csv", k + 1
-        taken.add(name)
-        out[variant] = name
-    return out
-
-
-def _read(path: Path | str, what: str) -> bytes:
-    try:
-        return Path(path).read_bytes()
-    except OSError as exc:
-        raise UsageError(f"cannot read the {what}: {exc.strerror or exc}",
-                         file=str(path)) from exc
-
-
-def _trust_root(path: Path | str) -> Any:
-    from pyhanko.keys import load_certs_from_pemder_data
-
-    data = _read(path, "trust certificate")
-    try:
-        certs = list(load_certs_from_pemder_data(data))
-    except Exception as exc:  # noqa: BLE001 - any parse failure means "not a certificate"
-        raise UsageError("the trust file holds no readable certificate", file=str(path),
-                         hint="give the signer's (or its CA's) certificate, PEM or DER"
-                         ) from exc
-    if not certs:
-        raise UsageError("the trust file holds no certificate", file=str(path))
-    return certs
-
-
-@contextlib.contextmanager
-def _quiet() -> Iterator[None]:
-    """pyHanko logs every validation problem at ERROR; the report says it instead."""
-    loggers = [logging.getLogger(n) for n in ("pyhanko", "pyhanko_certvalidator")]
-    levels = [lg.level for lg in loggers]
-    for lg in loggers:
-        lg.setLevel(logging.CRITICAL + 1)
-    try:
-        yield
-    finally:
-        for lg, level in zip(loggers, levels, strict=True):
-            lg.setLevel(level)
-
-
-def _sha(data: bytes) -> str:
-    return hashlib.sha256(data).hexdigest()
-
-
-def _short(digest: str) -> str:
-    return f"{digest[:16]}…" if len(digest) > 16 else digest
-
-
-def _obj(x: Any) -> Any:
-    """Follow an indirect reference (pyHanko's ``get`` does not)."""
-    return x.get_object() if hasattr(x, "get_object") else x
-
-
-def embedded_files(resolver: Any) -> dict[str, bytes]:
-    """Every file in the EmbeddedFiles name tree of a document (or historical revision)."""
-    root = _obj(resolver.root)
-    if "/Names" not in root:
-        return {}
-    names = _obj(root["/Names"])
-    if "/EmbeddedFiles" not in names:
-        return {}
-    out: dict[str, bytes] = {}
-    stack = [_obj(names["/EmbeddedFiles"])]
-    seen = 0
-    while stack:
-        node = stack.pop()
-        seen += 1
-        if seen > 10_000:       # a name tree that loops back on itself
-            raise ValueError("the EmbeddedFiles name tree does not end")
-        if "/Kids" in node:
-            stack.extend(_obj(kid) for kid in _obj(node["/Kids"]))
-        pairs = list(_obj(node["/Names"])) if "/Names" in node else []
-        if len(pairs) % 2:
-            raise ValueError("an EmbeddedFiles name array has an odd length")
-        for key, spec in zip(pairs[::2], pairs[1::2], strict=True):
-            name = str(_obj(key))
-            if name in out:
-                raise ValueError(f"two embedded files are named {name!r}")
-            stream = _obj(_obj(_obj(spec)["/EF"])["/F"])
-            out[name] = bytes(stream.data)
-    return out
 
 
 def verify_pdf(path: Path | str, *, trust: Path | str | None = None,
@@ -249,6 +143,49 @@ def _verify(data: bytes, roots: list[Any] | None, trust: Path | str | None,
         checks.append(Check("signature intact", False,
                             f"cannot validate the signature: {type(exc).__name__}: {exc}"))
         return done()
+    signer = _signature_checks(sig, status, roots, trust, checks)
+    _coverage_checks(data, sig, status, revisions, checks)
+    signing_time = None
+    try:
+        from .review_age import signing_time_text
+
+        signing_time = status.signer_reported_dt or sig.self_reported_timestamp
+        signed_at = signing_time_text(signing_time) if signing_time is not None else None
+    except Exception:  # noqa: BLE001 - judged below as "no signing time"
+        signing_time = None
+
+    # 5. evidence from the signed revision
+    try:
+        files = embedded_files(reader.get_historical_resolver(sig.signed_revision))
+    except Exception as exc:  # noqa: BLE001
+        checks.append(Check("embedded evidence", False,
+                            f"cannot read the embedded files of the signed revision: "
+                            f"{type(exc).__name__}: {exc}"))
+        return done()
+    evidence = _evidence(files, checks)
+    if evidence is None:
+        return done()
+    try:
+        verdict = str(evidence.get("verdict"))
+        review_date = str(evidence.get("date"))
+        _consistency(files, evidence, checks)
+        _dates(evidence, signing_time, checks)
+        named = evidence.get("signer")
+        if named is not None:
+            checks.append(Check("signer named in evidence", str(named) == signer,
+                                f"evidence names {named!r}; certificate subject {signer!r}"))
+        _input_checks(evidence, design_bytes, rules_bytes, design_path, baseline_bytes,
+                      checks)
+    except Exception as exc:  # noqa: BLE001 - malformed evidence is a failure, not a crash
+        checks.append(Check("evidence content", False,
+                            f"the evidence is malformed: {type(exc).__name__}: {exc}"))
+        return done()
+    return done(complete=True)
+
+
+def _signature_checks(sig: Any, status: Any, roots: list[Any] | None,
+                      trust: Path | str | None, checks: list[Check]) -> str | None:
+    """Steps 2 and 3: integrity, PAdES form and trust; returns the signer's name."""
     try:
         subject = status.signing_cert.subject
         signer = str(subject.native.get("common_name") or subject.human_friendly)
@@ -280,7 +217,13 @@ def _verify(data: bytes, roots: list[Any] | None, trust: Path | str | None,
         checks.append(Check("trusted signer", False,
                             f"signed by {signer}, whose certificate does not chain to "
                             f"{trust}"))
+    return signer
 
+
+def _coverage_checks(data: bytes, sig: Any, status: Any, revisions: int,
+                     checks: list[Check]) -> None:
+    """Steps 4 and 7: the signed revision covers the whole file, and the unsigned bytes are
+    the signature value and zero padding."""
     # 4. coverage: the signed revision is the last and nothing follows the signed bytes
     try:
         from pyhanko.sign.validation.status import SignatureCoverageLevel as Coverage
@@ -307,262 +250,33 @@ def _verify(data: bytes, roots: list[Any] | None, trust: Path | str | None,
     except Exception as exc:  # noqa: BLE001
         checks.append(Check("signature padding", False,
                             f"cannot read the signature value: {type(exc).__name__}: {exc}"))
-    signing_time = None
-    try:
-        from .review_age import signing_time_text
-
-        signing_time = status.signer_reported_dt or sig.self_reported_timestamp
-        signed_at = signing_time_text(signing_time) if signing_time is not None else None
-    except Exception:  # noqa: BLE001 - judged below as "no signing time"
-        signing_time = None
-
-    # 5. evidence from the signed revision
-    try:
-        files = embedded_files(reader.get_historical_resolver(sig.signed_revision))
-    except Exception as exc:  # noqa: BLE001
-        checks.append(Check("embedded evidence", False,
-                            f"cannot read the embedded files of the signed revision: "
-                            f"{type(exc).__name__}: {exc}"))
-        return done()
-    evidence = _evidence(files, checks)
-    if evidence is None:
-        return done()
-    try:
-        verdict = str(evidence.get("verdict"))
-        review_date = str(evidence.get("date"))
-        _consistency(files, evidence, checks)
-        _dates(evidence, signing_time, checks)
-        named = evidence.get("signer")
-        if named is not None:
-            checks.append(Check("signer named in evidence", str(named) == signer,
-                                f"evidence names {named!r}; certificate subject {signer!r}"))
-
-        # 6. the inputs on disk
-        rec_design = str(_table(evidence, "design").get("sha256", ""))
-        rec_rules = str(_table(evidence, "ruleset").get("sha256", ""))
-        if design_bytes is not None:
-            got = _sha(design_bytes)
-            checks.append(Check("design file matches", got == rec_design,
-                                f"sha256 {_short(got)}; evidence records {_short(rec_design)}"))
-            if design_path is not None:
-                _measured_on_disk(design_bytes, design_path, evidence, checks)
-        if rules_bytes is not None:
-            got = _sha(rules_bytes)
-            checks.append(Check("rule-set file matches", got == rec_rules,
-                                f"sha256 {_short(got)}; evidence records {_short(rec_rules)}"))
-        if baseline_bytes is not None:
-            got = _sha(baseline_bytes)
-            base = evidence.get("baseline")
-            if not isinstance(base, dict):
-                checks.append(Check("baseline file matches", False,
-                                    "the review was made without a baseline"))
-            else:
-                rec_base = str(_table(base, "design").get("sha256", ""))
-                checks.append(Check("baseline file matches", got == rec_base,
-                                    f"sha256 {_short(got)}; evidence records "
-                                    f"{_short(rec_base)}"))
-    except Exception as exc:  # noqa: BLE001 - malformed evidence is a failure, not a crash
-        checks.append(Check("evidence content", False,
-                            f"the evidence is malformed: {type(exc).__name__}: {exc}"))
-        return done()
-    return done(complete=True)
 
 
-def _table(evidence: dict[str, Any], key: str) -> dict[str, Any]:
-    value = evidence.get(key)
-    if not isinstance(value, dict):
-        raise ValueError(f"{key!r} is not a table")
-    return value
-
-
-def _evidence(files: dict[str, bytes], checks: list[Check]) -> dict[str, Any] | None:
-    raw = files.get("review.json")
-    if raw is None:
-        checks.append(Check("embedded evidence", False,
-                            "no review.json in the signed revision (embedded: "
-                            f"{', '.join(sorted(files)) or 'nothing'})"))
-        return None
-    try:
-        evidence = json.loads(raw.decode("utf-8"))
-    except (UnicodeDecodeError, ValueError) as exc:
-        checks.append(Check("embedded evidence", False, f"review.json is not JSON: {exc}"))
-        return None
-    if not isinstance(evidence, dict) or evidence.get("schema") != SCHEMA:
-        got = evidence.get("schema") if isinstance(evidence, dict) else type(evidence).__name__
-        checks.append(Check("embedded evidence", False,
-                            f"review.json has schema {got!r}, expected {SCHEMA!r}"))
-        return None
-    design = evidence.get("design")
-    name = design.get("name") if isinstance(design, dict) else None
-    checks.append(Check("embedded evidence", True,
-                        f"review.json ({len(raw)} bytes, {SCHEMA}): design {name!r}, "
-                        f"verdict {evidence.get('verdict')}"))
-    return evidence
-
-
-def _consistency(files: dict[str, bytes], evidence: dict[str, Any],
-                 checks: list[Check]) -> None:
-    """The embedded input files hash to what the embedded evidence records."""
-    problems = []
-    expected = {"design.toml": str(_table(evidence, "design").get("sha256", "")),
-                "rules.toml": str(_table(evidence, "ruleset").get("sha256", ""))}
-    for f in _table(evidence, "ruleset").get("files", [])[1:]:
-        expected[f"rules-{f.get('id')}.toml"] = str(f.get("sha256", ""))
-    if evidence.get("baseline") is not None:
-        expected["baseline.toml"] = str(_table(_table(evidence, "baseline"), "design")
-                                        .get("sha256", ""))
-    measured = _measured_plants(evidence)
-    names = plant_attachment_names([m["variant"] for m in measured])
-    for m in measured:
-        expected[names[m["variant"]]] = m["sha256"]
-    for name, digest in expected.items():
-        if name not in files:
-            problems.append(f"{name} is not embedded")
-        elif _sha(files[name]) != digest:
-            problems.append(f"{name} hashes to {_short(_sha(files[name]))}, the evidence "
-                            f"records {_short(digest)}")
-    checks.append(Check("embedded inputs match evidence", not problems,
-                        "; ".join(problems) if problems else
-                        f"{', '.join(sorted(expected))} hash to the recorded sha256"))
-
-
-def _measured_plants(evidence: dict[str, Any]) -> list[dict[str, str]]:
-    """``design.measured_plants`` of the evidence: variant, file and sha256 of each CSV."""
-    rows = _table(evidence, "design").get("measured_plants", [])
-    if not isinstance(rows, list):
-        raise ValueError("design.measured_plants is not a list")
-    out = []
-    for row in rows:
-        if not isinstance(row, dict):
-            raise ValueError("an entry of design.measured_plants is not a table")
-        out.append({k: str(row.get(k, "")) for k in ("variant", "file", "sha256")})
-    return out
-
-
-def _named_csv_files(design_bytes: bytes) -> dict[str, str]:
-    """Variant → frequency-response file, as the design file names them (``frd.file``)."""
-    doc = tomllib.loads(design_bytes.decode("utf-8"))
-    plant = doc.get("plant", {})
-    out: dict[str, str] = {}
-    if isinstance(plant, dict):
-        if isinstance(plant.get("frd"), dict) and "file" in plant["frd"]:
-            out["nominal"] = str(plant["frd"]["file"])
-        for v in plant.get("variants", []) or []:
-            if isinstance(v, dict) and isinstance(v.get("frd"), dict) and "file" in v["frd"]:
-                out[str(v.get("name", ""))] = str(v["frd"]["file"])
-    return out
-
-
-def _measured_on_disk(design_bytes: bytes, design_path: Path, evidence: dict[str, Any],
-                      checks: list[Check]) -> None:
-    """The CSV files the design on disk names hash to what the evidence records.
-
-    Read as the review read them: relative to the design file and inside its folder tree
-    (a name that leaves it is refused, not followed).
-    """
-    try:
-        named = _named_csv_files(design_bytes)
-    except (UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
-        checks.append(Check("measured-plant files match", False,
-                            f"the design file cannot be read as TOML: {exc}"))
-        return
-    recorded = {m["variant"]: m for m in _measured_plants(evidence)}
-    if not named and not recorded:
-        return
-    base = design_path.resolve().parent
-    problems, matched = [], []
-    for variant, file in named.items():
-        rec = recorded.get(variant)
-        if rec is None:
-            problems.append(f"{file} ({variant}): the evidence records no measured plant for "
-                            "this variant")
-            continue
-        target = Path(file)
-        target = (target if target.is_absolute() else base / target).resolve()
-        if not target.is_relative_to(base):
-            problems.append(f"{file} ({variant}) lies outside the design file's folder")
-            continue
-        try:
-            got = _sha(target.read_bytes())
-        except OSError as exc:
-            problems.append(f"cannot read {file} ({variant}): {exc.strerror or exc}")
-            continue
-        if got != rec["sha256"]:
-            problems.append(f"{file} ({variant}) hashes to {_short(got)}, the evidence "
-                            f"records {_short(rec['sha256'])}")
+def _input_checks(evidence: dict[str, Any], design_bytes: bytes | None,
+                  rules_bytes: bytes | None, design_path: Path | None,
+                  baseline_bytes: bytes | None, checks: list[Check]) -> None:
+    """Step 6: the input files on disk hash to what the evidence records."""
+    # 6. the inputs on disk
+    rec_design = str(_table(evidence, "design").get("sha256", ""))
+    rec_rules = str(_table(evidence, "ruleset").get("sha256", ""))
+    if design_bytes is not None:
+        got = _sha(design_bytes)
+        checks.append(Check("design file matches", got == rec_design,
+                            f"sha256 {_short(got)}; evidence records {_short(rec_design)}"))
+        if design_path is not None:
+            _measured_on_disk(design_bytes, design_path, evidence, checks)
+    if rules_bytes is not None:
+        got = _sha(rules_bytes)
+        checks.append(Check("rule-set file matches", got == rec_rules,
+                            f"sha256 {_short(got)}; evidence records {_short(rec_rules)}"))
+    if baseline_bytes is not None:
+        got = _sha(baseline_bytes)
+        base = evidence.get("baseline")
+        if not isinstance(base, dict):
+            checks.append(Check("baseline file matches", False,
+                                "the review was made without a baseline"))
         else:
-            matched.append(file)
-    for variant in sorted(set(recorded) - set(named)):
-        problems.append(f"the evidence records {recorded[variant]['file']} ({variant}), which "
-                        "the design file does not name")
-    checks.append(Check("measured-plant files match", not problems,
-                        "; ".join(problems) if problems else
-                        f"{', '.join(matched)} hash to the recorded sha256"))
-
-
-def _der_length(blob: bytes) -> int:
-    """Length in bytes of the DER element at the start of ``blob`` (tag, length, value)."""
-    if len(blob) < 2:
-        raise ValueError("the signature value is empty")
-    first = blob[1]
-    if first < 0x80:
-        return 2 + first
-    n = first & 0x7F
-    if n == 0 or n > 4 or len(blob) < 2 + n:
-        raise ValueError("the signature value has no definite DER length")
-    return 2 + n + int.from_bytes(blob[2:2 + n], "big")
-
-
-def _padding(data: bytes, byte_range: list[int]) -> Check:
-    """The unsigned gap of the ByteRange: ``<hex>`` of the DER signature, then zeros only."""
-    gap = data[byte_range[0] + byte_range[1]:byte_range[2]]
-    if len(gap) < 2 or gap[:1] != b"<" or gap[-1:] != b">":
-        return Check("signature padding", False,
-                     "the bytes outside the signed range are not one hex string")
-    digits = gap[1:-1]
-    if not re.fullmatch(rb"[0-9A-Fa-f]*", digits) or len(digits) % 2:
-        return Check("signature padding", False,
-                     "the signature's hex string holds characters other than hex digits")
-    blob = bytes.fromhex(digits.decode("ascii"))
-    end = _der_length(blob)
-    if end > len(blob):
-        return Check("signature padding", False, "the signature value is cut short")
-    stray = len(blob[end:]) - blob[end:].count(0)
-    if stray:
-        return Check("signature padding", False,
-                     f"{stray} non-zero byte(s) follow the signature in its padding: the "
-                     "file was changed after signing")
-    return Check("signature padding", True,
-                 f"{end}-byte signature followed by {len(blob) - end} zero bytes")
-
-
-def _dates(evidence: dict[str, Any], signing_time: Any, checks: list[Check]) -> None:
-    """The review date and the signing time: recorded in both places, and in order."""
-    import datetime as dt
-
-    from .review_age import MAX_REVIEW_AGE_DAYS, review_date_problem, signing_time_text
-
-    if signing_time is None:
-        checks.append(Check("review date and signing time", False,
-                            "the signature carries no signing time"))
-        return
-    signed = signing_time_text(signing_time)
-    recorded = evidence.get("signed_at")
-    if recorded != signed:
-        checks.append(Check("signing time recorded", False,
-                            f"the evidence records signed_at {recorded!r}; the signature "
-                            f"was made at {signed}"))
-    else:
-        checks.append(Check("signing time recorded", True,
-                            f"evidence and signature both say {signed}"))
-    try:
-        date = dt.date.fromisoformat(str(evidence.get("date")))
-    except ValueError:
-        checks.append(Check("review date and signing time", False,
-                            f"the evidence's date {evidence.get('date')!r} is not a date"))
-        return
-    problem = review_date_problem(date, signing_time)
-    checks.append(Check("review date and signing time", problem is None,
-                        problem or f"reviewed {date.isoformat()}, signed {signed} (the "
-                                   f"review date may lie at most {MAX_REVIEW_AGE_DAYS} days "
-                                   "before the signing time, never after it)"))
+            rec_base = str(_table(base, "design").get("sha256", ""))
+            checks.append(Check("baseline file matches", got == rec_base,
+                                f"sha256 {_short(got)}; evidence records "
+                                f"{_short(rec_base)}"))
