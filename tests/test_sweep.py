@@ -435,15 +435,15 @@ def test_delay_loop_stability_matches_the_first_crossing() -> None:
 def test_certified_fallback_agrees(monkeypatch: pytest.MonkeyPatch) -> None:
     # Every row forced onto the certified per-loop count (no step accepted, no cutting):
     # the verdicts are those of Routh–Hurwitz [derived] for box C, as the grid count's.
-    from loopwarden.analysis import sweep_response
+    from loopwarden.analysis import sweep_stability
 
     d = parse_design(BOX_C, "c.toml")
     X = np.column_stack([np.linspace(1.0, 3.0, 9), np.linspace(2.5, 0.5, 9)])
     fam = sample_loops(d, 0, X)
     w = sample_grid([fam])
     fast = evaluate_loops(fam, w)
-    monkeypatch.setattr(sweep_response, "_STEP_RTOL", 0.0)
-    monkeypatch.setattr(sweep_response, "_MAX_DEPTH", 0)
+    monkeypatch.setattr(sweep_stability, "_STEP_RTOL", 0.0)
+    monkeypatch.setattr(sweep_stability, "_MAX_DEPTH", 0)
     slow = evaluate_loops(fam, w)
     assert slow.certified_count.all() and not fast.certified_count.any()
     exact = _routh_stable(X[:, 0], X[:, 1])

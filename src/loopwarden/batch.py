@@ -19,32 +19,34 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
-import json
 import math
 import multiprocessing
 import os
 import signal
 import threading
 import time
-from collections.abc import Callable, Iterable, Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
 from pathlib import Path
 from typing import IO, Any
 
+from .batch_inputs import (  # noqa: F401  (re-exported: the old import path stays valid)
+    _REVIEW_SCHEMA,
+    COLUMNS,
+    MD_TITLE,
+    SUMMARY_CSV,
+    SUMMARY_MD,
+    _csv_header,
+    _ours,
+    check_out_dir,
+    collect_inputs,
+    output_names,
+)
 from .errors import UsageError, UserError
 
 __all__ = ["COLUMNS", "BatchResult", "DesignOutcome", "Progress", "collect_inputs",
            "default_jobs", "output_names", "review_file", "run_batch"]
 
-#: Columns of summary.csv, in order (one row per design and variant).
-COLUMNS = ("design", "file", "variant", "verdict", "closed_loop_stable", "gain_margin_db",
-           "phase_margin_deg", "delay_margin_s", "peak_sensitivity", "peak_complementary",
-           "disk_margin", "system_type", "kv", "overshoot_pct", "settling_time_s", "n_fail",
-           "n_warn", "error")
-SUMMARY_CSV = "summary.csv"
-SUMMARY_MD = "summary.md"
-MD_TITLE = "# loopwarden batch summary"
-_REVIEW_SCHEMA = "loopwarden-review/1"      # == report.json_out.SCHEMA (not imported here)
 _WORST = 3                                  # findings named per design in summary.md
 _PER_WORKER = 4                             # fewer designs than this per worker: fewer workers
 #: Wall time allowed per design (s) unless --timeout says otherwise.  Every design the
@@ -99,100 +101,6 @@ class BatchResult:
 def default_jobs() -> int:
     """``min(2, cpu count)``: the machines this runs on are small and shared."""
     return max(1, min(2, os.cpu_count() or 1))
-
-
-# --------------------------------------------------------------------------- inputs
-def collect_inputs(specs: Sequence[str | os.PathLike[str]]) -> list[Path]:
-    """Design files from files and folders (every ``*.toml`` inside, not recursive, sorted).
-
-    A file named twice (directly or through its folder) is reviewed once, first place kept.
-
-    Raises
-    ------
-    UsageError
-        A path that does not exist, or no design file at all.
-    """
-    found: list[Path] = []
-    seen: set[Path] = set()
-    for spec in specs:
-        path = Path(spec)
-        if "\0" in str(spec):
-            raise UsageError(f"{str(path)!r} contains a NUL byte", hint="nothing was reviewed")
-        if path.is_dir():
-            # Every entry named *.toml, also one that is no regular file (a FIFO, a
-            # folder): it gets its own summary row saying why it was skipped, unopened.
-            files = sorted(path.glob("*.toml"))
-        elif path.exists():
-            files = [path]
-        else:
-            raise UsageError(f"{str(path)!r} is neither a design file nor a folder",
-                             hint="nothing was reviewed")
-        for f in files:
-            key = f.resolve()
-            if key not in seen:
-                seen.add(key)
-                found.append(f)
-    if not found:
-        raise UsageError("no design files (*.toml) in " + ", ".join(map(str, specs)))
-    return found
-
-
-def output_names(inputs: Sequence[Path]) -> list[str]:
-    """``<stem>.json`` per input; a repeated stem gets ``-2``, ``-3``… in input order.
-
-    Names are compared case-insensitively, so the folder works the same on file systems
-    that ignore case.
-    """
-    taken = {SUMMARY_CSV, SUMMARY_MD}
-    names = []
-    for p in inputs:
-        name, n = f"{p.stem}.json", 1
-        while name.casefold() in taken:
-            n += 1
-            name = f"{p.stem}-{n}.json"
-        taken.add(name.casefold())
-        names.append(name)
-    return names
-
-
-def _csv_header() -> str:
-    return ",".join(COLUMNS)
-
-
-def _ours(path: Path) -> bool:
-    """True when ``path`` holds a file this batch (or an earlier one) wrote."""
-    try:
-        if path.name == SUMMARY_CSV:
-            with path.open(encoding="utf-8") as fh:
-                return fh.readline().rstrip("\r\n") == _csv_header()
-        if path.name == SUMMARY_MD:
-            with path.open(encoding="utf-8") as fh:
-                return fh.readline().rstrip("\r\n") == MD_TITLE
-        doc = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError):
-        return False
-    return isinstance(doc, dict) and doc.get("schema") == _REVIEW_SCHEMA
-
-
-def check_out_dir(out_dir: Path, names: Iterable[str], inputs: Sequence[Path]) -> None:
-    """Refuse (UsageError) unless every output can be written without harm (see module)."""
-    if out_dir.exists() and not out_dir.is_dir():
-        raise UsageError(f"--out {out_dir} is a file, not a folder")
-    resolved_inputs = {p.resolve() for p in inputs}
-    for name in (*names, SUMMARY_CSV, SUMMARY_MD):
-        target = out_dir / name
-        if target.resolve() in resolved_inputs:
-            raise UsageError(f"--out {out_dir}: {name} would overwrite an input file",
-                             hint="choose another output folder; nothing was written")
-        if target.is_symlink() or (target.exists() and not target.is_file()):
-            raise UsageError(f"--out {out_dir}: {name} exists and is not a regular file (a "
-                             "link, pipe, device or folder)",
-                             hint="refusing to replace it; nothing was written")
-        if target.exists() and not _ours(target):
-            raise UsageError(
-                f"--out {out_dir}: {name} exists and was not written by loopwarden",
-                hint="use a new or empty folder, or one an earlier batch wrote; refusing "
-                     "to overwrite it, nothing was written")
 
 
 # --------------------------------------------------------------------------- one design
@@ -532,67 +440,5 @@ def run_batch(inputs: Sequence[Path], out_dir: Path, *, ruleset: str | None = No
     return result
 
 
-# --------------------------------------------------------------------------- summaries
-def summary_csv(result: BatchResult) -> bytes:
-    """summary.csv (pandas): one row per design and variant, :data:`COLUMNS` in order."""
-    import pandas as pd
-
-    frame = pd.DataFrame([r for o in result.outcomes for r in o.rows], columns=list(COLUMNS))
-    # Whole numbers stay whole when a row of an unread design leaves them empty.
-    frame = frame.astype({"system_type": "Int64", "n_fail": "Int64", "n_warn": "Int64"})
-    return frame.to_csv(index=False, lineterminator="\n").encode("utf-8")
-
-
-def _md_code(text: str) -> str:
-    """A file name as a code span: literal there (no HTML, no markup); controls shown."""
-    from .report.escape import for_terminal
-
-    # (a | still splits a table cell inside a code span: escape it)
-    return "`" + for_terminal(text).replace("`", "'").replace("\n", " ").replace(
-        "|", "\\|") + "`"
-
-
-def summary_md(result: BatchResult, ruleset: Any, date: str, tool_version: str) -> bytes:
-    """summary.md: totals, then one table row per design (verdict, worst findings)."""
-    from .report import CAUTIONS
-    from .report.escape import for_markdown
-
-    n = len(result.outcomes)
-    not_read = result.count("error") + result.count("internal") + result.count("timeout")
-    lines = [
-        MD_TITLE, "",
-        f"**{n} design{'s' if n != 1 else ''}: {result.count('pass')} pass, "
-        f"{result.count('fail')} fail, {not_read} could not be reviewed**", "",
-        f"- Rule set: {for_markdown(f'{ruleset.id} {ruleset.version} ({ruleset.title})')}, "
-        "SHA-256 "
-        f"`{ruleset.sha256}`",
-        f"- Date: {date}; loopwarden {tool_version}",
-        "",
-        "| Design | File | Review | Verdict | Fail | Warn | Worst findings |",
-        "|---|---|---|---|---|---|---|",
-    ]
-    for o in result.outcomes:
-        review = "" if o.error is not None else _md_code(Path(o.output).name)
-        verdict = {"pass": "pass", "fail": "FAIL", "error": "ERROR", "timeout": "TIMEOUT",
-                   "internal": "INTERNAL ERROR"}[o.verdict]
-        worst = o.error if o.error is not None else "; ".join(o.worst) or "none"
-        # names and messages come from the design files: escaped (no raw HTML or markup)
-        cells = (for_markdown(o.design or ""), _md_code(o.path), review, verdict,
-                 "" if o.error else str(o.n_fail), "" if o.error else str(o.n_warn),
-                 for_markdown(worst))
-        lines.append("| " + " | ".join(cells) + " |")
-    lines += ["", f"> **Caution.** {CAUTIONS}", ""]
-    return "\n".join(lines).encode("utf-8")
-
-
-def _write_summaries(result: BatchResult, ruleset: Any, date: str,
-                     tool_version: str | None) -> None:
-    from . import __version__
-    from .report.atomic import write_outputs
-
-    # check_out_dir recognised any existing summary as a batch's own (_ours) before the run
-    write_outputs({result.out_dir / SUMMARY_CSV: summary_csv(result),
-                   result.out_dir / SUMMARY_MD: summary_md(result, ruleset, date,
-                                                           tool_version or __version__)},
-                  ours=_ours)
-
+# The summaries read the records above (imported last: no import cycle).
+from .batch_summary import _write_summaries, summary_csv, summary_md  # noqa: E402, F401

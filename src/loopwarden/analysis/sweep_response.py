@@ -33,7 +33,7 @@ from dataclasses import dataclass, fields
 
 import numpy as np
 
-from ..lti import FloatArray, Loop, Zpk
+from ..lti import FloatArray, Zpk
 from .frequency_grid import AXIS_RTOL, LIGHT_DAMPING, NEGLIGIBLE_GAIN
 from .margins import wrap_phase_margin_deg
 from .sweep_models import SampleLoops
@@ -47,11 +47,6 @@ POINTS_PER_DECADE = 30
 #: Uniform spacing of a delay's phase on the grid, rad (ω·T step).
 _DELAY_STEP_RAD = 0.25
 _MAX_GRID = 6000
-#: A grid step of 1 + L is accepted for the count when |ΔF| ≤ this · min|F| at its ends.
-_STEP_RTOL = 0.5
-#: A long step is cut into this many parts, at most this many times over.
-_SUBSTEPS = 16
-_MAX_DEPTH = 3
 _XTOL = 1e-10
 _PARABOLA_STEPS = 6
 _MAX_FALSE_POSITION = 60
@@ -383,229 +378,6 @@ def _endpoint_crossings(fam: SampleLoops) -> tuple[np.ndarray, FloatArray]:
     return rows, mags
 
 
-# --------------------------------------------------------------------------- peaks
-def _peak_functions(lv: np.ndarray) -> tuple[FloatArray, FloatArray, FloatArray]:
-    with np.errstate(divide="ignore", invalid="ignore"):
-        inv = 1.0 / np.abs(1.0 + lv)
-        return inv, np.abs(lv) * inv, 0.5 * np.abs(1.0 - lv) * inv
-
-
-def _complex(lm: FloatArray, ph: FloatArray) -> np.ndarray:
-    return np.exp(lm + 1j * ph)
-
-
-def _grid_peak_functions(mag: FloatArray, re: FloatArray,
-                         im: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray]:
-    """:func:`_peak_functions` from ``|L|`` and the real and imaginary parts of L (real
-    arithmetic only: cheaper than complex numbers on the whole grid)."""
-    im2 = im * im
-    with np.errstate(divide="ignore", invalid="ignore"):
-        inv = 1.0 / np.sqrt((1.0 + re) ** 2 + im2)
-        return inv, mag * inv, 0.5 * np.sqrt((1.0 - re) ** 2 + im2) * inv
-
-
-def _peaks(fam: SampleLoops, w: FloatArray, mag: FloatArray, re: FloatArray,
-           im: FloatArray) -> dict[str, FloatArray]:
-    """Ms, Mt and the disk margin per row: the three peaks refined in one search (their
-    brackets stacked, so each step evaluates L once for all of them)."""
-    n = fam.size
-    u = np.log(w)
-    values = _grid_peak_functions(mag, re, im)
-    ends = _peak_limits(fam)
-    rows = np.arange(n)
-    js = [np.clip(np.argmax(vals, axis=1), 1, w.size - 2) for vals in values]
-    stacked_rows = np.tile(rows, 3)
-    which = np.repeat(np.arange(3), n)
-
-    def fn(x: FloatArray) -> FloatArray:
-        lm, ph = _point_values(fam, stacked_rows, np.exp(x))
-        parts = _peak_functions(_complex(lm, ph))
-        return np.choose(which, parts)
-
-    def around(offset: int) -> tuple[FloatArray, FloatArray]:
-        return (np.concatenate([u[j + offset] for j in js]),
-                np.concatenate([vals[rows, j + offset] for vals, j in zip(values, js,
-                                                                          strict=True)]))
-
-    (ua, fa), (um, fm), (ub, fb) = around(-1), around(0), around(1)
-    best = _parabolic_max(fn, ua, um, ub, fa, fm, fb).reshape(3, n)
-    out = [np.maximum(np.max(vals, axis=1), np.maximum(best[k], ends[k]))
-           for k, vals in enumerate(values)]
-    ms, mt, d = out
-    with np.errstate(divide="ignore"):
-        return {"peak_sensitivity": ms, "peak_complementary": mt, "disk_margin": 1.0 / d}
-
-
-def _peak_limits(fam: SampleLoops) -> tuple[FloatArray, FloatArray, FloatArray]:
-    """``(|S|, |T|, |S − 1/2|)`` suprema at ω = 0 and ω = ∞, per row (max of the two)."""
-    m = _origin_counts(fam)
-    c0 = _dc_coefficient(fam)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        at0 = _peak_functions(c0.astype(complex))
-    zero = [np.where(m > 0, big, np.where(m < 0, small, val))
-            for big, small, val in zip((0.0, 1.0, 0.5), (1.0, 0.0, 0.5), at0, strict=True)]
-    rd = _relative_degree(fam)
-    if rd > 0:
-        high = (np.ones(fam.size), np.zeros(fam.size), np.full(fam.size, 0.5))
-    else:
-        k = fam.fixed.gain * fam.gain
-        plain = _peak_functions(k.astype(complex))
-        ka = np.abs(k)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            turning = (1.0 / (1.0 - ka), ka / (1.0 - ka), (1.0 + ka) / (2.0 * (1.0 - ka)))
-        high = tuple(np.where(fam.delay_s > 0, np.where(ka < 1, t, math.inf), p)
-                     for t, p in zip(turning, plain, strict=True))
-    return tuple(np.maximum(z, h) for z, h in zip(zero, high, strict=True))  # type: ignore
-
-
-def _parabolic_max(fn, a: FloatArray, m: FloatArray, b: FloatArray,  # type: ignore
-                   fa: FloatArray, fm: FloatArray, fb: FloatArray) -> FloatArray:
-    """Largest value of ``fn`` near the grid maximum ``m`` between ``a`` and ``b``.
-
-    Successive parabolic interpolation kept inside the bracket (a golden step where the
-    parabola's vertex falls outside or too close to a point): a smooth peak converges in a
-    few steps; every value evaluated is a true value of ``fn``, so the result is never
-    above the peak.
-    """
-    g = 0.5 * (3.0 - math.sqrt(5.0))
-    a, m, b, fa, fm, fb = (np.array(x, dtype=float) for x in (a, m, b, fa, fm, fb))
-    best = fm.copy()
-    for _ in range(_PARABOLA_STEPS):
-        d1, d2 = m - a, m - b
-        num = d1 ** 2 * (fm - fb) - d2 ** 2 * (fm - fa)
-        den = d1 * (fm - fb) - d2 * (fm - fa)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            x = m - 0.5 * num / den
-        tol = 1e-10 * np.maximum(1.0, np.abs(m))
-        golden = np.where(b - m > m - a, m + g * (b - m), m - g * (m - a))
-        bad = ~np.isfinite(x) | (x <= a + tol) | (x >= b - tol) | (np.abs(x - m) < tol)
-        x = np.where(bad, golden, x)
-        fx = fn(x)
-        best = np.maximum(best, np.nan_to_num(fx, nan=-math.inf))
-        better = fx >= fm
-        right = x > m
-        # New bracket: around the better of (x, m).
-        na = np.where(better, np.where(right, m, a), np.where(right, a, x))
-        nb = np.where(better, np.where(right, b, m), np.where(right, x, b))
-        nfa = np.where(better, np.where(right, fm, fa), np.where(right, fa, fx))
-        nfb = np.where(better, np.where(right, fb, fm), np.where(right, fx, fb))
-        nm = np.where(better, x, m)
-        nfm = np.where(better, fx, fm)
-        a, b, fa, fb, m, fm = na, nb, nfa, nfb, nm, nfm
-        if np.all(b - a < 1e-9 * np.maximum(1.0, np.abs(m))):
-            break
-    return best
-
-
-# --------------------------------------------------------------------------- stability
-def _open_loop_rhp(fam: SampleLoops) -> np.ndarray:
-    fixed = int(np.sum(fam.fixed.poles.real > 0))
-    return fixed + np.sum(fam.poles.real > 0, axis=1)
-
-
-def _axis_poles(fam: SampleLoops) -> np.ndarray:
-    """Rows with an open-loop pole on the imaginary axis away from 0 (count not taken)."""
-    p = fam.poles
-    on = (np.abs(p.real) <= AXIS_RTOL * np.abs(p)) & (p != 0)
-    fixed = fam.fixed.poles
-    fixed_on = bool(np.any((np.abs(fixed.real) <= AXIS_RTOL * np.abs(fixed)) & (fixed != 0)))
-    return on.any(axis=1) | fixed_on
-
-
-def _wrap(x: FloatArray) -> FloatArray:
-    return x - 2.0 * math.pi * np.round(x / (2.0 * math.pi))
-
-
-def _steps_ok(F: np.ndarray) -> np.ndarray:
-    """Per step of the sequences ``F`` (last axis): short against the distance from 0."""
-    mag = np.abs(F)
-    return np.abs(np.diff(F, axis=-1)) <= _STEP_RTOL * np.minimum(mag[..., 1:], mag[..., :-1])
-
-
-def _refined_turn(fam: SampleLoops, rows: np.ndarray, ua: FloatArray, ub: FloatArray,
-                  fa: np.ndarray, fb: np.ndarray, depth: int = 0
-                  ) -> tuple[FloatArray, np.ndarray]:
-    """Change of ``arg(1 + L)`` over each step ``[ua, ub]`` (ln ω) of row ``rows``.
-
-    The step is cut into :data:`_SUBSTEPS` parts evaluated exactly; parts still too long
-    are cut again, up to :data:`_MAX_DEPTH` times.  Returns the turn per step and whether
-    every part was short enough (else the row's count is left to the certified method).
-    """
-    t = np.linspace(0.0, 1.0, _SUBSTEPS + 1)[1:-1]
-    u = ua[:, None] + (ub - ua)[:, None] * t[None, :]
-    lm, ph = _point_values(fam, np.repeat(rows, t.size).reshape(u.shape), np.exp(u))
-    seq = np.concatenate([fa[:, None], 1.0 + _complex(lm, ph), fb[:, None]], axis=1)
-    turn = _wrap(np.diff(np.angle(seq), axis=1))
-    good = _steps_ok(seq)
-    ok = np.ones(rows.size, dtype=bool)
-    if not good.all():
-        if depth >= _MAX_DEPTH:
-            ok = good.all(axis=1)
-        else:
-            r, j = np.nonzero(~good)
-            uu = np.concatenate([ua[:, None], u, ub[:, None]], axis=1)
-            sub, sub_ok = _refined_turn(fam, rows[r], uu[r, j], uu[r, j + 1], seq[r, j],
-                                        seq[r, j + 1], depth + 1)
-            turn[r, j] = sub
-            np.logical_and.at(ok, r, sub_ok)
-    return turn.sum(axis=1), ok
-
-
-def _stability(fam: SampleLoops, w: FloatArray, re: FloatArray,
-               im: FloatArray) -> tuple[np.ndarray, np.ndarray]:
-    """(stable, decided by the certified per-loop count) per row."""
-    fr = 1.0 + re
-    mag = np.sqrt(fr * fr + im * im)
-    # The turn of each step is the angle of F_{j+1}·conj(F_j), in (−π, π] already.
-    a0, b0, a1, b1 = fr[:, :-1], im[:, :-1], fr[:, 1:], im[:, 1:]
-    turn = np.arctan2(b1 * a0 - a1 * b0, a1 * a0 + b1 * b0)
-    arg = np.stack([np.arctan2(im[:, 0], fr[:, 0]), np.arctan2(im[:, -1], fr[:, -1])],
-                   axis=1)
-    dr, di = np.diff(fr, axis=1), np.diff(im, axis=1)
-    step = np.sqrt(dr * dr + di * di)
-    r, j = np.nonzero(~(step <= _STEP_RTOL * np.minimum(mag[:, 1:], mag[:, :-1])))
-    u = np.log(w)
-    smooth = np.ones(fam.size, dtype=bool)
-    lv_end = re[:, -1] + 1j * im[:, -1]
-    if r.size:
-        sub, sub_ok = _refined_turn(fam, r, u[j], u[j + 1], fr[r, j] + 1j * im[r, j],
-                                    fr[r, j + 1] + 1j * im[r, j + 1])
-        turn[r, j] = sub
-        np.logical_and.at(smooth, r, sub_ok)
-    delta = turn.sum(axis=1)
-    m = _origin_counts(fam)
-    c0 = _dc_coefficient(fam)
-    # arg(1 + L) at ω = 0+.
-    arg0 = np.where(m > 0, np.where(c0 < 0, math.pi, 0.0) - m * math.pi / 2.0,
-                    np.where((m == 0) & (1.0 + c0 < 0), math.pi, 0.0))
-    ok = smooth & ~_axis_poles(fam) & ((m != 0) | (1.0 + c0 != 0)) & (mag[:, 0] > 0.1)
-    rd = _relative_degree(fam)
-    if rd > 0:
-        arg_inf = np.zeros(fam.size)
-        ok &= np.abs(lv_end) < 0.5
-    else:
-        k = fam.fixed.gain * fam.gain
-        arg_inf = np.where(1.0 + k < 0, math.pi, 0.0)
-        ok &= (fam.delay_s == 0) & (np.abs(1.0 + k) > 0.1) & (np.abs(lv_end - k) <
-                                                              0.1 * np.abs(1.0 + k))
-    delta = delta + _wrap(arg[:, 0] - arg0) + _wrap(arg_inf - arg[:, -1])
-    z = _open_loop_rhp(fam) + np.maximum(m, 0) / 2.0 - delta / math.pi
-    ok &= np.abs(z - np.round(z)) < 0.05
-    stable = ok & (np.round(z) == 0)
-    for i in np.flatnonzero(~ok):
-        stable[i] = _certified_stable(fam, int(i))
-    return stable, ~ok
-
-
-def _certified_stable(fam: SampleLoops, i: int) -> bool:
-    from .stability import closed_loop_stability
-
-    plant = Zpk(fam.zeros[i], fam.poles[i], float(fam.gain[i]))
-    loop = Loop(plant=plant, controller=fam.fixed, sensor=Zpk.constant(1.0),
-                delay_s=float(fam.delay_s[i]), stages=(fam.fixed,))
-    return bool(closed_loop_stability(loop, find_roots=False).closed_loop_stable)
-
-
 # --------------------------------------------------------------------------- entry point
 def evaluate_loops(fam: SampleLoops, w: FloatArray) -> SampleFigures:
     """Every figure of :data:`FIGURES` and closed-loop stability for each row of ``fam``.
@@ -620,3 +392,8 @@ def evaluate_loops(fam: SampleLoops, w: FloatArray) -> SampleFigures:
         out |= _peaks(fam, w, mag, re, im)
         stable, certified = _stability(fam, w, re, im)
     return SampleFigures(**out, stable=stable, certified_count=certified)
+
+
+# The peak and stability parts read the grid helpers above (imported last: no cycle).
+from .sweep_peaks import _complex, _peaks  # noqa: E402, F401
+from .sweep_stability import _certified_stable, _stability  # noqa: E402, F401
