@@ -364,3 +364,24 @@ def test_measurement_fifo_message_names_the_design_file_key_and_csv(tmp_path):
         load_design(path)
     assert info.value.file == str(path) and info.value.where == "plant.frd.file"
     assert "sweep.csv" in info.value.what and "named pipe" in info.value.what
+
+
+def test_failed_tracking_part_carries_no_placeholder_numbers(tmp_path):
+    # A tracking part that fails numerically leaves every error constant None (null in the
+    # JSON, named in `unknown`), never a 0.0 that would read as "zero steady-state error";
+    # the step response still exists, so the PDF's ramp panel must cope with it.
+    d = parse_design(design(), "d.toml")
+    with mock.patch("loopwarden.analysis.tracking.compute_tracking",
+                    side_effect=FloatingPointError("overflow")):
+        review = run_review(d, today=DATE)
+    tr = review.analyses[0].tracking
+    assert (tr.kp, tr.kv, tr.ka, tr.step_error, tr.ramp_error, tr.parabola_error) == \
+        (None,) * 6
+    assert set(tr.unknown) >= {"kv", "ramp_error"}
+    doc = json.loads(renderer("json").render(review))
+    assert doc["variants"][0]["tracking"]["ramp_error"] is None
+    for fmt in ("markdown", "junit"):
+        renderer(fmt).render(review)
+    from loopwarden.report.pdf import render_pdf
+
+    assert render_pdf(review, embedded={}).startswith(b"%PDF")

@@ -114,8 +114,10 @@ def undecided_sensitivity(reason: str = "") -> Sensitivity:
 
 
 def undecided_tracking(reason: str = "") -> Tracking:
-    return Tracking(system_type=0, kp=0.0, kv=0.0, ka=0.0, step_error=0.0, ramp_error=0.0,
-                    parabola_error=0.0, unknown=_TRACKING_FIELDS)
+    # No placeholder numbers: every constant is None and named in ``unknown`` (why: the
+    # part's entry in LoopAnalysis.errors, read through analysis.absence).
+    return Tracking(system_type=0, kp=None, kv=None, ka=None, step_error=None,
+                    ramp_error=None, parabola_error=None, unknown=_TRACKING_FIELDS)
 
 
 def empty_curves() -> Curves:

@@ -127,7 +127,8 @@ def _ramp_panel(ax_r: Axes, analysis: LoopAnalysis, curves: Any, metrics: Any,
         final = metrics.ramp_error_final
         ax_r.axhline(final, color=C_MARK, linewidth=0.6, linestyle="--",
                      label=f"e at end of run {_fmt(final)}")
-        if math.isfinite(analysis.tracking.ramp_error):
+        ramp = analysis.tracking.ramp_error
+        if ramp is not None and math.isfinite(ramp):
             ax_r.axhline(analysis.tracking.ramp_error, color=C_SECOND, linewidth=0.8,
                          linestyle=":",
                          label=f"steady state 1/Kv = {_fmt(analysis.tracking.ramp_error)}")
