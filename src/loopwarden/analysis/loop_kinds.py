@@ -11,6 +11,7 @@ raises a figure to the bound that holds outside its range (:mod:`.measured`).
 
 from __future__ import annotations
 
+from abc import ABC, abstractmethod
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
@@ -37,7 +38,7 @@ __all__ = ["ContinuousKind", "LoopKind", "MeasuredKind", "SampledKind", "loop_ki
 
 
 @dataclass(frozen=True, eq=False)
-class LoopKind:
+class LoopKind(ABC):
     """The computations shared by the kinds with a model (continuous and sampled)."""
 
     design: Design
@@ -79,21 +80,21 @@ class LoopKind:
     def coverage(self) -> FrequencyCoverage | None:
         return None
 
-    # The kind-specific parts (overridden below).
-    def stability(self) -> Stability:
-        raise NotImplementedError
+    # The kind-specific parts: every kind below defines them (abstract here).
+    @abstractmethod
+    def stability(self) -> Stability: ...
 
-    def internal(self) -> InternalStability:
-        raise NotImplementedError
+    @abstractmethod
+    def internal(self) -> InternalStability: ...
 
-    def stabilising_margins(self, marg: Margins) -> Margins:
-        raise NotImplementedError
+    @abstractmethod
+    def stabilising_margins(self, marg: Margins) -> Margins: ...
 
-    def tracking(self) -> Tracking:
-        raise NotImplementedError
+    @abstractmethod
+    def tracking(self) -> Tracking: ...
 
-    def step(self, band: float) -> Any:
-        raise NotImplementedError
+    @abstractmethod
+    def step(self, band: float) -> Any: ...
 
 
 class ContinuousKind(LoopKind):
@@ -199,6 +200,14 @@ class MeasuredKind(LoopKind):
 
     def tracking(self) -> Tracking:
         return self.figures.tracking
+
+    # The parts table (parts.py) gives neither part to a loop without a model; were it
+    # asked, a measurement has no gain range to search and no time response.
+    def stabilising_margins(self, marg: Margins) -> Margins:
+        return marg
+
+    def step(self, band: float) -> None:
+        return None
 
     def coverage(self) -> FrequencyCoverage | None:
         return self.figures.coverage
