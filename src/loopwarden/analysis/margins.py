@@ -58,13 +58,15 @@ def wrap_phase_margin_deg(phase_deg: FloatArray | float) -> FloatArray:
 
 
 def bracketed_roots(fn: Callable[[FloatArray, FloatArray], FloatArray],
-                    a: FloatArray, b: FloatArray, xtol: float = _XTOL) -> FloatArray:
+                    a: FloatArray, b: FloatArray, xtol: float = _XTOL, *,
+                    bisections: int = _BISECTIONS, max_iter: int = _MAX_ITER) -> FloatArray:
     """Roots of ``fn(u, i)`` in every bracket ``[a_i, b_i]``, all brackets at once.
 
     ``fn(u, i)`` evaluates the function of bracket ``i`` (integer array) at ``u``; each
-    bracket must hold a sign change or a zero at an end.  A few bisections, then Illinois
-    false position; the iterate never leaves the bracket.  Converged when a step moves
-    less than ``xtol·max(1, |u|)``.
+    bracket must hold a sign change or a zero at an end.  ``bisections`` bisections (none
+    for brackets already short, e.g. a sweep's grid steps), then Illinois false position,
+    at most ``max_iter`` steps in all; the iterate never leaves the bracket.  Converged when
+    a step moves less than ``xtol·max(1, |u|)``.
     """
     a = np.array(a, dtype=float)
     b = np.array(b, dtype=float)
@@ -74,13 +76,13 @@ def bracketed_roots(fn: Callable[[FloatArray, FloatArray], FloatArray],
     root = np.where(fa == 0, a, np.where(fb == 0, b, 0.5 * (a + b)))
     active = (fa != 0) & (fb != 0)
     side = np.zeros(n, dtype=int)
-    for it in range(_MAX_ITER):
+    for it in range(max_iter):
         idx = np.flatnonzero(active)
         if idx.size == 0:
             break
         ai, bi, fai, fbi = a[idx], b[idx], fa[idx], fb[idx]
         mid = 0.5 * (ai + bi)
-        if it < _BISECTIONS:
+        if it < bisections:
             c = mid
         else:
             with np.errstate(divide="ignore", invalid="ignore"):
@@ -102,7 +104,7 @@ def bracketed_roots(fn: Callable[[FloatArray, FloatArray], FloatArray],
         side[idx[same_a]] = 1
         width = np.abs(b[idx] - a[idx])
         tol = xtol * np.maximum(1.0, np.abs(c))
-        converged = hit | (width <= tol) | ((it >= _BISECTIONS) & (step <= tol))
+        converged = hit | (width <= tol) | ((it >= bisections) & (step <= tol))
         active[idx[converged]] = False
     return root
 

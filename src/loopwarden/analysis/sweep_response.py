@@ -35,7 +35,7 @@ import numpy as np
 
 from ..lti import FloatArray, Zpk
 from .frequency_grid import AXIS_RTOL, LIGHT_DAMPING, NEGLIGIBLE_GAIN
-from .margins import wrap_phase_margin_deg
+from .margins import bracketed_roots, wrap_phase_margin_deg
 from .sweep_models import SampleLoops
 
 __all__ = ["FIGURES", "SampleFigures", "evaluate_loops", "sample_grid"]
@@ -239,43 +239,11 @@ def _point_values(fam: SampleLoops, rows: np.ndarray,
     return lm + flm, ph + fph
 
 
-def _false_position(fn, a: FloatArray, b: FloatArray,  # type: ignore[no-untyped-def]
-                    xtol: float) -> FloatArray:
-    """Roots of ``fn(u, i)`` in every bracket ``[a_i, b_i]`` (a sign change in each).
-
-    Illinois false position from the first step (the grid brackets are short, so no
-    bisections are needed first, unlike :func:`.margins.bracketed_roots`); the iterate
-    never leaves its bracket.
-    """
-    a, b = a.astype(float).copy(), b.astype(float).copy()
-    idx_all = np.arange(a.size)
-    fa, fb = fn(a, idx_all), fn(b, idx_all)
-    root = np.where(fa == 0, a, b)
-    active = (fa != 0) & (fb != 0)
-    side = np.zeros(a.size, dtype=int)
-    for _ in range(_MAX_FALSE_POSITION):
-        idx = np.flatnonzero(active)
-        if idx.size == 0:
-            break
-        ai, bi, fai, fbi = a[idx], b[idx], fa[idx], fb[idx]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            c = (ai * fbi - bi * fai) / (fbi - fai)
-        lo, hi = np.minimum(ai, bi), np.maximum(ai, bi)
-        c = np.where(np.isfinite(c) & (c > lo) & (c < hi), c, 0.5 * (ai + bi))
-        fc = fn(c, idx)
-        step = np.abs(c - root[idx])
-        root[idx] = c
-        hit = fc == 0
-        same_b = (np.sign(fc) == np.sign(fbi)) & ~hit
-        same_a = ~same_b & ~hit
-        fa[idx[same_b & (side[idx] == -1)]] *= 0.5
-        fb[idx[same_a & (side[idx] == 1)]] *= 0.5
-        b[idx[same_b]], fb[idx[same_b]] = c[same_b], fc[same_b]
-        a[idx[same_a]], fa[idx[same_a]] = c[same_a], fc[same_a]
-        side[idx[same_b]], side[idx[same_a]] = -1, 1
-        tol = xtol * np.maximum(1.0, np.abs(c))
-        active[idx[hit | (np.abs(b[idx] - a[idx]) <= tol) | (step <= tol)]] = False
-    return root
+def _brackets(fn, a: FloatArray, b: FloatArray) -> FloatArray:  # type: ignore[no-untyped-def]
+    """Roots of ``fn(u, i)`` in every grid bracket: the margins' solver, Illinois false
+    position from the first step (grid steps are short: no bisections first)."""
+    return bracketed_roots(fn, a.astype(float), b.astype(float), _XTOL, bisections=0,
+                           max_iter=_MAX_FALSE_POSITION)
 
 
 def _group_reduce(rows: np.ndarray, values: FloatArray, n: int, how: str) -> FloatArray:
@@ -300,7 +268,7 @@ def _margins(fam: SampleLoops, w: FloatArray, lm: FloatArray,
     def f_gain(x: FloatArray, i: np.ndarray) -> FloatArray:
         return _point_values(fam, r_g[i], np.exp(x))[0]
 
-    u_gc = _false_position(f_gain, u[j_g], u[j_g + 1], _XTOL)
+    u_gc = _brackets(f_gain, u[j_g], u[j_g + 1])
     w_gc = np.exp(u_gc)
     ph_gc = _point_values(fam, r_g, w_gc)[1]
     pm = wrap_phase_margin_deg(np.degrees(ph_gc))
@@ -330,7 +298,7 @@ def _margins(fam: SampleLoops, w: FloatArray, lm: FloatArray,
         return (_point_values(fam, r_p[i], np.exp(x))[1] + math.pi) / (2.0 * math.pi) \
             - target[i]
 
-    u_pc = _false_position(f_phase, u[j_p], u[j_p + 1], _XTOL)
+    u_pc = _brackets(f_phase, u[j_p], u[j_p + 1])
     mag_log = _point_values(fam, r_p, np.exp(u_pc))[0]
     rows_extra, mags_extra = _endpoint_crossings(fam)
     r_all = np.concatenate([r_p, rows_extra])
